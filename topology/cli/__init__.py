@@ -1,0 +1,81 @@
+"""The ``topology`` command line: parsing and printing only, over the Python API.
+
+Exit status: 0 success, 2 bad input (one line on stderr naming the key or file), 3 an internal
+error (one line; ``--debug`` shows the traceback), 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from .. import __version__
+from ..errors import InputError
+from . import bound, keys, predict
+
+COMMANDS = [predict, bound, keys]
+
+EPILOG = """exit status: 0 success, 2 bad input, 3 internal error, 130 interrupted.
+example: topology predict configs/demo.toml --json"""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="topology",
+        description="Matched-circle tests of the topology of space on HEALPix maps.",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("--version", action="version", version=f"topology {__version__}")
+    parser.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for module in _commands():
+        p = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP + "\n\nexample: " + module.EXAMPLE,
+                           formatter_class=argparse.RawDescriptionHelpFormatter)
+        module.add_arguments(p)
+        p.set_defaults(_run=module.run)
+    return parser
+
+
+def _commands():
+    mods = list(COMMANDS)
+    for name in ("synth", "search", "run"):  # stages that ship their own command module
+        try:
+            mods.append(__import__(f"topology.cli.{name}", fromlist=["run"]))
+        except ModuleNotFoundError as e:
+            if e.name != f"topology.cli.{name}":
+                raise
+    order = {"predict": 0, "bound": 1, "synth": 2, "search": 3, "run": 4, "keys": 9}
+    return sorted(mods, key=lambda m: order.get(m.NAME, 5))
+
+
+class _Parser(argparse.ArgumentParser):
+    pass
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "_run", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args._run(args) or 0)
+    except InputError as e:
+        print(f"topology {args.command}: error: {e}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print(f"topology {args.command}: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception as e:  # noqa: BLE001 - the last guard: one line, not a traceback
+        if args.debug:
+            raise
+        print(f"topology {args.command}: internal error: {type(e).__name__}: {e} (rerun with --debug for the traceback)",
+              file=sys.stderr)
+        return 3
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,57 @@
+"""Small helpers shared by the command modules (output files, JSON printing)."""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+from ..errors import InputError
+
+
+def print_json(obj) -> None:
+    json.dump(obj, sys.stdout, indent=2, allow_nan=False, default=_default)
+    sys.stdout.write("\n")
+
+
+def _default(o):
+    import numpy as np
+
+    if isinstance(o, np.generic):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
+def check_writable(path: str | Path, what: str = "output") -> Path:
+    """Fail early (before any work) when ``path`` cannot be written."""
+    p = Path(path)
+    parent = p.parent if str(p.parent) else Path(".")
+    if not parent.is_dir():
+        raise InputError(f"{what} folder does not exist", str(parent))
+    if not os.access(parent, os.W_OK):
+        raise InputError(f"{what} folder is not writable", str(parent))
+    if p.is_dir():
+        raise InputError(f"{what} path is a folder", str(p))
+    return p
+
+
+def atomic_write(path: str | Path, write) -> None:
+    """Call ``write(tmp_path)`` then rename into place, so no half-written file is ever left."""
+    p = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=p.suffix, dir=p.parent if str(p.parent) else ".")
+    os.close(fd)
+    try:
+        write(tmp)
+        with open(tmp, "rb") as fh:
+            os.fsync(fh.fileno())
+        os.replace(tmp, p)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise

@@ -1,0 +1,186 @@
+"""Load and validate TOML configs: the one place that knows every section, key and default.
+
+A config is a TOML file of sections. Each known section has a schema here: the keys it takes,
+their types and defaults, and a line of documentation (printed by ``topology keys``). Unknown
+sections and keys are errors with a did-you-mean; wrong types are errors that name the key.
+Family-specific keys of ``[space]`` are checked by :mod:`topology.spaces.registry`.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+try:  # Python >= 3.11
+    import tomllib as _toml
+except ModuleNotFoundError:  # pragma: no cover - Python 3.10
+    import tomli as _toml
+
+from .errors import InputError
+
+NUMBER = (int, float)
+
+
+@dataclass(frozen=True)
+class Key:
+    types: tuple
+    default: object
+    doc: str
+    check: object = None  # callable(value) -> error string or None
+
+
+def _positive(v):
+    return None if v > 0 else "must be positive"
+
+
+def _non_negative(v):
+    return None if v >= 0 else "must not be negative"
+
+
+def _power_of_two(v):
+    return None if v >= 1 and (v & (v - 1)) == 0 else "must be a power of two"
+
+
+def _euler(v):
+    return None if len(v) == 3 else "needs three Euler angles (z-y-z, degrees)"
+
+
+# Every section and key the package reads. Issues that add stages add their sections here.
+SCHEMA: dict[str, dict[str, Key]] = {
+    "cosmology": {
+        "h": Key(NUMBER, 0.6736, "H0 / (100 km/s/Mpc); default Planck 2018 VI Table 2"),
+        "omega_b_h2": Key(NUMBER, 0.02237, "physical baryon density omega_b h^2", _positive),
+        "omega_c_h2": Key(NUMBER, 0.1200, "physical cold dark matter density omega_c h^2", _non_negative),
+        "omega_k": Key(NUMBER, 0.0, "curvature density Omega_K (< 0 closed, > 0 open); Omega_Lambda = 1 - Omega_m - Omega_r - Omega_K"),
+        "omega_lambda": Key(NUMBER, None, "alternative to omega_k: Omega_Lambda, with Omega_K taking up the difference"),
+        "t_cmb": Key(NUMBER, 2.7255, "CMB temperature in K (Fixsen 2009)", _positive),
+        "n_eff": Key(NUMBER, 3.046, "effective number of massless neutrino species", _non_negative),
+        "z_star": Key(NUMBER, None, "redshift of last scattering; default: Hu & Sugiyama 1996 fit", _positive),
+    },
+    "space": {
+        "family": Key((str,), None, "E1..E17, lens, prism, tetrahedral, octahedral, dodecahedral, hyperbolic (or isotropic for a sky)"),
+        "lengths": Key((list,), None, "flat families: lattice translations in the plane, then the screw translation"),
+        "angles": Key((list,), None, "E1: lattice angles [alpha, beta, gamma] in degrees (default 90, 90, 90)"),
+        "angle": Key(NUMBER, None, "E2, E11...: angle between the two plane translations in degrees (default 90)"),
+        "length_unit": Key((str,), "chi_rec", "unit of lengths and flat observer positions: 'chi_rec' or 'Mpc'"),
+        "p": Key((int,), None, "lens space L(p, q): order p"),
+        "q": Key((int,), None, "lens space L(p, q): 0 < q < p, coprime to p"),
+        "m": Key((int,), None, "prism space S^3/D*_m: m >= 2 (group order 4m)"),
+        "generators": Key((str,), None, "hyperbolic: JSON or TOML file of SO(3,1) generator matrices"),
+    },
+    "observer": {
+        "position": Key((list,), None, "flat: [x, y, z] in length_unit; spherical: [w, x, y, z] on S^3 (normalised); "
+                                       "hyperbolic: [x, y, z] in the Poincare ball or [t, x, y, z] on the hyperboloid"),
+        "orientation": Key((list,), [0.0, 0.0, 0.0], "Euler angles z-y-z in degrees of the sky frame relative to the space", _euler),
+    },
+}
+
+
+def register_section(name: str, keys: dict[str, Key]) -> None:
+    """Add a section schema (used by stages that bring their own config sections)."""
+    SCHEMA[name] = keys
+
+
+def toml_loads(text: str) -> dict:
+    return _toml.loads(text)
+
+
+@dataclass
+class Config:
+    """A validated config: ``sections`` maps section name -> dict of given keys."""
+
+    sections: dict
+    path: Path | None = None
+    raw: str = ""
+
+    @property
+    def base_dir(self) -> Path:
+        return self.path.parent if self.path else Path.cwd()
+
+    def get(self, section: str, key: str, default=None):
+        """A key's value, else its schema default, else ``default``."""
+        sec = self.sections.get(section, {})
+        if key in sec:
+            return sec[key]
+        k = SCHEMA.get(section, {}).get(key)
+        return k.default if k is not None and k.default is not None else default
+
+    def section(self, name: str) -> dict:
+        return dict(self.sections.get(name, {}))
+
+    def has(self, name: str) -> bool:
+        return name in self.sections
+
+
+def _did_you_mean(word: str, options) -> str:
+    close = difflib.get_close_matches(word, sorted(options), n=1)
+    return f" (did you mean {close[0]!r}?)" if close else ""
+
+
+def _type_ok(value, types) -> bool:
+    if isinstance(value, bool):
+        return bool in types
+    return isinstance(value, types)
+
+
+def validate(data: dict, where: str = "config") -> dict:
+    """Check sections and keys against :data:`SCHEMA`; return the data unchanged."""
+    for name, sec in data.items():
+        if name not in SCHEMA:
+            raise InputError(f"unknown section [{name}]{_did_you_mean(name, SCHEMA)}", where)
+        schema = SCHEMA[name]
+        entries = sec if isinstance(sec, list) else [sec]
+        for entry in entries:
+            if not isinstance(entry, dict):
+                raise InputError(f"[{name}] must be a table", where)
+            for key, value in entry.items():
+                if key not in schema:
+                    raise InputError(f"unknown key{_did_you_mean(key, schema)}", f"{where}: [{name}] {key}")
+                spec = schema[key]
+                if not _type_ok(value, spec.types):
+                    want = " or ".join(t.__name__ for t in spec.types)
+                    raise InputError(f"must be {want}, got {type(value).__name__} {value!r}", f"{where}: [{name}] {key}")
+                if isinstance(value, float) and not math.isfinite(value):
+                    raise InputError(f"must be finite, got {value}", f"{where}: [{name}] {key}")
+                if spec.check is not None:
+                    msg = spec.check(value)
+                    if msg:
+                        raise InputError(f"{msg}, got {value!r}", f"{where}: [{name}] {key}")
+    return data
+
+
+def load_config(path: str | Path) -> Config:
+    """Read and validate a TOML config file."""
+    p = Path(path)
+    try:
+        text = p.read_text()
+    except FileNotFoundError:
+        raise InputError("config file not found", str(p)) from None
+    except (OSError, UnicodeDecodeError) as e:
+        raise InputError(f"cannot read config ({e})", str(p)) from None
+    try:
+        data = _toml.loads(text)
+    except _toml.TOMLDecodeError as e:
+        raise InputError(f"not valid TOML ({e})", str(p)) from None
+    validate(data, str(p))
+    return Config(data, p, text)
+
+
+def config_from_dict(data: dict, where: str = "config") -> Config:
+    """A validated config from a dict (for notebooks and tests)."""
+    validate(data, where)
+    return Config(data, None, "")
+
+
+def keys_table() -> str:
+    """Every section and key with its default and documentation, for ``topology keys``."""
+    lines = []
+    for name, keys in SCHEMA.items():
+        lines.append(f"[{name}]")
+        for key, spec in keys.items():
+            d = "(none)" if spec.default is None else repr(spec.default)
+            lines.append(f"  {key:<18} default {d:<14} {spec.doc}")
+        lines.append("")
+    return "\n".join(lines)
