@@ -75,6 +75,12 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                        "hyperbolic: [x, y, z] in the Poincare ball or [t, x, y, z] on the hyperboloid"),
         "orientation": Key((list,), [0.0, 0.0, 0.0], "Euler angles z-y-z in degrees of the sky frame relative to the space", _euler),
     },
+    # [sky]: owned by the synthetic-sky stage (topology/skies); edit only inside this block
+    "sky": {
+    },
+    # [search]: owned by the search stage (topology/search); edit only inside this block
+    "search": {
+    },
 }
 
 
