@@ -1,0 +1,84 @@
+"""Thresholds, look-elsewhere correction, p-values, efficiency and alpha_min.
+
+The null statistics here are correlated Gaussian draws standing in for S_max curves; the
+checks are the binomial behaviour the method promises (common practice)."""
+
+import numpy as np
+import pytest
+
+from topology import significance as sig
+from topology.errors import InputError
+
+
+def _null_curves(rng, n, n_radius=30, corr=0.8):
+    # AR(1) correlation along radius, mean and spread growing with radius like real S_max
+    z = rng.standard_normal((n, n_radius))
+    for i in range(1, n_radius):
+        z[:, i] = corr * z[:, i - 1] + np.sqrt(1 - corr**2) * z[:, i]
+    return 0.2 + 0.01 * np.arange(n_radius) + 0.05 * z
+
+
+def test_whole_range_threshold_has_nominal_false_alarm_on_fresh_skies():
+    rng = np.random.default_rng(11)
+    radii = np.arange(5, 35)
+    calib = _null_curves(rng, 600)
+    th = sig.thresholds(radii, calib, 0.05)
+    fresh = _null_curves(rng, 20000)
+    rate = (fresh > th.whole_range).any(axis=1).mean()
+    # binomial error of the calibration (N=600) dominates: sqrt(p(1-p)/600) = 0.0089
+    assert rate == pytest.approx(0.05, abs=3 * np.sqrt(0.05 * 0.95 / 600))
+    # the whole-range curve is stricter than the local one (look-elsewhere)
+    assert np.all(th.whole_range >= th.local)
+    assert th.local_level < 0.05
+
+
+def test_local_threshold_rate_per_radius():
+    rng = np.random.default_rng(3)
+    radii = np.arange(10, 20)
+    calib = _null_curves(rng, 2000, n_radius=10)
+    th = sig.thresholds(radii, calib, 0.1)
+    fresh = _null_curves(rng, 20000, n_radius=10)
+    rate = (fresh > th.local).mean(axis=0)
+    assert np.all(np.abs(rate - 0.1) < 4 * np.sqrt(0.1 * 0.9 / 2000))
+
+
+def test_p_values_with_plus_one_correction():
+    null = np.arange(1, 100, dtype=float)[:, None]  # 99 skies, one radius
+    # a value above every null sky: p = 1/100, never zero (Davison & Hinkley 1997)
+    assert sig.local_p_values(np.array([[1000.0]]), null)[0, 0] == pytest.approx(0.01)
+    # a value equal to the 90th largest: 10 of 99 are >= it
+    assert sig.local_p_values(np.array([[90.0]]), null)[0, 0] == pytest.approx(11 / 100)
+
+
+def test_global_p_value_uniform_under_null():
+    rng = np.random.default_rng(5)
+    null = _null_curves(rng, 300, n_radius=12)
+    fresh = _null_curves(rng, 400, n_radius=12)
+    p = np.array([sig.global_p_value(f, null) for f in fresh])
+    # uniform: about 10% below 0.1, 50% below 0.5
+    assert np.mean(p <= 0.1) == pytest.approx(0.1, abs=0.05)
+    assert np.mean(p <= 0.5) == pytest.approx(0.5, abs=0.08)
+
+
+def test_required_null_count_and_error():
+    assert sig.required_null_count(0.05) == 39
+    assert sig.required_null_count(0.01) == 199
+    with pytest.raises(InputError, match="need at least 39"):
+        sig.thresholds([10.0], np.zeros((20, 1)), 0.05)
+
+
+def test_efficiency_and_alpha_min():
+    radii = np.array([10, 20, 30, 40, 50, 60], float)
+    det = np.zeros((20, 6), bool)
+    det[:, 3:] = True  # always found at >= 40 deg
+    det[:19, 2] = True  # 95% at 30 deg
+    det[:10, 1] = True  # 50% at 20 deg
+    eff, err = sig.efficiency(det)
+    assert eff.tolist() == [0, 0.5, 0.95, 1, 1, 1]
+    assert err[1] == pytest.approx(np.sqrt(0.25 / 20))
+    assert sig.alpha_min(radii, eff, 0.95) == 30.0
+    assert sig.alpha_min(radii, eff, 0.99) == 40.0
+    # a dip above the crossing moves alpha_min up to where efficiency holds for good
+    eff2 = np.array([1, 1, 0.5, 1, 1, 1])
+    assert sig.alpha_min(radii, eff2, 0.95) == 40.0
+    assert sig.alpha_min(radii, np.array([1, 1, 1, 1, 1, 0.2]), 0.95) is None
