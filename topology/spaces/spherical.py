@@ -175,3 +175,131 @@ SPHERICAL_FAMILIES = {
     "octahedral": make_octahedral, "dodecahedral": make_dodecahedral,
 }
 SPHERICAL_KEYS = {"lens": {"p", "q"}, "prism": {"m"}, "tetrahedral": set(), "octahedral": set(), "dodecahedral": set()}
+
+
+# ---------------------------------------------------------------------------------------------
+# eigenmode counts: how many Laplacian eigenmodes of S^3 survive on S^3/Gamma
+# ---------------------------------------------------------------------------------------------
+def su2_characters(cos_theta, kmax: int) -> np.ndarray:
+    """chi_k(theta) = sin((k+1) theta) / sin(theta) for k = 0..kmax, shape (kmax+1, ...).
+
+    The character of the spin-k/2 representation of SU(2) at a unit quaternion of real part
+    cos(theta) (Weyl character formula; common practice). Computed as the Chebyshev polynomial
+    U_k(cos theta) by its three-term recurrence, exact at theta = 0 and pi.
+    """
+    c = np.asarray(cos_theta, dtype=float)
+    out = np.empty((kmax + 1,) + c.shape)
+    out[0] = 1.0
+    if kmax >= 1:
+        out[1] = 2.0 * c
+    for k in range(2, kmax + 1):
+        out[k] = 2.0 * c * out[k - 1] - out[k - 2]
+    return out
+
+
+def _check_kmax(kmax) -> int:
+    if isinstance(kmax, bool) or not isinstance(kmax, (int, np.integer)) or kmax < 0:
+        raise InputError(f"must be a whole number >= 0, got {kmax!r}", "kmax")
+    return int(kmax)
+
+
+def _rounded_counts(values: np.ndarray, what: str) -> np.ndarray:
+    counts = np.rint(values)
+    if np.max(np.abs(values - counts), initial=0.0) > 1e-6:
+        raise AssertionError(f"{what}: character average is not a whole number (group table broken?)")
+    return counts.astype(np.int64)
+
+
+def mode_counts(space: SphericalSpace, kmax: int) -> np.ndarray:
+    """Number of Gamma-invariant eigenmodes of the Laplacian on S^3/Gamma for k = 0..kmax.
+
+    The degree-k harmonics of S^3 (eigenvalue -k(k+2)) carry the SU(2) x SU(2) representation
+    V_{k/2} (x) V_{k/2}, the pair (a, b) acting by f(x) -> f(a^-1 x b^-1). Its trace there is
+    chi_k(a) chi_k(b) (the characters are real and chi_k(b^-1) = chi_k(b), so the side and
+    sense of each factor do not matter), and the dimension of the invariant subspace is the
+    group average (character orthogonality; e.g. Lehoucq, Weeks, Uzan, Gausmann & Luminet 2002,
+    CQG 19, 4683):
+
+        N_k = (1/|Gamma|) sum_{(a, b) in Gamma} chi_k(a) chi_k(b).
+    """
+    kmax = _check_kmax(kmax)
+    ca = su2_characters(space.pairs[:, 0, 0], kmax)
+    cb = su2_characters(space.pairs[:, 1, 0], kmax)
+    return _rounded_counts(np.mean(ca * cb, axis=1), space.describe())
+
+
+def mode_count(space: SphericalSpace, k: int) -> int:
+    """Number of Gamma-invariant eigenmodes at harmonic degree k (see :func:`mode_counts`)."""
+    k = _check_kmax(k)
+    return int(mode_counts(space, k)[k])
+
+
+def molien_coefficients(group_quaternions, kmax: int) -> np.ndarray:
+    """Coefficients m_0..m_kmax of the Molien series of a finite group G of unit quaternions.
+
+    G acts on C^2 through SU(2); the Molien series (Molien 1897) is
+
+        M(t) = (1/|G|) sum_{g in G} 1 / det(1 - t g) = sum_k m_k t^k,
+
+    with det(1 - t g) = 1 - 2 Re(g) t + t^2, m_k the number of independent G-invariant binary
+    forms of degree k. Each 1/(1 - 2 c t + t^2) is expanded as a power series by its
+    recurrence; for G acting by left multiplication alone, N_k = (k + 1) m_k.
+    """
+    q = np.asarray(group_quaternions, dtype=float).reshape(-1, 4)
+    kmax = _check_kmax(kmax)
+    c = q[:, 0]
+    # 1/(1 - 2 c t + t^2) = sum_k s_k t^k with s_k = 2 c s_{k-1} - s_{k-2}, s_0 = 1, s_{-1} = 0
+    s = np.zeros((kmax + 1, len(c)))
+    prev, cur = np.zeros_like(c), np.ones_like(c)
+    for k in range(kmax + 1):
+        s[k] = cur
+        prev, cur = cur, 2.0 * c * cur - prev
+    return _rounded_counts(s.mean(axis=1), "molien_coefficients")
+
+
+def _series(num: dict, den: list[int], kmax: int) -> np.ndarray:
+    """Power series of (sum_e num[e] t^e) / prod_d (1 - t^d) up to t^kmax (exact integers)."""
+    c = np.zeros(kmax + 1, dtype=np.int64)
+    for e, v in num.items():
+        if e <= kmax:
+            c[e] += v
+    for d in den:
+        for k in range(d, kmax + 1):
+            c[k] += c[k - d]
+    return c
+
+
+def klein_molien_series(family: str, kmax: int, *, m: int | None = None, n: int | None = None) -> np.ndarray:
+    """Molien coefficients m_0..m_kmax in closed form from Klein's invariants.
+
+    Klein (1884) "Vorlesungen ueber das Ikosaeder" gives the invariant rings of the finite
+    subgroups of SU(2): two algebraically independent invariants of degrees d1, d2 and a third of
+    degree d3 whose square is a polynomial in them (see also Springer 1977, "Invariant theory",
+    LNM 585, sec. 4.5), so that M(t) = (1 + t^d3) / ((1 - t^d1)(1 - t^d2)):
+
+        cyclic Z_n (diag(z, 1/z))  (1 + t^n)        / ((1 - t^2)(1 - t^n))
+        binary dihedral D*_m       (1 + t^(2m+2))   / ((1 - t^4)(1 - t^(2m)))
+        binary tetrahedral T*      (1 + t^12)       / ((1 - t^6)(1 - t^8))
+        binary octahedral O*       (1 + t^18)       / ((1 - t^8)(1 - t^12))
+        binary icosahedral I*      (1 + t^30)       / ((1 - t^12)(1 - t^20))
+
+    family: "cyclic" (needs n), "binary_dihedral" (needs m), "binary_tetrahedral",
+    "binary_octahedral", "binary_icosahedral".
+    """
+    kmax = _check_kmax(kmax)
+    if family == "cyclic":
+        if n is None or n < 1:
+            raise InputError(f"cyclic group needs an order n >= 1, got {n!r}", "n")
+        d1, d2, d3 = 2, n, n
+    elif family == "binary_dihedral":
+        if m is None or m < 1:
+            raise InputError(f"binary dihedral group needs m >= 1, got {m!r}", "m")
+        d1, d2, d3 = 4, 2 * m, 2 * m + 2
+    else:
+        table = {"binary_tetrahedral": (6, 8, 12), "binary_octahedral": (8, 12, 18),
+                 "binary_icosahedral": (12, 20, 30)}
+        if family not in table:
+            raise InputError(f"unknown group family {family!r}", "family")
+        d1, d2, d3 = table[family]
+    return _series({0: 1, d3: 1}, [d1, d2], kmax)
+
