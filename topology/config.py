@@ -64,6 +64,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "lengths": Key((list,), None, "flat families: lattice translations in the plane, then the screw translation"),
         "angles": Key((list,), None, "E1: lattice angles [alpha, beta, gamma] in degrees (default 90, 90, 90)"),
         "angle": Key(NUMBER, None, "E2, E11...: angle between the two plane translations in degrees (default 90)"),
+        "tilt": Key(NUMBER, None, "E7, E8, E13: angle in degrees between the glide axis and the mirror-plane lattice translation (default 90)"),
         "length_unit": Key((str,), "chi_rec", "unit of lengths and flat observer positions: 'chi_rec' or 'Mpc'"),
         "p": Key((int,), None, "lens space L(p, q): order p"),
         "q": Key((int,), None, "lens space L(p, q): 0 < q < p, coprime to p"),
