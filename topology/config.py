@@ -78,6 +78,29 @@ SCHEMA: dict[str, dict[str, Key]] = {
     },
     # [sky]: owned by the synthetic-sky stage (topology/skies); edit only inside this block
     "sky": {
+        "nside": Key((int,), 64, "HEALPix N_side of the output map: a power of two, 1..4096",
+                     lambda v: None if 1 <= v <= 4096 and (v & (v - 1)) == 0 else "must be a power of two in 1..4096"),
+        "lmax": Key((int,), None, "highest multipole of the sky, <= 3 nside - 1; default 2 nside", _non_negative),
+        "seed": Key((int,), 0, "random seed (>= 0); signal and noise use independent streams of it", _non_negative),
+        "method": Key((str,), "auto", "multiply connected skies: 'eigenmode', 'grid' (flat only) or 'auto' "
+                                      "(flat: eigenmode for lmax <= 64, grid above; spherical: eigenmode)",
+                      lambda v: None if v in ("eigenmode", "grid", "auto") else "must be 'eigenmode', 'grid' or 'auto'"),
+        "terms": Key((list,), ["sw"], "temperature terms, a list from 'sw', 'doppler', 'isw' (must include 'sw'); "
+                                      "isotropic skies take ['sw'] or all three",
+                     lambda v: None if v and all(t in ("sw", "doppler", "isw") for t in v) and "sw" in v
+                     and len(set(v)) == len(v) else "must be a list of distinct 'sw', 'doppler', 'isw' including 'sw'"),
+        "fwhm_deg": Key(NUMBER, 0.0, "Gaussian beam FWHM in degrees (0: no beam)", _non_negative),
+        "noise_uk": Key(NUMBER, 0.0, "white noise rms per pixel in microK (0: none)", _non_negative),
+        "kmax": Key((int,), None, "spherical skies: highest harmonic degree k of S^3 modes; "
+                                  "default ceil(2 lmax / (chi_rec / R_c))", _positive),
+        "pixwin": Key((bool,), True, "apply the HEALPix pixel window of nside"),
+        "mask": Key((str,), "none", "'none' or 'galactic' (|b| < mask_b_deg masked), written alongside the map",
+                    lambda v: None if v in ("none", "galactic") else "must be 'none' or 'galactic'"),
+        "mask_b_deg": Key(NUMBER, 20.0, "galactic mask: half-width of the masked band in degrees of latitude",
+                          lambda v: None if 0 < v < 90 else "must be in (0, 90) degrees"),
+        "apply_mask": Key((bool,), False, "set masked pixels of the map itself to UNSEEN (default: full sky)"),
+        "hits": Key((str,), None, "HEALPix FITS hit-count map: noise_uk scaled by 1/sqrt(hits/mean hits) "
+                                  "(path relative to the config)"),
     },
     # [search]: owned by the search stage (topology/search); edit only inside this block
     "search": {

@@ -43,3 +43,18 @@ class Sky:
     def kind(self) -> str:
         """``"alm"`` or ``"map"``."""
         return "alm" if self.alm is not None else "map"
+
+
+#: named random streams spawned from one seed (numpy SeedSequence.spawn children)
+STREAMS = {"signal": 0, "noise": 1}
+
+
+def stream_rng(seed, stream: str) -> np.random.Generator:
+    """The Generator of one named stream ("signal" or "noise") of ``seed``.
+
+    Each stream is a distinct child of ``SeedSequence(seed)`` (numpy's spawn), so the noise
+    never repeats or correlates with the signal of the same seed. ``seed`` is an int >= 0.
+    """
+    index = STREAMS[stream]
+    child = np.random.SeedSequence(int(seed)).spawn(index + 1)[index]
+    return np.random.default_rng(child)
