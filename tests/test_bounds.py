@@ -136,6 +136,17 @@ def test_lens_maximisation_against_brute_force(p, q):
     # and at the reported best observer, through the space's element enumeration
     obs = geo.Observer.make("spherical", bounds.lens_observer_point(t))
     assert bounds.shortest_displacement(space, obs) == pytest.approx(d, abs=1e-12)
+    # a fine grid over t plus a bounded scalar refinement (scipy) agrees with the vertex search
+    from scipy.optimize import minimize_scalar
+
+    grid = np.linspace(0.0, 1.0, 100001)
+    F = bounds.lens_displacement_cosines(p, q, grid).max(axis=1)
+    assert F.min() >= math.cos(d) - 1e-14
+    i = int(np.argmin(F))
+    ref = minimize_scalar(lambda u: bounds.lens_displacement_cosines(p, q, u).max(),
+                          bounds=(grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]), method="bounded",
+                          options={"xatol": 1e-13})
+    assert math.acos(min(1.0, ref.fun)) == pytest.approx(d, abs=1e-7)
     # a local optimiser started anywhere cannot beat it
     d_opt, _ = bounds.spherical_max_over_observers(space, n_points=2000, seed=3)
     assert d_opt <= d + 1e-9 and d_opt == pytest.approx(d, abs=1e-6)

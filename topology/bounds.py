@@ -36,7 +36,7 @@ import numpy as np
 
 from . import geometry as geo
 from .circles import cos_radius
-from .cosmology import Cosmology, omega_k_for_ratio
+from .cosmology import C_KM_S, Cosmology, omega_k_for_ratio
 from .errors import InputError
 from .spaces import Space, build_space, family_names
 from .spaces.registry import allowed_keys, geometry_of
@@ -75,8 +75,8 @@ def space_allowed(geometry: str, d_min, chi: float, alpha_min: float):
     (CSS 1998); d_min >= 2 chi (no circle) is allowed.
     """
     d = np.asarray(d_min, dtype=float)
-    with np.errstate(over="ignore", invalid="ignore"):
-        c = np.where(np.isinf(d), np.inf, cos_radius(geometry, np.where(np.isinf(d), 0.0, d), chi))
+    finite = np.isfinite(d)
+    c = np.where(finite, cos_radius(geometry, np.where(finite, d, 0.0), chi), np.inf)
     return c > math.cos(alpha_min)
 
 
@@ -499,10 +499,6 @@ def bound_summary(alpha_min_deg: float, cosmology: Cosmology | None = None, conf
     return out
 
 
-def _fmt(v, spec=".4g"):
-    return "--" if v is None else format(v, spec)
-
-
 def bounds_table(summary: dict):
     """The curved-space rows of a summary as an astropy Table with units and provenance meta.
 
@@ -520,8 +516,7 @@ def bounds_table(summary: dict):
             rows.append(dict(r, **r["params"], geometry=("spherical" if kind == "min" else "hyperbolic"),
                              family=r["family"] + " (configured)",
                              omega_k_bound=r.get("min_omega_k", r.get("max_omega_k")), bound_kind=kind))
-    hub = summary["cosmology"]
-    hubble_mpc = 299792.458 / (100.0 * hub["h"])
+    hubble_mpc = C_KM_S / (100.0 * summary["cosmology"]["h"])
 
     def col(name, key, dtype, unit=None, desc=""):
         vals = [r.get(key) for r in rows]
