@@ -129,6 +129,9 @@ def test_group_acts_freely(name):
 # ---------------------------------------------------------------------------------------------
 @pytest.mark.parametrize("name", NAMES)
 def test_products_and_inverses_stay_in_the_group(name):
+    # check: common practice: Gamma = lattice x coset representatives is a group (Wolf 1967,
+    # Bieberbach's description of a crystallographic group); products and inverses of the
+    # elements found must again be lattice translates of a coset representative.
     space = space_of(name)
     obs = next(observers(5, 1, box=0.4))
     mats = space.elements_within(obs, 3.0).matrices[:30]
@@ -146,6 +149,7 @@ def test_products_and_inverses_stay_in_the_group(name):
 
 @pytest.mark.parametrize("name", NAMES)
 def test_element_search_is_complete(name):
+    # check: brute force over lattice indices (independent of the dual-basis index box)
     space = space_of(name)
     for obs in observers(23, 3):
         x = obs.point[:3]
@@ -188,6 +192,8 @@ def expected_volume(name, p):
 
 @pytest.mark.parametrize("name", NAMES)
 def test_volume_and_point_group_order(name):
+    # check: Wolf 1967: point groups of order 1, 2, 4, 3, 6, 4 (E1-E6), 2, 2, 4, 4 (B1-B4);
+    # volume = covering-cell volume / point-group order, the cell written out by hand below.
     space = space_of(name)
     assert len(space.cosets) == POINT_GROUP_ORDER[name]
     assert space.compact == (int(name[1:]) <= 10)
