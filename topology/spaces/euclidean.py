@@ -12,20 +12,23 @@ Parameters (all lengths in units of chi_rec unless the config says ``length_unit
   between a and c, gamma between a and b); for every other family the lattice translations in
   the plane (none for the slab with flip E17, one for the chimneys E12-E15), then the
   translation of the screw or glide motion itself (not the period of the covering lattice,
-  which is 2, 3, 4 or 6 times it). The screw or glide axis is always the z axis.
+  which is 2, 3, 4 or 6 times it). The screw or glide axis is the z axis (E6: screws along
+  x, y and z); glide mirrors contain it. The open directions of the non-compact families:
+  E11 z; E12, E14, E15 y; E13 x; E16, E17 x and y.
 * ``angle`` (E2, E8, E11): angle in degrees between the two plane translations.
 * ``tilt`` (E7, E8, E13): angle in degrees between the glide axis z and the lattice
   translation(s) lying in (E7, E13) or bisected by (E8) the mirror plane; 90 (default) puts
   the plane lattice perpendicular to the glide axis.
 
-Family definitions follow Wolf (1967) "Spaces of constant curvature" (Theorems 3.5.5 and
-3.5.9: the compact ones G1-G6, B1-B4) and the naming E1-E18 of the COMPACT collaboration
-(Petersen et al. 2023 "Cosmic topology. Part I", Table 1; Eskilt et al. 2024 "Part IIa";
-"Part IIb" 2025 for the non-orientable ones), which took the names of Riazuelo et al. 2004
-(Phys. Rev. D 69, 103518). The correspondence used here, written from memory of the COMPACT
-Part I table (the stored copies reachable from this project show only the abstracts, so the
-generator matrices below are this module's own, derived from the classification; they agree
-with Wolf's groups up to a change of coordinates):
+Family definitions follow Wolf (1967) "Spaces of constant curvature" (the compact groups
+G1-G6 and B1-B4) and the naming E1-E18 of the COMPACT collaboration (Petersen et al. 2023,
+"Cosmic topology. Part I", arXiv:2211.02603; Eskilt et al. 2024, "Part IIa",
+arXiv:2306.17112; "Part IIb", arXiv:2510.05030, for the non-orientable ones), who took the
+names of Riazuelo et al. 2004 (Phys. Rev. D 69, 103518). The stored copies of these papers
+reachable from this project show only their abstracts, so the correspondence below, E7-E10 =
+B1-B4 in Wolf's order (the table of manifolds in COMPACT Part I), is written from memory, and
+the generator matrices are this module's own, derived from the classification of
+Bieberbach groups (they agree with Wolf's groups up to a change of coordinates):
 
   E1 G1 torocosm         E2 G2 dicosm          E3 G4 tetracosm       E4 G3 tricosm
   E5 G5 hexacosm         E6 G6 didicosm (Hantzsche-Wendt)
