@@ -1,10 +1,172 @@
 """Synthetic skies: isotropic (simply connected) and multiply connected (flat, spherical).
 
 Generators return a :class:`~topology.skies.base.Sky` (noiseless, unbeamed, microK); the
-instrument stage (:mod:`topology.skies.instrument`) observes it. The dispatcher over configs
-(``sky_from_config``, ``synthesize``) lives here.
+instrument stage (:mod:`topology.skies.instrument`) observes it. This module is the dispatcher
+over configs:
+
+* :func:`sky_params` - the validated ``[sky]`` section with every default filled in;
+* :func:`sky_from_config` - the Sky of a config and its Scenario (None for isotropic skies);
+* :func:`synthesize` - the observed map, its mask, the Sky, the predicted pairs and the FITS
+  header cards (:class:`SynthResult`).
+
+``[space] family = "isotropic"`` gives an isotropic sky and takes no other ``[space]`` key.
+Method "auto": flat spaces use the eigenmode sum for lmax <= AUTO_EIGENMODE_LMAX and the grid
+above it; spherical spaces always use the eigenmode sum ("grid" is an error there).
 """
 
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
 from .base import TERMS, Sky
 
-__all__ = ["Sky", "TERMS"]
+__all__ = ["Sky", "TERMS", "SynthResult", "sky_params", "sky_from_config", "synthesize",
+           "AUTO_EIGENMODE_LMAX", "default_kmax"]
+
+#: flat "auto" method: eigenmode sum up to this lmax, grid above
+AUTO_EIGENMODE_LMAX = 64
+#: the family name of the simply connected (isotropic) sky
+ISOTROPIC = "isotropic"
+
+
+@dataclass
+class SynthResult:
+    """What :func:`synthesize` makes: ``map`` (RING, microK, float64), ``mask`` (RING 0/1 or
+    None), the noiseless ``sky``, the predicted circle ``pairs`` and FITS ``header`` cards
+    (list of (key, value, comment))."""
+
+    map: np.ndarray
+    mask: np.ndarray | None
+    sky: Sky
+    pairs: list
+    header: list = field(default_factory=list)
+    scenario: object = None
+    params: dict = field(default_factory=dict)
+
+
+def _sky_get(cfg, key):
+    return cfg.get("sky", key)
+
+
+def sky_params(cfg) -> dict:
+    """The ``[sky]`` keys with defaults filled in and cross-checked (lmax <= 3 nside - 1)."""
+    from .instrument import check_lmax, check_nside
+
+    p = {key: _sky_get(cfg, key) for key in ("nside", "lmax", "seed", "method", "terms", "fwhm_deg",
+                                             "noise_uk", "kmax", "pixwin", "mask", "mask_b_deg",
+                                             "apply_mask", "hits")}
+    p["nside"] = check_nside(p["nside"])
+    if p["lmax"] is None:
+        p["lmax"] = min(2 * p["nside"], 3 * p["nside"] - 1)
+    p["lmax"] = check_lmax(p["lmax"], p["nside"])
+    p["terms"] = tuple(t for t in TERMS if t in set(p["terms"]))
+    p["fwhm_deg"] = float(p["fwhm_deg"])
+    p["noise_uk"] = float(p["noise_uk"])
+    return p
+
+
+def default_kmax(lmax: int, chi: float) -> int:
+    """Spherical default: k_max = ceil(2 lmax / chi), chi = chi_rec / R_c.
+
+    A degree-k mode projects onto multipoles l <~ k chi on the last-scattering sphere, and the
+    SW power at l collects from k chi >~ l with a tail falling as 1 / (k chi)^2 (the fraction
+    beyond K is about l^2 / (2 (K chi)^2), from j_l(x)^2 ~ 1 / (2 x^2); common practice), so
+    2 lmax / chi leaves about 1/8 of the power at l = lmax and much less below.
+    """
+    return max(1, int(math.ceil(2.0 * lmax / chi)))
+
+
+def _isotropic_space_check(cfg) -> None:
+    extra = sorted(k for k in cfg.section("space") if k != "family")
+    if extra:
+        raise InputError(f"the isotropic sky takes no [space] parameters, got {', '.join(extra)}",
+                         f"[space] {extra[0]}")
+
+
+def read_hits(cfg, nside: int):
+    """The hit-count map named by ``[sky] hits`` (relative to the config), or None."""
+    name = _sky_get(cfg, "hits")
+    if name is None:
+        return None
+    import healpy as hp
+
+    path = Path(name)
+    if not path.is_absolute():
+        path = cfg.base_dir / path
+    if not path.is_file():
+        raise InputError(f"hit-count file not found: {path}", "[sky] hits")
+    try:
+        h = hp.read_map(str(path), field=0, dtype=np.float64)
+    except Exception as e:  # noqa: BLE001 - any reader failure is a bad file
+        raise InputError(f"cannot read hit-count map {path} ({type(e).__name__}: {e})", "[sky] hits") from None
+    return h
+
+
+def sky_from_config(cfg, params: dict | None = None):
+    """(Sky, Scenario or None) for a config: the noiseless, unbeamed sky of ``[space]``."""
+    from ..scenario import cosmology_from_config, scenario_from_config
+
+    p = sky_params(cfg) if params is None else params
+    family = cfg.get("space", "family")
+    if family is None:
+        raise InputError("missing: give a family of space or \"isotropic\"", "[space] family")
+    if family == ISOTROPIC:
+        _isotropic_space_check(cfg)
+        from .isotropic import isotropic_sky
+
+        return isotropic_sky(cosmology_from_config(cfg), lmax=p["lmax"], terms=p["terms"], seed=p["seed"]), None
+    sc = scenario_from_config(cfg)   # unknown family, invalid parameters -> InputError here
+    geometry = sc.space.geometry
+    if geometry == "flat":
+        method = p["method"]
+        if method == "auto":
+            method = "eigenmode" if p["lmax"] <= AUTO_EIGENMODE_LMAX else "grid"
+        from .flat import flat_sky
+
+        sky = flat_sky(sc.space, sc.observer, sc.cosmology, lmax=p["lmax"], nside=p["nside"], method=method,
+                       terms=p["terms"], seed=p["seed"])
+    elif geometry == "spherical":
+        if p["method"] == "grid":
+            raise InputError("spherical skies are built from eigenmodes only: use 'eigenmode' or 'auto'",
+                             "[sky] method")
+        kmax = p["kmax"] if p["kmax"] is not None else default_kmax(p["lmax"], sc.chi)
+        from .spherical import spherical_sky
+
+        sky = spherical_sky(sc.space, sc.observer, sc.cosmology, lmax=p["lmax"], nside=p["nside"], kmax=kmax,
+                            terms=p["terms"], seed=p["seed"])
+        sky.meta.setdefault("kmax", kmax)
+    else:
+        raise InputError(f"synthetic skies are not available for {geometry} spaces (family {family})",
+                         "[space] family")
+    sky.meta.setdefault("family", sc.space.family)
+    sky.meta.setdefault("params", dict(sc.space.params))
+    sky.meta.setdefault("seed", p["seed"])
+    return sky, sc
+
+
+def synthesize(cfg, *, hits=None) -> SynthResult:
+    """The observed sky of a config (see :class:`SynthResult`).
+
+    All ``[sky]`` keys and the hit-count file are checked before any sky is generated.
+    ``hits`` (an array) overrides ``[sky] hits``.
+    """
+    from ..circles import predict_circles
+    from .instrument import galactic_mask, observe
+    from .io import header_cards
+
+    p = sky_params(cfg)
+    if hits is None:
+        hits = read_hits(cfg, p["nside"])
+    mask = galactic_mask(p["nside"], float(p["mask_b_deg"])) if p["mask"] == "galactic" else None
+    sky, sc = sky_from_config(cfg, p)
+    m = observe(sky, nside=p["nside"], lmax=p["lmax"], fwhm_deg=p["fwhm_deg"], noise_uk=p["noise_uk"], hits=hits,
+                pixwin=bool(p["pixwin"]), seed=p["seed"], mask=mask if p["apply_mask"] else None)
+    pairs = predict_circles(sc.space, sc.observer, sc.chi) if sc is not None else []
+    res = SynthResult(map=m, mask=mask, sky=sky, pairs=pairs, scenario=sc, params=p)
+    res.header = header_cards(cfg, res)
+    return res

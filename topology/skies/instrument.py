@@ -66,14 +66,17 @@ def _pixel_window_sq(nside: int, lmax: int, sub: int, ring: np.ndarray) -> np.nd
     nodes = int(math.ceil(lmax * tmax / 0.005)) + 2  # l dtheta <= 0.005 on the interpolation nodes
     dt = tmax / (nodes - 1)
     w = np.zeros(nodes)
-    block = max(1, 2**22 // (s2 * s2))
+    iu, ju = np.triu_indices(s2, k=1)            # pairs i < j count twice, i = j gives P_l(1) = 1
+    block = max(1, 2**21 // len(iu))
     for b in range(0, len(nest), block):
         kids = nest[b:b + block, None] * s2 + np.arange(s2)[None, :]
         v = np.array(hp.pix2vec(nside * sub, kids.ravel(), nest=True)).T.reshape(len(kids), s2, 3)
-        u = np.arccos(np.clip(np.einsum("pik,pjk->pij", v, v).ravel(), -1.0, 1.0)) / dt
+        dots = np.einsum("pik,pik->pi", v[:, iu], v[:, ju]).ravel()
+        u = np.arccos(np.clip(dots, -1.0, 1.0)) / dt
         i0 = np.minimum(np.floor(u).astype(np.int64), nodes - 2)
         f = u - i0
-        w += np.bincount(i0, 1.0 - f, nodes) + np.bincount(i0 + 1, f, nodes)  # linear weights
+        w += 2.0 * (np.bincount(i0, 1.0 - f, nodes) + np.bincount(i0 + 1, f, nodes))  # linear weights
+    w[0] += len(nest) * s2
     return _legendre_table(np.cos(np.arange(nodes) * dt), lmax) @ w / (len(nest) * s2 * s2)
 
 
