@@ -3,13 +3,34 @@
 Gamma is given by generator matrices acting on the hyperboloid model (t, x, y, z), read from
 a JSON or TOML file::
 
-    {"name": "...", "source": "...", "generators": [[[...4 numbers...], ...4 rows...], ...]}
+    {"name": "...", "source": "...", "generators": [[[...4 numbers...], ...4 rows...], ...],
+     "fundamental_polyhedron": {"center": [1, 0, 0, 0], "circumradius": 1.9, "inradius": 0.99}}   (optional)
 
 Generators are validated (finite, g^T J g = J with J = diag(-1, 1, 1, 1), det g = +1 and
 g_00 >= 1). Elements that move the observer by less than a radius are found by enumerating
-words in the generators and their inverses breadth first, keeping words whose displacement stays
-below the radius plus twice the largest generator displacement (a margin that the triangle
-inequality makes sufficient for every element reachable through shorter ones; common practice).
+words in the generators and their inverses breadth first, keeping words g whose displacement
+d(c, g c) of a centre c stays below a limit:
+
+* when the file names a fundamental polyhedron P (centre c, every point of P within
+  ``circumradius`` R_P of c, optionally the ball B(c, ``inradius``) inside P) whose face
+  pairings are the generators, the translates g P tile H^3 and the tiles meeting a ball form a
+  face-connected set. Every g with d(x, g x) < r has d(c, g c) < r + 2 d(c, x), and the tiles
+  meeting B(c, L) have d(c, g c) <= L + R_P, so the limit r + 2 d(c, x) + R_P makes the list
+  complete; when x lies in B(c, inradius), g x lies in the tile g P, which meets B(x, r), and
+  the limit r + d(c, x) + R_P suffices (Poincare's polyhedron theorem; e.g. Ratcliffe,
+  "Foundations of hyperbolic manifolds", sec. 11.2; common practice);
+* otherwise c is the observer and the limit is r plus twice the largest generator
+  displacement (a heuristic margin, common practice; complete for Dirichlet-domain generators
+  whose domain lies within that margin of the observer).
+
+A group with a fixed point is not a manifold: an enumerated element g != 1 that moves the
+observer by less than 1e-6 R_c, or that is elliptic or parabolic (translation length below
+1e-5, from the trace condition below), raises InputError naming the generator file.
+
+Translation length of g in SO+(3,1): its eigenvalues are e^{+-l}, e^{+-i theta}, so
+u = lambda + 1/lambda solves u^2 - c1 u + (c2 - 2) = 0 with c1 = tr g, c2 = (tr(g)^2 -
+tr(g^2)) / 2, and l = arccosh(u_max / 2) (common practice). l = 0 marks elliptic (fixed point
+in H^3) and parabolic elements.
 """
 
 from __future__ import annotations
@@ -65,49 +86,157 @@ def read_generators(path: str | Path) -> tuple[list[np.ndarray], dict]:
         raise InputError("'generators' must be a non-empty list of 4x4 matrices", where)
     mats = [validate_lorentz(g, f"{where} generator {i}") for i, g in enumerate(gens)]
     meta = {k: v for k, v in data.items() if k != "generators"}
+    if "fundamental_polyhedron" in meta:
+        meta["fundamental_polyhedron"] = _validate_polyhedron(meta["fundamental_polyhedron"], where)
     return mats, meta
+
+
+def _validate_polyhedron(poly, where: str) -> dict:
+    """'fundamental_polyhedron': {'center': point of the hyperboloid, 'circumradius': R_P > 0}."""
+    w = f"{where} fundamental_polyhedron"
+    if not isinstance(poly, dict) or set(poly) - {"center", "circumradius", "inradius"} or "circumradius" not in poly:
+        raise InputError("must be a table with 'circumradius' (R_c) and optional 'inradius' (R_c) and "
+                         "'center' [t, x, y, z]", w)
+    try:
+        c = np.asarray(poly.get("center", [1.0, 0.0, 0.0, 0.0]), dtype=float)
+        r = float(poly["circumradius"])
+        r_in = float(poly.get("inradius", 0.0))
+    except (TypeError, ValueError):
+        raise InputError("'center' must be 4 numbers, 'circumradius' and 'inradius' numbers", w) from None
+    if not (np.isfinite(r_in) and 0.0 <= r_in <= r):
+        raise InputError(f"'inradius' must be a number between 0 and the circumradius, got {poly.get('inradius')!r}", w)
+    if c.shape != (4,) or not np.all(np.isfinite(c)) or c[0] <= 0 or abs(-c[0] ** 2 + c[1:] @ c[1:] + 1.0) > 1e-8 * c[0] ** 2:
+        raise InputError("'center' must be a point [t, x, y, z] of the upper hyperboloid", w)
+    if not (np.isfinite(r) and r > 0):
+        raise InputError(f"'circumradius' must be a positive number, got {poly['circumradius']!r}", w)
+    return {"center": c.tolist(), "circumradius": r, "inradius": r_in}
+
+
+MIN_DISPLACEMENT = 1e-6
+MIN_TRANSLATION = 1e-5
+
+
+def inverse(g: np.ndarray) -> np.ndarray:
+    """Inverse of Lorentz matrices (..., 4, 4): J g^T J."""
+    J = geo.MINKOWSKI
+    return J @ np.swapaxes(g, -1, -2) @ J
+
+
+def translation_length(g: np.ndarray) -> np.ndarray:
+    """Translation length l of SO+(3,1) matrices (..., 4, 4) from the trace condition.
+
+    u = 2 cosh(l) is the larger root of u^2 - c1 u + (c2 - 2) = 0, c1 = tr g,
+    c2 = (tr(g)^2 - tr(g^2)) / 2 (see the module docstring).
+    """
+    g = np.asarray(g, dtype=float)
+    c1 = np.trace(g, axis1=-2, axis2=-1)
+    c2 = 0.5 * (c1**2 - np.trace(g @ g, axis1=-2, axis2=-1))
+    disc = np.maximum(c1**2 - 4.0 * (c2 - 2.0), 0.0)
+    u = 0.5 * (c1 + np.sqrt(disc))
+    return np.arccosh(np.maximum(u / 2.0, 1.0))
+
+
+def enumerate_words(generators: list[np.ndarray], center: np.ndarray, limit: float,
+                    where: str = "[space] generators", check=None) -> np.ndarray:
+    """All words g in the generators and inverses with d(c, g c) <= limit, reached breadth first
+    through words that stay within the limit (identity included; (n, 4, 4)).
+
+    check: optional function called on each new batch of elements (it may raise), so that a
+    group with a fixed point is reported before its non-discrete orbit floods the search.
+    """
+    gens = []
+    for g in generators:
+        gens += [np.asarray(g, dtype=float), inverse(np.asarray(g, dtype=float))]
+    gens = np.array(gens)
+    c = np.asarray(center, dtype=float)
+    ident = np.eye(4)
+    seen = {_key(ident): ident}
+    frontier = ident[None]
+    while len(frontier):
+        stack = np.einsum("aij,bjk->abik", frontier, gens).reshape(-1, 4, 4)
+        d = geo.distance("hyperbolic", c[None], stack @ c)
+        stack = stack[d <= limit]
+        new = []
+        for m, k in zip(stack, _keys(stack)):
+            if k not in seen:
+                seen[k] = m
+                new.append(m)
+        if len(seen) > MAX_WORDS:
+            raise InputError(f"more than {MAX_WORDS} group elements within {limit:.3g} R_c; "
+                             "lower the search radius", where)
+        frontier = np.array(new).reshape(-1, 4, 4)
+        if check is not None and len(frontier):
+            check(frontier)
+    return np.array(list(seen.values()))
 
 
 class HyperbolicSpace(Space):
     geometry = "hyperbolic"
 
-    def __init__(self, generators: list[np.ndarray], params: dict, meta: dict | None = None):
+    def __init__(self, generators: list[np.ndarray], params: dict, meta: dict | None = None,
+                 source: str = "[space] generators"):
         super().__init__()
         self.family = "hyperbolic"
         self.generators = [np.asarray(g, dtype=float) for g in generators]
         self.params = params
         self.meta = meta or {}
+        self.source = source
         self.volume = float(self.meta.get("volume", float("nan")))
+        poly = self.meta.get("fundamental_polyhedron")
+        self.center = np.asarray(poly["center"], dtype=float) if poly else None
+        self.circumradius = float(poly["circumradius"]) if poly else None
+        self.inradius = float(poly.get("inradius", 0.0)) if poly else None
 
-    def elements_within(self, observer: geo.Observer, radius: float) -> Holonomies:
+    def default_margin(self, observer: geo.Observer) -> float:
+        """Limit minus radius of the word search (see the module docstring)."""
         x = observer.point
-        gens = []
-        for g in self.generators:
-            gens += [g, geo.MINKOWSKI @ g.T @ geo.MINKOWSKI]  # inverse of a Lorentz matrix
-        gdisp = max(float(geo.distance("hyperbolic", x, g @ x)) for g in gens)
-        limit = radius + 2.0 * gdisp
-        seen = {}
-        frontier = [np.eye(4)]
-        seen[_key(np.eye(4))] = np.eye(4)
-        while frontier:
-            new = []
-            stack = np.einsum("aij,bjk->abik", np.array(frontier), np.array(gens)).reshape(-1, 4, 4)
-            d = geo.distance("hyperbolic", x[None], stack @ x)
-            for m, dd in zip(stack[d < limit], d[d < limit]):
-                k = _key(m)
-                if k not in seen:
-                    seen[k] = m
-                    new.append(m)
-            if len(seen) > MAX_WORDS:
-                raise InputError(f"more than {MAX_WORDS} group elements within {limit:.3g} R_c; "
-                                 "lower the search radius", "[space] generators")
-            frontier = new
-        return sort_holonomies("hyperbolic", observer, np.array(list(seen.values())), radius)
+        if self.center is not None:
+            dc = float(geo.distance("hyperbolic", self.center, x))
+            return (1.0 if dc <= self.inradius else 2.0) * dc + self.circumradius
+        return 2.0 * max(float(geo.distance("hyperbolic", x, g @ x))
+                         for g in self.generators + [inverse(g) for g in self.generators])
+
+    def elements_within(self, observer: geo.Observer, radius: float, *, margin: float | None = None) -> Holonomies:
+        """Group elements g != 1 with d(x, g x) < radius (R_c), sorted by displacement.
+
+        margin: extra search depth beyond the radius (default :meth:`default_margin`); a larger
+        margin must give the same list (completeness check).
+        """
+        x = observer.point
+        center = self.center if self.center is not None else x
+        if margin is None:
+            margin = self.default_margin(observer)
+        mats = enumerate_words(self.generators, center, radius + margin, self.source,
+                               check=lambda m: self._check_free(m, x))
+        return sort_holonomies("hyperbolic", observer, mats, radius)
+
+    def _check_free(self, mats: np.ndarray, x: np.ndarray) -> None:
+        scale = np.abs(mats).reshape(len(mats), -1).max(axis=1)
+        nontrivial = np.abs(mats - np.eye(4)).reshape(len(mats), -1).max(axis=1) > 1e-9 * scale
+        m = mats[nontrivial]
+        if not len(m):
+            return
+        d = geo.distance("hyperbolic", x[None], m @ x)
+        if d.min() < MIN_DISPLACEMENT:
+            raise InputError(f"a group element g != 1 moves the observer by only {d.min():.2e} R_c: "
+                             "the group has a fixed point near the observer (not a manifold)", self.source)
+        ell = translation_length(m)
+        if ell.min() < MIN_TRANSLATION:
+            i = int(np.argmin(ell))
+            raise InputError(f"a group element is elliptic or parabolic (translation length {ell[i]:.1e}, "
+                             f"moves the observer by {d[i]:.3g} R_c): the group has a fixed point, "
+                             "not a manifold", self.source)
 
 
-def _key(m: np.ndarray) -> tuple:
-    scale = max(1.0, float(np.abs(m).max()))
-    return tuple(np.round(m / scale, 6).ravel())
+def _keys(mats: np.ndarray) -> list[bytes]:
+    """Hashable keys of matrices (n, 4, 4), rounded relative to their largest entry."""
+    scale = np.maximum(1.0, np.abs(mats).reshape(len(mats), -1).max(axis=1))
+    q = np.rint(mats.reshape(len(mats), -1) / scale[:, None] * 1e4).astype(np.int64)
+    return [row.tobytes() for row in q]
+
+
+def _key(m: np.ndarray) -> bytes:
+    return _keys(np.asarray(m, dtype=float)[None])[0]
 
 
 def make_hyperbolic(params, base_dir: Path | None = None):
@@ -122,7 +251,7 @@ def make_hyperbolic(params, base_dir: Path | None = None):
         if shipped.is_file():
             path = Path(str(shipped))
     gens, meta = read_generators(path)
-    return HyperbolicSpace(gens, {"generators": str(params["generators"])}, meta)
+    return HyperbolicSpace(gens, {"generators": str(params["generators"])}, meta, source=str(path))
 
 
 HYPERBOLIC_KEYS = {"generators"}
