@@ -1,0 +1,435 @@
+"""Skies of flat multiply connected spaces E^3 / Gamma (compact families E1-E10).
+
+The field. Let Lambda (rows of ``space.lattice``, units of chi_rec) be the translation lattice
+and g = (R_g, t_g) the coset representatives of Gamma / Lambda (``space.cosets``). A field on
+the covering torus E^3 / Lambda is f(x) = sum_k c~_k e^{i k.x}, k = 2 pi n D (n integer,
+D = Lambda^-T the dual basis). Since f(R x + t) = sum_k c~_k e^{i k.t} e^{i (R^T k).x}, the
+average over the point group (a projection onto the Gamma-invariant fields; common practice)
+
+    c_q = N^-1/2 sum_g c~_{R_g q} exp(i (R_g q).t_g),      N = number of cosets,
+
+is exactly invariant under every g (the phases are the twisted holonomies' phase relations:
+a wave vector fixed by some R_g with exp(i q.t_g) != 1 cancels, e.g. the odd axial modes of
+E2). The c~_k are independent complex Gaussians of the covering torus with
+<|c~_k|^2> = P(k) / V, P(k) = 2 pi^2 P_R(k) / k^3, V the torus volume (the box normalisation
+of a continuous spectrum; common practice); the factor N^1/2 keeps <|c_q|^2> = P(k)/V for
+free orbits (|H| P(k)/V for a q with stabiliser H), so the local variance equals the
+isotropic one and a torus much larger than chi_rec reproduces the isotropic spectrum. The
+field is real: c~_{-k} = conj(c~_k) (so c_{-q} = conj(c_q)) and c~_0 = 0.
+
+Amplitudes. The unit normals z_n (c~ = sigma(k) z) are drawn in blocks of 16^3 lattice
+indices, block (b1, b2, b3) from SeedSequence(seed, spawn_key=(0, b1+O, b2+O, b3+O)) (stream
+0 = "signal" of :func:`topology.skies.base.stream_rng`), only for n3 >= 0 and mirrored by
+Hermitian symmetry. Each z_n therefore depends on (seed, n) alone: both methods and every
+cut-off see the same amplitude for the same mode.
+
+Modes kept: 0 < k chi_rec <= kchi_max (default ``lmax``; a spherical cut is invariant under
+the point group). The SW C_l of the kept modes is complete to about l^2 / (2 kchi_max^2)
+for l << kchi_max (the tail of int dx/x j_l(x)^2 beyond x = kchi_max; common practice), so
+the top multipoles of a sky with kchi_max = lmax lack power; raise ``kchi_max`` for a
+complete spectrum at high l.
+
+Temperature terms (both methods): "sw" only, Delta T / T = -R / 5 at x_obs + chi_rec n (the
+Sachs-Wolfe term of a matter-dominated universe, Phi = -3 R / 5; Sachs & Wolfe 1967, common
+practice), T = T_cmb of the cosmology, in microK. "doppler" and "isw" are not implemented
+for flat multiply connected skies and raise InputError.
+
+Methods:
+
+* ``eigenmode``: exact a_lm (l <= lmax) from e^{i k.x} = 4 pi sum_lm i^l j_l(k r)
+  Y*_lm(k^) Y_lm(x^) (Rayleigh's plane-wave expansion), with Y_lm(k^) from the stable
+  three-term recursion of the normalised associated Legendre functions (common practice),
+  modes in blocks so memory stays bounded. Returns an alm-type Sky.
+* ``grid``: the same c_q placed on a 3-D FFT grid of the covering torus in lattice
+  coordinates, divided by the Fourier transform of the cubic B-spline (sinc^4 per axis),
+  inverse FFT (scipy.fft, float32) and sampled at the HEALPix pixel centres by cubic B-spline
+  interpolation of those coefficients (scipy.ndimage.map_coordinates, periodic). This is the
+  B-spline non-uniform FFT of Beylkin (1995, Appl. Comput. Harmon. Anal. 2, 363): in-band
+  response exact, aliasing per axis ~ (w / (2 pi - w))^4 at w = pi / oversample, sent to
+  k > (2 oversample - 1) kchi_max. Grid size per axis: N_d = next_fast_len(2 oversample
+  n_max_d + 2), n_max_d = kchi_max |a_d| / (2 pi) the largest index of the ball, i.e. the
+  shortest wavelength 2 pi chi_rec / kchi_max is sampled by 2 oversample cells (default
+  oversample 1.5: 3 cells). Returns a map-type Sky at ``nside``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import scipy.fft
+from scipy import ndimage
+from scipy.special import spherical_jn
+
+from ..errors import InputError
+from .base import STREAMS, TERMS, Sky
+from .spectra import primordial_power
+
+BLOCK = 16                 # side of a block of lattice indices drawn from one SeedSequence
+_OFFSET = 1 << 20          # shifts block indices to non-negative spawn keys
+COMPACT_FAMILIES = ("E1", "E2", "E3", "E4", "E5", "E6", "E7", "E8", "E9", "E10")
+MAX_EIGEN_WORK = 4.0e9     # eigenmode guard: (modes in the half ball) x (a_lm with m >= 0)
+MAX_GRID_CELLS = 2.0e9     # grid guard: cells of the FFT grid
+MODE_BLOCK = 4096          # modes per block of the eigenmode sum
+METHODS = ("eigenmode", "grid", "auto")
+AUTO_LMAX = 64             # method "auto": eigenmode up to this lmax, grid above
+
+
+# ---------------------------------------------------------------------------------------------
+# the space: lattice, dual basis, point group on lattice indices
+# ---------------------------------------------------------------------------------------------
+def check_space(space) -> None:
+    """InputError unless ``space`` is a compact flat space this generator supports."""
+    if getattr(space, "geometry", None) != "flat":
+        raise InputError(f"flat skies need a flat space, got {getattr(space, 'geometry', None)!r}", "[space] family")
+    if not getattr(space, "compact", False) or space.family not in COMPACT_FAMILIES:
+        raise InputError(f"flat multiply connected skies support the compact families E1-E10, not {space.family} "
+                         "(a non-compact family has a continuous spectrum along its open directions; "
+                         "approximate it by a compact family with a long period)", "[space] family")
+
+
+def point_group(space) -> list[tuple[np.ndarray, np.ndarray]]:
+    """(Q_g, u_g) per coset: R_g k = 2 pi (n Q_g) D for k = 2 pi n D, u_g = D t_g (lattice coords).
+
+    Q_g = D R_g^T D^-1 must be an integer matrix (R_g preserves the lattice).
+    """
+    A = space.lattice
+    D = np.linalg.inv(A).T
+    out = []
+    for R, t in space.cosets:
+        Q = D @ R.T @ np.linalg.inv(D)
+        Qi = np.rint(Q)
+        if np.abs(Q - Qi).max() > 1e-8:
+            raise InputError(f"{space.family}: a coset rotation does not preserve the lattice", "[space] lengths")
+        out.append((Qi.astype(np.int64), D @ t))
+    return out
+
+
+def index_bounds(lattice: np.ndarray, kchi_max: float) -> np.ndarray:
+    """Largest |n_d| of k = 2 pi n D with |k| <= kchi_max: n_d = k.a_d / 2 pi."""
+    return np.floor(kchi_max * np.linalg.norm(lattice, axis=1) / (2.0 * np.pi) + 1e-9).astype(np.int64)
+
+
+def _k_squared(D: np.ndarray, n1, n2, n3):
+    """|2 pi n D|^2 by broadcasting the three index arrays (float64)."""
+    G = 4.0 * np.pi**2 * (D @ D.T)
+    return (G[0, 0] * n1 * n1 + G[1, 1] * n2 * n2 + G[2, 2] * n3 * n3
+            + 2.0 * (G[0, 1] * n1 * n2 + G[0, 2] * n1 * n3 + G[1, 2] * n2 * n3))
+
+
+# ---------------------------------------------------------------------------------------------
+# amplitudes
+# ---------------------------------------------------------------------------------------------
+def _block_normals(seed: int, block: tuple[int, int, int]) -> np.ndarray:
+    """(BLOCK, BLOCK, BLOCK) complex64 unit normals (<|z|^2> = 1) of one block of indices."""
+    ss = np.random.SeedSequence(int(seed), spawn_key=(STREAMS["signal"],) + tuple(int(b) + _OFFSET for b in block))
+    g = np.random.Generator(np.random.PCG64(ss)).standard_normal((2, BLOCK, BLOCK, BLOCK), dtype=np.float32)
+    return (g[0] + 1j * g[1]) * np.float32(math.sqrt(0.5))
+
+
+def unit_normals_half(seed: int, m: np.ndarray) -> np.ndarray:
+    """z_n for n1 in [-m1, m1], n2 in [-m2, m2], n3 in [0, m3] (complex64, shape (2m1+1, 2m2+1, m3+1)).
+
+    Hermitian on the n3 = 0 plane (z_{-n} = conj z_n, z_0 = 0), so the full Hermitian field
+    follows by z_{-n} = conj(z_n).
+    """
+    m = np.asarray(m, dtype=np.int64)
+    lo = np.array([-m[0], -m[1], 0])
+    hi = np.array([m[0], m[1], m[2]])
+    out = np.empty((hi - lo + 1), dtype=np.complex64)
+    blo = lo // BLOCK
+    bhi = hi // BLOCK
+    for b1 in range(blo[0], bhi[0] + 1):
+        for b2 in range(blo[1], bhi[1] + 1):
+            for b3 in range(blo[2], bhi[2] + 1):
+                b = np.array([b1, b2, b3])
+                s = np.maximum(b * BLOCK, lo)
+                e = np.minimum(b * BLOCK + BLOCK - 1, hi)
+                z = _block_normals(seed, (b1, b2, b3))
+                out[s[0] - lo[0]:e[0] - lo[0] + 1, s[1] - lo[1]:e[1] - lo[1] + 1, s[2]:e[2] + 1] = \
+                    z[s[0] - b1 * BLOCK:e[0] - b1 * BLOCK + 1, s[1] - b2 * BLOCK:e[1] - b2 * BLOCK + 1,
+                      s[2] - b3 * BLOCK:e[2] - b3 * BLOCK + 1]
+    # n3 = 0 plane: keep n2 > 0 (and n2 = 0, n1 > 0), mirror the rest
+    plane = out[:, :, 0]
+    mirrored = np.conj(plane[::-1, ::-1])
+    i1 = np.arange(-m[0], m[0] + 1)[:, None]
+    i2 = np.arange(-m[1], m[1] + 1)[None, :]
+    keep = (i2 > 0) | ((i2 == 0) & (i1 > 0))
+    out[:, :, 0] = np.where(keep, plane, mirrored)
+    out[m[0], m[1], 0] = 0.0
+    return out
+
+
+def unit_normals_full(seed: int, m: np.ndarray) -> np.ndarray:
+    """The Hermitian z_n over the whole box [-m, m]^3 (complex64), index n + m."""
+    half = unit_normals_half(seed, m)
+    full = np.empty((2 * m[0] + 1, 2 * m[1] + 1, 2 * m[2] + 1), dtype=np.complex64)
+    full[:, :, m[2]:] = half
+    full[:, :, :m[2]] = np.conj(half[::-1, ::-1, :0:-1])
+    return full
+
+
+def mode_sigma(k_chi: np.ndarray, cosmology, volume_chi3: float) -> np.ndarray:
+    """rms of the SW temperature amplitude per torus mode, microK.
+
+    sigma = (T_cmb / 5) sqrt(2 pi^2 P_R(k) / (k^3 V)) with k in 1/chi_rec, V in chi_rec^3,
+    P_R at k / chi_rec_mpc Mpc^-1 (the sign of Delta T / T = -R / 5 is applied by the caller).
+    """
+    k = np.asarray(k_chi, dtype=float)
+    t_uk = cosmology.t_cmb * 1e6
+    with np.errstate(divide="ignore", invalid="ignore"):
+        p = primordial_power(k / cosmology.chi_rec_mpc)
+        s = (t_uk / 5.0) * np.sqrt(2.0 * np.pi**2 * p / (k**3 * volume_chi3))
+    return np.where(k > 0, s, 0.0)
+
+
+def half_ball_modes(space, kchi_max: float):
+    """Integer indices n (M, 3) of the half space {n3 > 0, or n3 = 0 and (n2 > 0 or n2 = 0, n1 > 0)}
+    with 0 < |k| chi_rec <= kchi_max, and their wave vectors k (M, 3) in 1/chi_rec."""
+    A = space.lattice
+    D = np.linalg.inv(A).T
+    m = index_bounds(A, kchi_max)
+    i1 = np.arange(-m[0], m[0] + 1)[:, None, None]
+    i2 = np.arange(-m[1], m[1] + 1)[None, :, None]
+    i3 = np.arange(0, m[2] + 1)[None, None, :]
+    k2 = _k_squared(D, i1, i2, i3)
+    half = (i3 > 0) | ((i3 == 0) & ((i2 > 0) | ((i2 == 0) & (i1 > 0))))
+    sel = half & (k2 <= kchi_max**2 * (1 + 1e-12))
+    idx = np.argwhere(sel)
+    n = idx - np.array([m[0], m[1], 0])
+    return n.astype(np.int64), 2.0 * np.pi * (n @ D), m
+
+
+def invariant_coefficients(space, cosmology, seed: int, kchi_max: float):
+    """Modes of E^3/Gamma on the half ball: (n (M,3), k (M,3) in 1/chi_rec, c (M,) microK complex).
+
+    c_q = -sigma(q) N^-1/2 sum_g z_{q Q_g} exp(2 pi i (q Q_g).u_g) (see the module doc); the
+    other half follows from c_{-q} = conj(c_q).
+    """
+    n, k, m = half_ball_modes(space, kchi_max)
+    group = point_group(space)
+    sig = mode_sigma(np.linalg.norm(k, axis=1), cosmology, space.covering_cell_volume)
+    if len(group) == 1:
+        z = unit_normals_half(seed, m)
+        c = z[n[:, 0] + m[0], n[:, 1] + m[1], n[:, 2]].astype(np.complex128)
+    else:
+        z = unit_normals_full(seed, m)
+        c = np.zeros(len(n), dtype=np.complex128)
+        for Q, u in group:
+            nq = n @ Q
+            c += z[nq[:, 0] + m[0], nq[:, 1] + m[1], nq[:, 2] + m[2]] * np.exp(2j * np.pi * (nq @ u))
+        c /= math.sqrt(len(group))
+    return n, k, -sig * c
+
+
+# ---------------------------------------------------------------------------------------------
+# eigenmode method: a_lm from the plane-wave expansion
+# ---------------------------------------------------------------------------------------------
+def _alm_index(lmax: int, ell: int, m: int) -> int:
+    return m * (2 * lmax + 1 - m) // 2 + ell
+
+
+def plane_wave_alm(k_sky: np.ndarray, coef: np.ndarray, r: float, lmax: int, deriv: bool = False) -> np.ndarray:
+    """a_lm (healpy order, m >= 0) of the real field sum_q [coef_q e^{i q.x} + c.c.] on |x| = r.
+
+    k_sky: (M, 3) wave vectors in the sky frame (1/length), coef (M,) complex. With
+    e^{i q.x} = 4 pi sum i^l j_l(q r) Y*_lm(q^) Y_lm(x^) and Y_lm(-q^) = (-1)^l Y_lm(q^):
+    a_lm = 4 pi i^l sum_q j_l(q r) Y*_lm(q^) [coef_q + (-1)^l conj(coef_q)].
+    Normalised P_lm by the three-term recursion (Condon-Shortley phase; common practice).
+    ``deriv`` uses j_l' (the radial derivative d/d(qr), e.g. for a Doppler-like term).
+    """
+    nalm = (lmax + 1) * (lmax + 2) // 2
+    alm = np.zeros(nalm, dtype=np.complex128)
+    ell = np.arange(lmax + 1)
+    il = (1j) ** ell
+    start = np.array([_alm_index(lmax, mm, mm) for mm in range(lmax + 1)])
+    for b0 in range(0, len(coef), MODE_BLOCK):
+        kv = np.asarray(k_sky[b0:b0 + MODE_BLOCK], dtype=float)
+        cf = np.asarray(coef[b0:b0 + MODE_BLOCK], dtype=np.complex128)
+        kn = np.linalg.norm(kv, axis=1)
+        x = np.clip(kv[:, 2] / kn, -1.0, 1.0)
+        s = np.sqrt(np.maximum(0.0, 1.0 - x * x))
+        phi = np.arctan2(kv[:, 1], kv[:, 0])
+        jl = spherical_jn(ell[:, None], kn[None, :] * r, derivative=deriv)  # (lmax+1, M)
+        even = 2.0 * cf.real                     # coef + conj(coef)
+        odd = 2j * cf.imag                       # coef - conj(coef)
+        # w[l, q] = 4 pi i^l j_l [coef + (-1)^l conj(coef)]
+        w = jl * np.where((ell % 2 == 0)[:, None], even[None, :], odd[None, :]) * (4.0 * np.pi * il)[:, None]
+        emphi = np.exp(-1j * phi)                # Y*_lm carries e^{-i m phi}
+        em = np.ones_like(emphi)
+        pmm = np.full(len(kn), math.sqrt(1.0 / (4.0 * np.pi)))
+        for mm in range(lmax + 1):
+            if mm > 0:
+                pmm = -math.sqrt((2 * mm + 1) / (2.0 * mm)) * s * pmm
+                em = em * emphi
+            wm = w[mm:, :] * em[None, :]
+            i0 = start[mm]
+            alm[i0] += wm[0] @ pmm
+            if mm == lmax:
+                continue
+            p_prev = pmm
+            p_cur = math.sqrt(2 * mm + 3) * x * pmm
+            alm[i0 + 1] += wm[1] @ p_cur
+            for ll in range(mm + 2, lmax + 1):
+                a = math.sqrt((4.0 * ll * ll - 1.0) / (ll * ll - mm * mm))
+                b = math.sqrt(((ll - 1.0) ** 2 - mm * mm) / (4.0 * (ll - 1.0) ** 2 - 1.0))
+                p_prev, p_cur = p_cur, a * (x * p_cur - b * p_prev)
+                alm[i0 + ll - mm] += wm[ll - mm] @ p_cur
+    return alm
+
+
+# ---------------------------------------------------------------------------------------------
+# grid method
+# ---------------------------------------------------------------------------------------------
+def grid_shape(space, kchi_max: float, oversample: float) -> tuple[int, int, int]:
+    """FFT grid (N1, N2, N3): N_d = next_fast_len(ceil(2 oversample n_max_d) + 2)."""
+    m = index_bounds(space.lattice, kchi_max)
+    shape = []
+    for d in range(3):
+        want = int(math.ceil(2.0 * oversample * m[d])) + 2
+        shape.append(scipy.fft.next_fast_len(max(want, 8), real=(d == 2)))
+    return tuple(shape)
+
+
+def _bspline_deconv(n: np.ndarray, N: int) -> np.ndarray:
+    """1 / FT of the cubic B-spline at w = 2 pi n / N: 1 / sinc^4(n / N) (numpy sinc)."""
+    return (1.0 / np.sinc(n / N) ** 4).astype(np.float32)
+
+
+def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float = 1.5,
+               workers: int | None = None) -> np.ndarray:
+    """B-spline coefficients (float32, shape grid_shape) of the SW temperature on the torus cell.
+
+    Index (j1, j2, j3) is the point x = sum_d (j_d / N_d) a_d; sample with
+    :func:`sample_grid`.
+    """
+    shape = grid_shape(space, kchi_max, oversample)
+    if float(np.prod(shape, dtype=float)) > MAX_GRID_CELLS:
+        raise InputError(f"the grid method would need {shape} cells (> {MAX_GRID_CELLS:.0e}); lower lmax or "
+                         "enlarge the space", "[sky] lmax")
+    N1, N2, N3 = shape
+    spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
+    group = point_group(space)
+    A = space.lattice
+    D = np.linalg.inv(A).T
+    if len(group) == 1:
+        # dense fast path for the torus E1: c = -sigma z on the half box
+        m = index_bounds(A, kchi_max)
+        i1 = np.arange(-m[0], m[0] + 1)
+        i2 = np.arange(-m[1], m[1] + 1)
+        i3 = np.arange(0, m[2] + 1)
+        k2 = _k_squared(D, i1[:, None, None].astype(np.float32), i2[None, :, None].astype(np.float32),
+                        i3[None, None, :].astype(np.float32)).astype(np.float32)
+        k = np.sqrt(k2)
+        inside = k2 <= np.float32(kchi_max**2 * (1 + 1e-6))
+        sig = mode_sigma(np.where(inside, k, 0.0), cosmology, space.covering_cell_volume).astype(np.float32)
+        del k, k2, inside
+        sig *= _bspline_deconv(i1, N1)[:, None, None]
+        sig *= _bspline_deconv(i2, N2)[None, :, None]
+        sig *= _bspline_deconv(i3, N3)[None, None, :]
+        vals = unit_normals_half(seed, m)
+        vals *= -sig
+        del sig
+        spec[np.ix_(i1 % N1, i2 % N2, i3)] = vals
+        del vals
+    else:
+        n, _, c = invariant_coefficients(space, cosmology, seed, kchi_max)
+        c = c * (_bspline_deconv(n[:, 0], N1) * _bspline_deconv(n[:, 1], N2) * _bspline_deconv(n[:, 2], N3))
+        spec[n[:, 0] % N1, n[:, 1] % N2, n[:, 2]] = c
+        z0 = n[:, 2] == 0
+        spec[(-n[z0, 0]) % N1, (-n[z0, 1]) % N2, 0] = np.conj(c[z0])
+    workers = workers if workers is not None else -1
+    return scipy.fft.irfftn(spec, s=shape, norm="forward", workers=workers, overwrite_x=True)
+
+
+def sample_grid(grid: np.ndarray, space, points: np.ndarray) -> np.ndarray:
+    """Cubic B-spline interpolation (periodic) of ``grid`` at points (M, 3) in chi_rec."""
+    u = points @ np.linalg.inv(space.lattice)        # lattice (fractional) coordinates
+    coords = (u * np.asarray(grid.shape, dtype=float)).T
+    return ndimage.map_coordinates(grid, coords, order=3, mode="grid-wrap", prefilter=False, output=np.float64)
+
+
+# ---------------------------------------------------------------------------------------------
+# the public entry point
+# ---------------------------------------------------------------------------------------------
+def eigenmode_work(space, lmax: int, kchi_max: float) -> float:
+    """(modes in the half ball) x (a_lm with m >= 0): the cost the eigenmode guard limits."""
+    m = index_bounds(space.lattice, kchi_max)
+    ball = 4.0 / 3.0 * np.pi * kchi_max**3 * space.covering_cell_volume / (2.0 * np.pi) ** 3 / 2.0
+    nmodes = min(ball, float(np.prod(2 * m + 1)) / 2.0)
+    return nmodes * (lmax + 1) * (lmax + 2) / 2.0
+
+
+def _check_inputs(lmax, nside, method, terms, kchi_max, oversample):
+    try:
+        lmax = int(lmax)
+    except (TypeError, ValueError):
+        raise InputError(f"must be an integer, got {lmax!r}", "[sky] lmax") from None
+    if lmax < 1:
+        raise InputError(f"must be >= 1, got {lmax}", "[sky] lmax")
+    if nside is not None:
+        nside = int(nside)
+        if nside < 1 or nside & (nside - 1):
+            raise InputError(f"must be a power of two, got {nside}", "[sky] nside")
+        if lmax > 3 * nside - 1:
+            raise InputError(f"lmax = {lmax} exceeds 3 nside - 1 = {3 * nside - 1}", "[sky] lmax")
+    if method not in METHODS:
+        raise InputError(f"must be one of {list(METHODS)}, got {method!r}", "[sky] method")
+    terms = tuple(terms)
+    bad = [t for t in terms if t not in TERMS]
+    if bad or "sw" not in terms:
+        raise InputError(f"must be a list from {list(TERMS)} including 'sw', got {list(terms)}", "[sky] terms")
+    extra = [t for t in terms if t != "sw"]
+    if extra:
+        raise InputError(f"flat multiply connected skies include the Sachs-Wolfe term only; {extra} "
+                         "are not implemented for them (use terms = [\"sw\"])", "[sky] terms")
+    kchi = float(lmax if kchi_max is None else kchi_max)
+    if not np.isfinite(kchi) or kchi <= 0:
+        raise InputError(f"kchi_max must be positive, got {kchi_max}", "[sky] lmax")
+    if not 1.0 <= float(oversample) <= 8.0:
+        raise InputError(f"oversample must be in [1, 8], got {oversample}", "[sky] method")
+    return lmax, nside, terms, kchi
+
+
+def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None, method: str = "auto",
+             terms=("sw",), seed: int = 0, kchi_max: float | None = None, oversample: float = 1.5,
+             workers: int | None = None) -> Sky:
+    """SW sky of a compact flat space E1-E10 seen by ``observer`` (microK, see the module doc).
+
+    space: topology.spaces.euclidean.FlatSpace (lengths in chi_rec); observer: flat Observer
+    (position in chi_rec; sky direction n points along frame[:3] @ n); cosmology: T_cmb,
+    chi_rec_mpc. kchi_max: largest k chi_rec kept (default lmax). method "eigenmode" -> alm Sky
+    (l <= lmax), "grid" -> map Sky at nside, "auto" -> eigenmode for lmax <= 64, else grid.
+    """
+    lmax, nside, terms, kchi = _check_inputs(lmax, nside, method, terms, kchi_max, oversample)
+    check_space(space)
+    if observer.geometry != "flat":
+        raise InputError(f"a flat space needs a flat observer, got {observer.geometry!r}", "[observer] position")
+    if method == "auto":
+        method = "eigenmode" if lmax <= AUTO_LMAX else "grid"
+    if method == "grid" and nside is None:
+        raise InputError("the grid method needs nside", "[sky] nside")
+    x_obs = np.asarray(observer.point[:3], dtype=float)
+    F = np.asarray(observer.frame[:3, :], dtype=float)  # columns: sky axes in space coordinates
+    meta = {"family": space.family, "params": dict(space.params), "seed": int(seed), "kchi_max": kchi,
+            "observer": x_obs.tolist(), "terms": list(terms)}
+    if method == "eigenmode":
+        work = eigenmode_work(space, lmax, kchi)
+        if work > MAX_EIGEN_WORK:
+            raise InputError(f"the eigenmode method would need {work:.2e} mode x a_lm products (limit "
+                             f"{MAX_EIGEN_WORK:.0e}); lower lmax or use method = \"grid\"", "[sky] lmax")
+        n, k, c = invariant_coefficients(space, cosmology, seed, kchi)
+        coef = c * np.exp(1j * (k @ x_obs))      # e^{i q.(x_obs + r n)}
+        k_sky = k @ F                             # (F^T q) components in the sky frame
+        alm = plane_wave_alm(k_sky, coef, 1.0, lmax)
+        meta.update(method="eigenmode", n_modes=int(2 * len(n)))
+        return Sky(lmax=lmax, alm=alm, nside=nside, terms=terms, meta=meta)
+    import healpy as hp
+
+    grid = torus_grid(space, cosmology, seed, kchi, oversample, workers)
+    npix = 12 * nside * nside
+    vec = np.column_stack(hp.pix2vec(nside, np.arange(npix)))
+    pts = x_obs[None, :] + vec @ F.T
+    sky = sample_grid(grid, space, pts)
+    meta.update(method="grid", grid=list(grid.shape), oversample=float(oversample))
+    return Sky(lmax=lmax, map=sky, nside=nside, terms=terms, meta=meta)
