@@ -11,6 +11,12 @@ of the curvature radius.
 * D*_m (order 4m), T* (24), O* (48), I* (120) act by left multiplication (Clifford
   translations, homogeneous spaces), with the element lists of Coxeter, "Regular complex
   polytopes" (binary polyhedral groups as quaternions).
+
+Eigenmode counts: :func:`mode_count` / :func:`mode_counts` give the number of Gamma-invariant
+eigenmodes at harmonic degree k (eigenvalue k(k+2)) by the character formula;
+:func:`molien_coefficients` expands the Molien series of a group of quaternions and
+:func:`klein_molien_series` gives the closed forms from Klein's invariants (for groups acting by
+left multiplication alone, N_k = (k+1) m_k).
 """
 
 from __future__ import annotations
