@@ -134,12 +134,12 @@ def sky_from_config(cfg, params: dict | None = None):
         if p["method"] == "grid":
             raise InputError("spherical skies are built from eigenmodes only: use 'eigenmode' or 'auto'",
                              "[sky] method")
-        kmax = p["kmax"] if p["kmax"] is not None else default_kmax(p["lmax"], sc.chi)
         from .spherical import spherical_sky
 
-        sky = spherical_sky(sc.space, sc.observer, sc.cosmology, lmax=p["lmax"], nside=p["nside"], kmax=kmax,
+        # kmax None: the generator's default, ceil(2 lmax / chi) (see default_kmax)
+        sky = spherical_sky(sc.space, sc.observer, sc.cosmology, lmax=p["lmax"], nside=p["nside"], kmax=p["kmax"],
                             terms=p["terms"], seed=p["seed"])
-        sky.meta.setdefault("kmax", kmax)
+        sky.meta.setdefault("kmax", p["kmax"] if p["kmax"] is not None else default_kmax(p["lmax"], sc.chi))
     else:
         raise InputError(f"synthetic skies are not available for {geometry} spaces (family {family})",
                          "[space] family")

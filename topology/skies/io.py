@@ -116,6 +116,8 @@ def write_fits(path, m: np.ndarray, cards: list, *, dtype: str = "float32", colu
     import healpy as hp
 
     dt = DTYPES[dtype]
+    # a string too long for one card continues (CONTINUE convention) and keeps no comment
+    cards = [(k, v, "" if isinstance(v, str) and len(v) > 40 else c) for k, v, c in cards]
     hp.write_map(str(path), np.asarray(m).astype(dt), nest=False, dtype=dt, column_names=[column],
                  column_units=unit, extra_header=list(cards), overwrite=True)
 

@@ -48,7 +48,8 @@ FULL_TERMS = ("sw", "doppler", "isw")
 
 def primordial_power(k_mpc, A_s: float = A_S, n_s: float = N_S, k_pivot: float = K_PIVOT):
     """P_R(k) = A_s (k / k_pivot)^(n_s - 1), k in Mpc^-1 (dimensionless power per ln k)."""
-    return A_s * (np.asarray(k_mpc, dtype=float) / k_pivot) ** (n_s - 1.0)
+    with np.errstate(divide="ignore"):   # k = 0 gives inf for n_s < 1, as it should
+        return A_s * (np.asarray(k_mpc, dtype=float) / k_pivot) ** (n_s - 1.0)
 
 
 def sw_bessel_integral(ell, n_s: float):
