@@ -55,6 +55,8 @@ Methods:
 from __future__ import annotations
 
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import scipy.fft
@@ -63,7 +65,7 @@ from scipy.special import spherical_jn
 
 from ..errors import InputError
 from .base import STREAMS, TERMS, Sky
-from .spectra import primordial_power
+from .spectra import A_S, K_PIVOT, N_S, primordial_power
 
 BLOCK = 16                 # side of a block of lattice indices drawn from one SeedSequence
 _OFFSET = 1 << 20          # shifts block indices to non-negative spawn keys
@@ -124,31 +126,64 @@ def _block_normals(seed: int, block: tuple[int, int, int]) -> np.ndarray:
     """(BLOCK, BLOCK, BLOCK) complex64 unit normals (<|z|^2> = 1) of one block of indices."""
     ss = np.random.SeedSequence(int(seed), spawn_key=(STREAMS["signal"],) + tuple(int(b) + _OFFSET for b in block))
     g = np.random.Generator(np.random.PCG64(ss)).standard_normal((2, BLOCK, BLOCK, BLOCK), dtype=np.float32)
-    return (g[0] + 1j * g[1]) * np.float32(math.sqrt(0.5))
+    z = np.empty((BLOCK, BLOCK, BLOCK), dtype=np.complex64)
+    z.real = g[0]
+    z.imag = g[1]
+    z *= np.float32(math.sqrt(0.5))
+    return z
 
 
-def unit_normals_half(seed: int, m: np.ndarray) -> np.ndarray:
+def _threads(workers: int | None) -> int:
+    n = os.cpu_count() or 1
+    if workers is None or workers < 1:
+        return n
+    return max(1, min(int(workers), n))
+
+
+def unit_normals_half(seed: int, m: np.ndarray, D: np.ndarray | None = None, kchi_max: float | None = None,
+                      workers: int | None = None) -> np.ndarray:
     """z_n for n1 in [-m1, m1], n2 in [-m2, m2], n3 in [0, m3] (complex64, shape (2m1+1, 2m2+1, m3+1)).
 
     Hermitian on the n3 = 0 plane (z_{-n} = conj z_n, z_0 = 0), so the full Hermitian field
-    follows by z_{-n} = conj(z_n).
+    follows by z_{-n} = conj(z_n). With the dual basis D and kchi_max, blocks lying wholly
+    outside the ball |2 pi n D| <= kchi_max are left at zero (lower bound
+    |k|^2 >= lambda_min(G) |n|^2, G = 4 pi^2 D D^T).
     """
     m = np.asarray(m, dtype=np.int64)
     lo = np.array([-m[0], -m[1], 0])
     hi = np.array([m[0], m[1], m[2]])
-    out = np.empty((hi - lo + 1), dtype=np.complex64)
+    out = np.zeros((hi - lo + 1), dtype=np.complex64)
     blo = lo // BLOCK
     bhi = hi // BLOCK
+    lam = None
+    if D is not None and kchi_max is not None:
+        lam = float(np.linalg.eigvalsh(4.0 * np.pi**2 * (D @ D.T)).min())
+    jobs = []
     for b1 in range(blo[0], bhi[0] + 1):
         for b2 in range(blo[1], bhi[1] + 1):
             for b3 in range(blo[2], bhi[2] + 1):
                 b = np.array([b1, b2, b3])
                 s = np.maximum(b * BLOCK, lo)
                 e = np.minimum(b * BLOCK + BLOCK - 1, hi)
-                z = _block_normals(seed, (b1, b2, b3))
-                out[s[0] - lo[0]:e[0] - lo[0] + 1, s[1] - lo[1]:e[1] - lo[1] + 1, s[2]:e[2] + 1] = \
-                    z[s[0] - b1 * BLOCK:e[0] - b1 * BLOCK + 1, s[1] - b2 * BLOCK:e[1] - b2 * BLOCK + 1,
-                      s[2] - b3 * BLOCK:e[2] - b3 * BLOCK + 1]
+                if lam is not None:
+                    near = np.clip(0, s, e)  # the box point nearest the origin
+                    if lam * float(near @ near) > kchi_max**2 * (1 + 1e-9):
+                        continue
+                jobs.append((b, s, e))
+
+    def fill(part):
+        for b, s, e in part:
+            z = _block_normals(seed, tuple(b))
+            o = b * BLOCK
+            out[s[0] - lo[0]:e[0] - lo[0] + 1, s[1] - lo[1]:e[1] - lo[1] + 1, s[2]:e[2] + 1] = \
+                z[s[0] - o[0]:e[0] - o[0] + 1, s[1] - o[1]:e[1] - o[1] + 1, s[2] - o[2]:e[2] - o[2] + 1]
+
+    nt = min(_threads(workers), max(1, len(jobs) // 8))
+    if nt > 1:  # numpy's Generator releases the GIL while filling
+        with ThreadPoolExecutor(nt) as ex:
+            list(ex.map(fill, [jobs[i::nt] for i in range(nt)]))
+    else:
+        fill(jobs)
     # n3 = 0 plane: keep n2 > 0 (and n2 = 0, n1 > 0), mirror the rest
     plane = out[:, :, 0]
     mirrored = np.conj(plane[::-1, ::-1])
@@ -160,9 +195,10 @@ def unit_normals_half(seed: int, m: np.ndarray) -> np.ndarray:
     return out
 
 
-def unit_normals_full(seed: int, m: np.ndarray) -> np.ndarray:
+def unit_normals_full(seed: int, m: np.ndarray, D: np.ndarray | None = None, kchi_max: float | None = None,
+                      workers: int | None = None) -> np.ndarray:
     """The Hermitian z_n over the whole box [-m, m]^3 (complex64), index n + m."""
-    half = unit_normals_half(seed, m)
+    half = unit_normals_half(seed, m, D, kchi_max, workers)
     full = np.empty((2 * m[0] + 1, 2 * m[1] + 1, 2 * m[2] + 1), dtype=np.complex64)
     full[:, :, m[2]:] = half
     full[:, :, :m[2]] = np.conj(half[::-1, ::-1, :0:-1])
@@ -200,7 +236,7 @@ def half_ball_modes(space, kchi_max: float):
     return n.astype(np.int64), 2.0 * np.pi * (n @ D), m
 
 
-def invariant_coefficients(space, cosmology, seed: int, kchi_max: float):
+def invariant_coefficients(space, cosmology, seed: int, kchi_max: float, workers: int | None = None):
     """Modes of E^3/Gamma on the half ball: (n (M,3), k (M,3) in 1/chi_rec, c (M,) microK complex).
 
     c_q = -sigma(q) N^-1/2 sum_g z_{q Q_g} exp(2 pi i (q Q_g).u_g) (see the module doc); the
@@ -208,12 +244,13 @@ def invariant_coefficients(space, cosmology, seed: int, kchi_max: float):
     """
     n, k, m = half_ball_modes(space, kchi_max)
     group = point_group(space)
+    D = np.linalg.inv(space.lattice).T
     sig = mode_sigma(np.linalg.norm(k, axis=1), cosmology, space.covering_cell_volume)
     if len(group) == 1:
-        z = unit_normals_half(seed, m)
+        z = unit_normals_half(seed, m, D, kchi_max, workers)
         c = z[n[:, 0] + m[0], n[:, 1] + m[1], n[:, 2]].astype(np.complex128)
     else:
-        z = unit_normals_full(seed, m)
+        z = unit_normals_full(seed, m, D, kchi_max, workers)
         c = np.zeros(len(n), dtype=np.complex128)
         for Q, u in group:
             nq = n @ Q
@@ -281,22 +318,63 @@ def plane_wave_alm(k_sky: np.ndarray, coef: np.ndarray, r: float, lmax: int, der
 # ---------------------------------------------------------------------------------------------
 # grid method
 # ---------------------------------------------------------------------------------------------
+def fast_size(n: int) -> int:
+    """Smallest 2^a 3^b 5^c >= n (sizes pocketfft transforms fastest; common practice)."""
+    best = None
+    p5 = 1
+    while p5 < 2 * n:
+        p3 = p5
+        while p3 < 2 * n:
+            p2 = p3
+            while p2 < n:
+                p2 *= 2
+            best = p2 if best is None else min(best, p2)
+            p3 *= 3
+        p5 *= 5
+    return int(best)
+
+
 def grid_shape(space, kchi_max: float, oversample: float) -> tuple[int, int, int]:
-    """FFT grid (N1, N2, N3): N_d = next_fast_len(ceil(2 oversample n_max_d) + 2)."""
+    """FFT grid (N1, N2, N3): N_d = fast_size(ceil(2 oversample n_max_d) + 2), even."""
     m = index_bounds(space.lattice, kchi_max)
     shape = []
     for d in range(3):
         want = int(math.ceil(2.0 * oversample * m[d])) + 2
-        shape.append(scipy.fft.next_fast_len(max(want, 8), real=(d == 2)))
+        shape.append(fast_size(max(want + (want % 2), 8)))
     return tuple(shape)
 
 
 def _bspline_deconv(n: np.ndarray, N: int) -> np.ndarray:
     """1 / FT of the cubic B-spline at w = 2 pi n / N: 1 / sinc^4(n / N) (numpy sinc)."""
-    return (1.0 / np.sinc(n / N) ** 4).astype(np.float32)
+    return (1.0 / np.sinc(np.asarray(n, dtype=float) / N) ** 4).astype(np.float32)
 
 
-def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float = 1.5,
+def _sw_sigma_box(D, m, kchi_max, cosmology, volume):
+    """mode_sigma on the half box n1 in [-m1, m1], n2 in [-m2, m2], n3 in [0, m3] (float32).
+
+    The same power law as :func:`mode_sigma` written as C (k^2)^((n_s - 4) / 4) with
+    C = (T/5) sqrt(2 pi^2 A_s / V) (chi_rec k_pivot)^((1 - n_s) / 2); zero outside the ball.
+    """
+    f32 = np.float32
+    i1 = np.arange(-m[0], m[0] + 1, dtype=f32)[:, None, None]
+    i2 = np.arange(-m[1], m[1] + 1, dtype=f32)[None, :, None]
+    i3 = np.arange(0, m[2] + 1, dtype=f32)[None, None, :]
+    G = (4.0 * np.pi**2 * (D @ D.T)).astype(f32)
+    k2 = (G[0, 0] * i1 * i1 + 2 * G[0, 1] * i1 * i2 + G[1, 1] * i2 * i2)  # (.., .., 1)
+    k2 = k2 + (2 * G[0, 2] * i1 + 2 * G[1, 2] * i2) * i3
+    k2 += G[2, 2] * i3 * i3
+    t_uk = cosmology.t_cmb * 1e6
+    C = (t_uk / 5.0) * math.sqrt(2.0 * np.pi**2 * A_S / volume) * (cosmology.chi_rec_mpc * K_PIVOT) ** ((1.0 - N_S) / 2)
+    outside = k2 > f32(kchi_max**2 * (1 + 1e-6))
+    k2[m[0], m[1], 0] = 1.0
+    sig = np.power(k2, f32((N_S - 4.0) / 4.0))
+    sig *= f32(C)
+    sig[outside] = 0.0
+    sig[m[0], m[1], 0] = 0.0
+    return sig
+
+
+def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float = 1.2,
                workers: int | None = None) -> np.ndarray:
     """B-spline coefficients (float32, shape grid_shape) of the SW temperature on the torus cell.
 
@@ -313,40 +391,47 @@ def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float =
     A = space.lattice
     D = np.linalg.inv(A).T
     if len(group) == 1:
-        # dense fast path for the torus E1: c = -sigma z on the half box
+        # dense fast path for the torus E1: c = -sigma z on the half box, written by quadrants
         m = index_bounds(A, kchi_max)
-        i1 = np.arange(-m[0], m[0] + 1)
-        i2 = np.arange(-m[1], m[1] + 1)
-        i3 = np.arange(0, m[2] + 1)
-        k2 = _k_squared(D, i1[:, None, None].astype(np.float32), i2[None, :, None].astype(np.float32),
-                        i3[None, None, :].astype(np.float32)).astype(np.float32)
-        k = np.sqrt(k2)
-        inside = k2 <= np.float32(kchi_max**2 * (1 + 1e-6))
-        sig = mode_sigma(np.where(inside, k, 0.0), cosmology, space.covering_cell_volume).astype(np.float32)
-        del k, k2, inside
-        sig *= _bspline_deconv(i1, N1)[:, None, None]
-        sig *= _bspline_deconv(i2, N2)[None, :, None]
-        sig *= _bspline_deconv(i3, N3)[None, None, :]
-        vals = unit_normals_half(seed, m)
-        vals *= -sig
+        vals = unit_normals_half(seed, m, D, kchi_max, workers)
+        sig = _sw_sigma_box(D, m, kchi_max, cosmology, space.covering_cell_volume)
+        sig *= -_bspline_deconv(np.arange(-m[0], m[0] + 1), N1)[:, None, None]
+        sig *= _bspline_deconv(np.arange(-m[1], m[1] + 1), N2)[None, :, None]
+        sig *= _bspline_deconv(np.arange(0, m[2] + 1), N3)[None, None, :]
+        vals *= sig
         del sig
-        spec[np.ix_(i1 % N1, i2 % N2, i3)] = vals
+        for src1, dst1 in ((slice(m[0], None), slice(0, m[0] + 1)), (slice(0, m[0]), slice(N1 - m[0], N1))):
+            for src2, dst2 in ((slice(m[1], None), slice(0, m[1] + 1)), (slice(0, m[1]), slice(N2 - m[1], N2))):
+                spec[dst1, dst2, : m[2] + 1] = vals[src1, src2, :]
         del vals
     else:
-        n, _, c = invariant_coefficients(space, cosmology, seed, kchi_max)
+        n, _, c = invariant_coefficients(space, cosmology, seed, kchi_max, workers)
         c = c * (_bspline_deconv(n[:, 0], N1) * _bspline_deconv(n[:, 1], N2) * _bspline_deconv(n[:, 2], N3))
         spec[n[:, 0] % N1, n[:, 1] % N2, n[:, 2]] = c
         z0 = n[:, 2] == 0
         spec[(-n[z0, 0]) % N1, (-n[z0, 1]) % N2, 0] = np.conj(c[z0])
-    workers = workers if workers is not None else -1
-    return scipy.fft.irfftn(spec, s=shape, norm="forward", workers=workers, overwrite_x=True)
+    return scipy.fft.irfftn(spec, s=shape, norm="forward", workers=_threads(workers), overwrite_x=True)
 
 
-def sample_grid(grid: np.ndarray, space, points: np.ndarray) -> np.ndarray:
-    """Cubic B-spline interpolation (periodic) of ``grid`` at points (M, 3) in chi_rec."""
+def sample_grid(grid: np.ndarray, space, points: np.ndarray, workers: int | None = None) -> np.ndarray:
+    """Cubic B-spline interpolation (periodic) of ``grid`` at points (M, 3) in chi_rec, float64.
+
+    Points are split over threads (scipy.ndimage releases the GIL).
+    """
     u = points @ np.linalg.inv(space.lattice)        # lattice (fractional) coordinates
-    coords = (u * np.asarray(grid.shape, dtype=float)).T
-    return ndimage.map_coordinates(grid, coords, order=3, mode="grid-wrap", prefilter=False, output=np.float64)
+    coords = np.ascontiguousarray((u * np.asarray(grid.shape, dtype=float)).T)
+    nt = min(_threads(workers), max(1, coords.shape[1] // 50000))
+
+    def run(sl):
+        return ndimage.map_coordinates(grid, coords[:, sl], order=3, mode="grid-wrap", prefilter=False,
+                                       output=np.float64)
+
+    if nt == 1:
+        return run(slice(None))
+    edges = np.linspace(0, coords.shape[1], nt + 1).astype(int)
+    with ThreadPoolExecutor(nt) as ex:
+        parts = list(ex.map(run, [slice(a, b) for a, b in zip(edges[:-1], edges[1:])]))
+    return np.concatenate(parts)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -392,7 +477,7 @@ def _check_inputs(lmax, nside, method, terms, kchi_max, oversample):
 
 
 def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None, method: str = "auto",
-             terms=("sw",), seed: int = 0, kchi_max: float | None = None, oversample: float = 1.5,
+             terms=("sw",), seed: int = 0, kchi_max: float | None = None, oversample: float = 1.2,
              workers: int | None = None) -> Sky:
     """SW sky of a compact flat space E1-E10 seen by ``observer`` (microK, see the module doc).
 
@@ -430,6 +515,6 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
     npix = 12 * nside * nside
     vec = np.column_stack(hp.pix2vec(nside, np.arange(npix)))
     pts = x_obs[None, :] + vec @ F.T
-    sky = sample_grid(grid, space, pts)
+    sky = sample_grid(grid, space, pts, workers)
     meta.update(method="grid", grid=list(grid.shape), oversample=float(oversample))
     return Sky(lmax=lmax, map=sky, nside=nside, terms=terms, meta=meta)
