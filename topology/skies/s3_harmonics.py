@@ -4,7 +4,8 @@ spherical-harmonic transforms of band-limited functions on the sky.
 Eigenfunctions of the Laplacian of S^3 (unit radius). A unit quaternion x = z1 + z2 j with
 z1 = w + i x, z2 = y + i z is the SU(2) matrix U(x) = [[z1, z2], [-conj(z2), conj(z1)]]
 (U(a b) = U(a) U(b)). Its k-th symmetric power D^k(x) (spin j = k/2, size k+1) in the
-orthonormal monomial basis u^a v^(k-a) / sqrt(a! (k-a)!) has entries that are polynomials of
+orthonormal monomial basis u^a v^(k-a) / sqrt(a! (k-a)!) (index a = 0..k; so D^1 is U with
+both axes reversed) has entries that are polynomials of
 degree k in (w, x, y, z); the (k+1)^2 entries span the eigenspace of -Laplacian with eigenvalue
 k(k+2) (Peter-Weyl theorem; e.g. Vilenkin 1968, "Special functions and the theory of group
 representations", ch. III). Schur orthogonality: int |D^k_ab|^2 dV = 2 pi^2 / (k + 1) over the
