@@ -1,0 +1,85 @@
+"""Task results that survive an interrupted search: one interface, two stores.
+
+``MemoryCheckpoint`` keeps results in a dict (notebooks, tests); ``FileCheckpoint`` writes a
+JSON file after every finished task (a radius, or an observer position), atomically, so a
+search started again with ``resume=True`` skips what is done. The file records a fingerprint
+of the map and of every setting; a checkpoint with another fingerprint is never used.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import tempfile
+from pathlib import Path
+
+from ..errors import InputError
+
+VERSION = 1
+
+
+def fingerprint(settings: dict, map_id: dict) -> str:
+    """sha256 of the settings and the map identity (path, size, modification time)."""
+    text = json.dumps({"settings": settings, "map": map_id, "version": VERSION}, sort_keys=True, default=str)
+    return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+class MemoryCheckpoint:
+    def __init__(self):
+        self.results: dict = {}
+
+    def load(self) -> dict:
+        return dict(self.results)
+
+    def save(self, key, result: dict) -> None:
+        self.results[key] = result
+
+    def finish(self) -> None:
+        pass
+
+
+class FileCheckpoint:
+    """JSON file ``path`` holding {"fingerprint", "results": [[key, result], ...]}."""
+
+    def __init__(self, path: str | Path, fp: str, resume: bool = False):
+        self.path = Path(path)
+        self.fp = fp
+        self.results: dict = {}
+        if resume and self.path.is_file():
+            try:
+                data = json.loads(self.path.read_text())
+            except (OSError, ValueError) as e:
+                raise InputError(f"cannot read checkpoint ({e}); delete it to start afresh", str(self.path)) from None
+            if data.get("fingerprint") == fp:
+                self.results = {_key(k): v for k, v in data.get("results", [])}
+
+    def load(self) -> dict:
+        return dict(self.results)
+
+    def save(self, key, result: dict) -> None:
+        self.results[key] = result
+        data = {"fingerprint": self.fp, "version": VERSION, "results": [[k, v] for k, v in self.results.items()]}
+        folder = self.path.parent if str(self.path.parent) else Path(".")
+        fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.", dir=folder)
+        try:
+            with os.fdopen(fd, "w") as fh:
+                json.dump(data, fh, allow_nan=True)
+            os.replace(tmp, self.path)
+        except BaseException:
+            try:
+                os.unlink(tmp)
+            except FileNotFoundError:
+                pass
+            raise
+
+    def finish(self) -> None:
+        """A complete search needs no checkpoint: remove it."""
+        try:
+            self.path.unlink()
+        except FileNotFoundError:
+            pass
+
+
+def _key(k):
+    return float(k) if isinstance(k, float) else k

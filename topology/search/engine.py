@@ -1,0 +1,221 @@
+"""The search job: settings, validation, the loop over tasks with checkpoints and progress.
+
+``search_sky(sky, mask, settings)`` is the Python entry point (``SkyMap`` objects from
+:mod:`topology.maps`); ``search_files(map_path, mask_path, settings)`` reads the files first.
+Both return the JSON-able result of ``topology search --json``.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import asdict, dataclass, field, fields
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+from . import modes as _modes
+from .checkpoint import FileCheckpoint, MemoryCheckpoint, fingerprint
+from .progress import progress
+
+MODES = {"antipodal": _modes.AntipodalMode, "all-pairs": _modes.AllPairsMode, "targeted": _modes.TargetedMode}
+
+
+@dataclass
+class SearchSettings:
+    """Every setting of a search (degrees at this edge). Defaults suit a first look at a
+    Planck-like map: a 1 deg beam on an N_side 128 working map, m <= 64, radii 5-90 deg."""
+
+    mode: str = "antipodal"
+    radii_deg: tuple = tuple(float(r) for r in range(5, 91))
+    fwhm_deg: float = 1.0
+    nside_work: int = 128
+    m_max: int = 64
+    n_phi: int | None = None  # default 2 m_max + 2
+    centre_nside: int = 16  # coarse centre grid
+    level_smoothing: float = 1.2  # kappa: FWHM_l = max(FWHM, kappa * step_l)
+    n_keep: int = 32  # candidates per radius and orientation kept between levels
+    n_pool: int = 8  # all-pairs: n_pool * n_keep best coarse pairs before removing neighbours
+    n_report: int = 3  # candidates per radius and orientation reported
+    n_candidates: int = 20  # best candidates overall in the output
+    min_kept: float = 0.5  # circles keeping a smaller fraction are skipped
+    min_overlap: float = 0.25  # masked S needs this fraction of samples kept by both circles
+    min_separation_deg: float = 10.0  # all-pairs: closer centres are not a pair
+    twist_oversample: float = 2.0  # coarse twists: oversample * (m_cut + 1)
+    power_fraction: float = 0.999  # m_cut keeps this fraction of the m-weighted circle power
+    kernel_mem_mb: int = 128  # bound on the all-pairs product block
+    l_range: tuple | None = None
+    l_weights: tuple | None = None
+    mask_threshold: float = 0.5
+    ordering: str | None = None
+    orientation_nside: int = 4  # targeted: coarse orientation grid
+    positions: tuple | None = None  # targeted: observer positions (the config's observer if None)
+
+    def __post_init__(self):
+        if self.n_phi is None:
+            self.n_phi = 2 * int(self.m_max) + 2
+
+    def as_dict(self) -> dict:
+        d = asdict(self)
+        d["radii_deg"] = [float(r) for r in self.radii_deg]
+        return d
+
+
+def parse_radii(text: str) -> tuple:
+    """'START:STOP:STEP' (degrees, both ends included) or a single value -> tuple of floats."""
+    where = "--radii"
+    try:
+        parts = [float(p) for p in str(text).split(":")]
+    except ValueError:
+        raise InputError(f"expected START:STOP:STEP in degrees, got {text!r}", where) from None
+    if len(parts) == 1:
+        return (parts[0],)
+    if len(parts) != 3:
+        raise InputError(f"expected START:STOP:STEP in degrees, got {text!r}", where)
+    a, b, step = parts
+    if not step > 0 or b < a:
+        raise InputError(f"needs START <= STOP and STEP > 0, got {text!r}", where)
+    n = int(np.floor((b - a) / step + 1e-9)) + 1
+    return tuple(float(round(a + i * step, 10)) for i in range(n))
+
+
+def validate(s: SearchSettings) -> SearchSettings:
+    """One-line InputErrors naming the setting (before any work)."""
+    import healpy as hp
+
+    if s.mode not in MODES:
+        raise InputError(f"must be one of {', '.join(MODES)}, got {s.mode!r}", "--mode")
+    r = np.asarray(s.radii_deg, dtype=float)
+    if r.size == 0 or not np.all(np.isfinite(r)) or r.min() <= 0 or r.max() > 90:
+        raise InputError(f"radii must lie in (0, 90] degrees, got {r.min() if r.size else '[]'} .. "
+                         f"{r.max() if r.size else ''}", "--radii")
+    for name, v in (("nside_work", s.nside_work), ("centre_nside", s.centre_nside),
+                    ("orientation_nside", s.orientation_nside)):
+        if int(v) < 1 or (int(v) & (int(v) - 1)):
+            raise InputError(f"must be a power of two, got {v}", f"[search] {name}")
+    lmax_work = 3 * s.nside_work - 1
+    if s.m_max < 1:
+        raise InputError(f"must be at least 1, got {s.m_max}", "--m-max")
+    if s.m_max > lmax_work:
+        raise InputError(f"m_max = {s.m_max} is above what N_side {s.nside_work} supports "
+                         f"(a band-limited map has |m| <= l <= 3 N_side - 1 = {lmax_work} on any circle)",
+                         "--m-max")
+    if s.n_phi < 2 * s.m_max + 1:
+        raise InputError(f"needs N_phi >= 2 m_max + 1 = {2 * s.m_max + 1}, got {s.n_phi}", "[search] n_phi")
+    if s.centre_nside > s.nside_work:
+        raise InputError(f"centre grid N_side {s.centre_nside} is finer than the working map "
+                         f"(N_side {s.nside_work})", "[search] centre_nside")
+    if s.orientation_nside > s.nside_work:
+        raise InputError(f"orientation grid N_side {s.orientation_nside} is finer than the working map",
+                         "[search] orientation_nside")
+    if not s.fwhm_deg >= 0:
+        raise InputError(f"must be >= 0 degrees, got {s.fwhm_deg}", "--fwhm")
+    if s.fwhm_deg > 0 and np.radians(s.fwhm_deg) < 0.5 * hp.nside2resol(s.nside_work):
+        pass  # allowed: the interpolation error then grows (documented in sampling)
+    for name in ("min_kept", "min_overlap", "mask_threshold", "power_fraction"):
+        v = getattr(s, name)
+        if not 0 < v <= 1:
+            raise InputError(f"must lie in (0, 1], got {v}", f"[search] {name}")
+    for name in ("n_keep", "n_pool", "n_report", "n_candidates", "kernel_mem_mb"):
+        if int(getattr(s, name)) < 1:
+            raise InputError(f"must be at least 1, got {getattr(s, name)}", f"[search] {name}")
+    if s.twist_oversample < 1:
+        raise InputError(f"must be >= 1, got {s.twist_oversample}", "[search] twist_oversample")
+    if not 0 <= s.min_separation_deg < 180:
+        raise InputError(f"must lie in [0, 180), got {s.min_separation_deg}", "[search] min_separation_deg")
+    return s
+
+
+def default_checkpoint_path(map_path: str | Path, fp: str) -> Path:
+    """``.topology-search-<fingerprint>.json`` in the current folder."""
+    return Path(f".topology-search-{fp}.json")
+
+
+def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenario=None, checkpoint=None,
+               show_progress: bool | None = False, map_name: str = "") -> dict:
+    """Prepare the map, run the mode's tasks (skipping those the checkpoint has), summarise."""
+    from ..maps import prepare_map
+
+    t0 = time.perf_counter()
+    s = validate(settings or SearchSettings())
+    if s.mode == "targeted" and scenario is None:
+        raise InputError("the targeted search needs a config with [space] (and [cosmology], [observer])", "--config")
+    prepared = prepare_map(sky, mask, nside_work=s.nside_work, fwhm_deg=s.fwhm_deg, l_range=s.l_range,
+                           l_weights=s.l_weights, mask_threshold=s.mask_threshold)
+    ctx = _modes.SearchContext(prepared, s, scenario)
+    mode = MODES[s.mode]()
+    tasks = mode.tasks(ctx)
+    store = checkpoint if checkpoint is not None else MemoryCheckpoint()
+    done = store.load()
+    bar = progress(len(tasks), f"topology search ({s.mode})", show_progress)
+    results = {}
+    try:
+        for key in tasks:
+            if key in done:
+                results[key] = done[key]
+                bar.update(1)
+                continue
+            res = mode.run_task(ctx, key)
+            results[key] = res
+            store.save(key, res)
+            bar.update(1)
+    finally:
+        bar.close()
+    summary = mode.summarise(ctx, results)
+    store.finish()
+    out = {
+        "map": map_name or getattr(sky, "source", ""),
+        "settings": s.as_dict(),
+        **summary,
+        "map_info": {"nside_in": int(sky.nside), "nside_work": int(prepared.nside), "lmax": int(prepared.lmax),
+                     "kept_fraction_work": float(prepared.kept_fraction),
+                     "monopole_dipole_removed": [float(v) for v in prepared.monopole_dipole]},
+        "levels": [r.get("levels", []) for r in list(results.values())[:1]][0] if results else [],
+        "elapsed_s": float(time.perf_counter() - t0),
+    }
+    return out
+
+
+def search_files(map_path, mask_path=None, settings: SearchSettings | None = None, *, scenario=None,
+                 resume: bool = False, show_progress: bool | None = None, checkpoint_path=None) -> dict:
+    """Read map (and mask), then :func:`search_sky` with a file checkpoint after every task."""
+    from ..maps import read_healpix
+
+    s = validate(settings or SearchSettings())
+    sky = read_healpix(map_path, ordering=s.ordering, what="map")
+    mask = read_healpix(mask_path, ordering=s.ordering, what="mask") if mask_path else None
+    ident = {}
+    for name, p in (("map", map_path), ("mask", mask_path)):
+        if p:
+            st_ = Path(p).stat()
+            ident[name] = [str(Path(p).resolve()), st_.st_size, st_.st_mtime_ns]
+    if scenario is not None:
+        ident["scenario"] = repr((scenario.space.describe(), scenario.chi, scenario.observer.point.tolist()))
+    fp = fingerprint(s.as_dict(), ident)
+    path = Path(checkpoint_path) if checkpoint_path else default_checkpoint_path(map_path, fp)
+    store = FileCheckpoint(path, fp, resume=resume)
+    return search_sky(sky, mask, s, scenario=scenario, checkpoint=store, show_progress=show_progress,
+                      map_name=str(map_path))
+
+
+def settings_from(section: dict | None = None, **overrides) -> SearchSettings:
+    """SearchSettings from a config's [search] section, then explicit overrides (None = unset)."""
+    kw = {}
+    names = {f.name for f in fields(SearchSettings)}
+    for src in (section or {}), overrides:
+        for k, v in src.items():
+            if v is None:
+                continue
+            key = {"radii": "radii_deg", "fwhm": "fwhm_deg"}.get(k, k)
+            if key not in names:
+                raise InputError("unknown search setting", f"[search] {k}")
+            kw[key] = v
+    if "radii_deg" in kw and isinstance(kw["radii_deg"], str):
+        kw["radii_deg"] = parse_radii(kw["radii_deg"])
+    elif "radii_deg" in kw:
+        r = list(kw["radii_deg"])
+        kw["radii_deg"] = tuple(float(v) for v in r)
+    for k in ("l_range", "l_weights", "positions"):
+        if k in kw and kw[k] is not None and not isinstance(kw[k], tuple):
+            kw[k] = tuple(kw[k])
+    return SearchSettings(**kw)

@@ -1,0 +1,627 @@
+"""Search strategies behind one interface: antipodal, all-pairs and targeted.
+
+A mode turns a :class:`SearchContext` (prepared map, settings) into tasks (radii, or observer
+positions for ``targeted``), runs one task at a time (so the engine can checkpoint between
+them) and summarises the task results. Task results are plain JSON-able dicts.
+
+Hierarchical scheme (antipodal and all-pairs). Centre grids are HEALPix grids of N_side c_0,
+2 c_0, 4 c_0, ... up to the first whose pixel size is below FWHM / 2 (or the working N_side).
+Level l is searched on the map smoothed to FWHM_l = max(FWHM, kappa * step_l) (kappa =
+``level_smoothing``, default 1.2): a centre that is off by up to half a grid step moves the
+circle by about as much, and smoothing to that scale keeps the true pair's S high enough to
+rank among the best on a coarse grid. Level 0 evaluates every pair (all-pairs: the blocked
+BLAS kernel; antipodal: c with -c); the best ``n_keep`` pairs per radius and orientation go to
+the next level, where every combination of the finer-grid centres within one coarse step of
+each centre is evaluated with the exact S (sub-grid twist), and so on.
+
+What the refinement can miss (tests/test_search_modes.py shows both): (1) a pair whose coarse
+S is not among the ``n_keep`` best at its radius (weak or strongly masked circles on a noisy
+map, or many strong decoys); (2) pairs whose centres are closer than ``min_separation_deg``
+(excluded: neighbouring circles overlap and correlate trivially); (3) on a masked map the coarse
+kernel uses zero-filled circles, whose S is lowered by roughly the fraction of the circles that
+is jointly kept, so cut pairs rank lower than their exact masked S.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .. import geometry as geo
+from ..errors import InputError
+from . import statistic as st
+from .sampling import CircleSet, centre_grid, sample_circles, sample_points
+
+
+# ---------------------------------------------------------------------------------------------
+# context and levels
+# ---------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Level:
+    nside: int  # centre grid (or orientation grid) N_side
+    step: float  # grid step (rad): healpy.nside2resol
+    fwhm: float  # smoothing of this level's map (rad)
+
+
+def centre_levels(centre_nside: int, nside_work: int, fwhm: float, kappa: float) -> list[Level]:
+    """Grids c_0, 2 c_0, ... until step < FWHM / 2 or the working N_side is reached."""
+    import healpy as hp
+
+    out = []
+    c = int(centre_nside)
+    while True:
+        step = hp.nside2resol(c)
+        out.append(Level(c, step, max(fwhm, kappa * step)))
+        if step < fwhm / 2.0 or c >= nside_work:
+            break
+        c *= 2
+    return out
+
+
+@dataclass
+class SearchContext:
+    """What a mode needs: the prepared map and the settings (see engine.SearchSettings)."""
+
+    prepared: object
+    settings: object
+    scenario: object = None  # targeted mode: topology.scenario.Scenario
+
+    def level_map(self, level: Level) -> np.ndarray:
+        return self.prepared.working_map(level.fwhm)
+
+    @property
+    def mask(self) -> np.ndarray | None:
+        """Kept pixels on the sampling grid (None when nothing is masked)."""
+        if self.prepared.mask.all():
+            return None
+        return self.prepared.sample_mask
+
+
+# ---------------------------------------------------------------------------------------------
+# the interface
+# ---------------------------------------------------------------------------------------------
+class Mode:
+    """A search strategy: ``tasks(ctx)`` keys, ``run_task(ctx, key)`` -> dict, ``summarise``."""
+
+    name = ""
+
+    def tasks(self, ctx: SearchContext) -> list:
+        raise NotImplementedError
+
+    def run_task(self, ctx: SearchContext, key) -> dict:
+        raise NotImplementedError
+
+    def summarise(self, ctx: SearchContext, results: dict) -> dict:
+        """{candidates, s_max, work, ...} from task results keyed by task key."""
+        raise NotImplementedError
+
+
+def _work(pairs=0, twists=0, modes=0) -> dict:
+    return {"pairs": int(pairs), "twists": int(twists), "modes": int(modes)}
+
+
+def _add(w: dict, pairs, n_tau, m_cut) -> None:
+    w["pairs"] += int(pairs)
+    w["twists"] += int(pairs) * int(n_tau)
+    w["modes"] += int(pairs) * int(n_tau) * int(m_cut)
+
+
+def distinct(ca: np.ndarray, cb: np.ndarray, score: np.ndarray, k: int, reach: float,
+             symmetric: bool = True) -> np.ndarray:
+    """Indices of up to k best pairs, greedily dropping any pair whose two centres both lie within
+    ``reach`` (rad) of a better kept pair's centres (either way round when ``symmetric``), so one
+    strong peak cannot fill the list with its own neighbours (non-maximum suppression)."""
+    order = np.argsort(-score, kind="stable")
+    order = order[np.isfinite(score[order])]
+    cos_r = math.cos(reach)
+    kept: list[int] = []
+    for i in order:
+        if kept:
+            ka, kb = ca[kept], cb[kept]
+            near = (ka @ ca[i] > cos_r) & (kb @ cb[i] > cos_r)
+            if symmetric:
+                near |= (ka @ cb[i] > cos_r) & (kb @ ca[i] > cos_r)
+            if near.any():
+                continue
+        kept.append(int(i))
+        if len(kept) >= k:
+            break
+    return np.asarray(kept, dtype=int)
+
+
+def _candidate(ca, cb, radius, twist, orientation, s, level) -> dict:
+    la, ba = geo.vec_to_lonlat(np.asarray(ca))
+    lb, bb = geo.vec_to_lonlat(np.asarray(cb))
+    return {
+        "center_a": [float(la), float(ba)],
+        "center_b": [float(lb), float(bb)],
+        "radius_deg": float(np.degrees(radius)),
+        "twist_deg": float(np.degrees(twist) % 360.0),
+        "orientation": st.ORIENTATION_NAME[0 if orientation > 0 else 1],
+        "S": float(s),
+        "level_nside": int(level),
+    }
+
+
+# ---------------------------------------------------------------------------------------------
+# hierarchical searches over centre pairs
+# ---------------------------------------------------------------------------------------------
+class _Hierarchical(Mode):
+    """Shared machinery of antipodal and all-pairs: coarse stage, then refinement levels."""
+
+    antipodal = False
+
+    def tasks(self, ctx):
+        return [float(r) for r in ctx.settings.radii_deg]
+
+    def levels(self, ctx) -> list[Level]:
+        s = ctx.settings
+        return centre_levels(s.centre_nside, s.nside_work, np.radians(s.fwhm_deg), s.level_smoothing)
+
+    # -- level 0 -----------------------------------------------------------------------------
+    def coarse(self, ctx, circles: CircleSet, valid: np.ndarray, m_cut: int, work: dict):
+        """Best pairs at the coarse level: (ia, ib, orientation) arrays of grid indices."""
+        raise NotImplementedError
+
+    def run_task(self, ctx, key) -> dict:
+        s = ctx.settings
+        radius = np.radians(key)
+        levels = self.levels(ctx)
+        work = _work()
+        info = []
+        mask = ctx.mask
+        # level 0 --------------------------------------------------------------------------
+        lv = levels[0]
+        centers = centre_grid(lv.nside)
+        circ = sample_circles(ctx.level_map(lv), centers, radius, s.n_phi, s.m_max, mask)
+        valid = circ.kept_fraction >= s.min_kept
+        skipped = int((~valid).sum())
+        m_cut = st.effective_m_cut(circ.coeffs[valid] if valid.any() else circ.coeffs, s.m_max, s.power_fraction)
+        if valid.sum() < (1 if self.antipodal else 2):
+            return {"radius_deg": key, "candidates": [], "s_max": {}, "work": work, "skipped_circles": skipped,
+                    "levels": info}
+        ca, cb, orient = self.coarse(ctx, circ, valid, m_cut, work)
+        ca, cb = centers[ca], cb if self.antipodal else centers[cb]
+        info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "m_cut": int(m_cut),
+                     "kept": int(len(orient))})
+        # refinement levels ------------------------------------------------------------------
+        s_val = twist = None
+        for prev, lv in zip(levels[:-1], levels[1:]):
+            ca, cb, orient, s_val, twist, m_cut, n_skip = self.refine(ctx, lv, prev, radius, ca, cb, orient, work)
+            info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "m_cut": int(m_cut),
+                         "kept": int(len(orient))})
+        if s_val is None:  # a single level: evaluate the coarse candidates exactly
+            ca, cb, orient, s_val, twist, m_cut, n_skip = self.refine(ctx, levels[0], None, radius, ca, cb, orient, work)
+        final_level = levels[-1].nside
+        cands = []
+        s_max = {}
+        for o in (st.SAME, st.OPPOSITE):
+            sel = np.flatnonzero(orient == o)
+            if sel.size == 0:
+                continue
+            order = sel[np.argsort(-s_val[sel], kind="stable")][: s.n_report]
+            name = st.ORIENTATION_NAME[o]
+            s_max[name] = float(s_val[order[0]])
+            for i in order:
+                cands.append(_candidate(ca[i], cb[i], radius, twist[i], st.ORIENTATION_SIGN[o], s_val[i], final_level))
+        cands.sort(key=lambda c: -c["S"])
+        return {"radius_deg": key, "candidates": cands, "s_max": s_max, "work": work, "skipped_circles": skipped,
+                "levels": info}
+
+    # -- refinement ----------------------------------------------------------------------------
+    def neighbours(self, nside: int, vec: np.ndarray, radius: float) -> np.ndarray:
+        import healpy as hp
+
+        pix = hp.query_disc(nside, vec, radius)
+        if pix.size == 0:
+            pix = np.array([hp.vec2pix(nside, *vec)])
+        return pix
+
+    def refine(self, ctx, lv: Level, prev: Level | None, radius, ca, cb, orient, work):
+        """Evaluate every finer-grid combination around each candidate; keep the best."""
+        import healpy as hp
+
+        s = ctx.settings
+        mask = ctx.mask
+        reach = prev.step if prev is not None else 0.0
+        pix_a, pix_b, ori = [], [], []
+        for a, b, o in zip(ca, cb, orient):
+            na = self.neighbours(lv.nside, a, reach) if prev is not None else np.array([hp.vec2pix(lv.nside, *a)])
+            if self.antipodal:
+                pix_a.append(na)
+                pix_b.append(np.full(na.size, -1))
+                ori.append(np.full(na.size, o))
+                continue
+            nb = self.neighbours(lv.nside, b, reach) if prev is not None else np.array([hp.vec2pix(lv.nside, *b)])
+            ga, gb = np.meshgrid(na, nb, indexing="ij")
+            pix_a.append(ga.ravel())
+            pix_b.append(gb.ravel())
+            ori.append(np.full(ga.size, o))
+        pa = np.concatenate(pix_a)
+        pb = np.concatenate(pix_b)
+        po = np.concatenate(ori)
+        # unique combinations; all-pairs stores the unordered pair once (smaller index first)
+        if not self.antipodal:
+            lo, hi = np.minimum(pa, pb), np.maximum(pa, pb)
+            pa, pb = lo, hi
+        combo = np.unique(np.stack([pa, pb, po], axis=1), axis=0)
+        pa, pb, po = combo[:, 0], combo[:, 1], combo[:, 2]
+        ua, inv_a = np.unique(pa, return_inverse=True)
+        va = np.array(hp.pix2vec(lv.nside, ua)).T
+        if self.antipodal:
+            centers = np.vstack([va, -va])
+            ia = inv_a
+            ib = inv_a + ua.size
+        else:
+            ub = np.unique(np.concatenate([pa, pb]))
+            centers = np.array(hp.pix2vec(lv.nside, ub)).T
+            ia = np.searchsorted(ub, pa)
+            ib = np.searchsorted(ub, pb)
+        circ = sample_circles(ctx.level_map(lv), centers, radius, s.n_phi, s.m_max, mask)
+        valid = circ.kept_fraction >= s.min_kept
+        m_cut = st.effective_m_cut(circ.coeffs[valid] if valid.any() else circ.coeffs, s.m_max, s.power_fraction)
+        ok = valid[ia] & valid[ib]
+        if not self.antipodal:
+            sep_cos = np.einsum("ij,ij->i", centers[ia], centers[ib])
+            ok &= sep_cos < math.cos(np.radians(s.min_separation_deg))
+        ia, ib, po = ia[ok], ib[ok], po[ok]
+        sv, tw = st.best_twist(circ, circ, ia, ib, m_cut, s.min_overlap)
+        r = np.arange(ia.size)
+        s_val = sv[r, po]
+        twist = tw[r, po]
+        _add(work, ia.size, 16 * (m_cut + 1), m_cut)
+        # keep the n_keep best per orientation
+        keep = []
+        for o in (st.SAME, st.OPPOSITE):
+            sel = np.flatnonzero(po == o)
+            pick = distinct(centers[ia[sel]], centers[ib[sel]], s_val[sel], s.n_keep, 2.0 * lv.step)
+            keep.append(sel[pick])
+        keep = np.concatenate(keep)
+        return (centers[ia[keep]], centers[ib[keep]], po[keep], s_val[keep], twist[keep], m_cut,
+                int((~valid).sum()))
+
+    # -- summary --------------------------------------------------------------------------------
+    def summarise(self, ctx, results: dict) -> dict:
+        s = ctx.settings
+        work = _work()
+        cands, s_max = [], []
+        skipped = 0
+        for key in sorted(results):
+            r = results[key]
+            for k in work:
+                work[k] += r["work"][k]
+            skipped += r["skipped_circles"]
+            cands.extend(r["candidates"])
+            for name in st.ORIENTATION_NAME:
+                if name in r["s_max"]:
+                    best = next(c for c in r["candidates"] if c["orientation"] == name)
+                    s_max.append({"radius_deg": float(key), "orientation": name, "S_max": r["s_max"][name],
+                                  "best": best})
+        cands.sort(key=lambda c: -c["S"])
+        return {"candidates": cands[: s.n_candidates], "s_max": s_max, "work": work,
+                "skipped_circles": skipped}
+
+
+class AntipodalMode(_Hierarchical):
+    """Centres opposite each other: c and -c (translations, Clifford translations)."""
+
+    name = "antipodal"
+    antipodal = True
+
+    def coarse(self, ctx, circ, valid, m_cut, work):
+        import healpy as hp
+
+        s = ctx.settings
+        n = len(circ)
+        nside = hp.npix2nside(n)
+        anti = hp.vec2pix(nside, *(-circ.centers.T))
+        first = np.flatnonzero(np.arange(n) < anti)
+        first = first[valid[first] & valid[anti[first]]]
+        sv, _ = st.best_twist(circ, circ, first, anti[first], m_cut, s.min_overlap)
+        _add(work, first.size, 16 * (m_cut + 1), m_cut)
+        ia, orient = [], []
+        reach = 2.0 * hp.nside2resol(nside)
+        c = circ.centers[first]
+        for o in (st.SAME, st.OPPOSITE):
+            order = distinct(c, -c, sv[:, o], s.n_keep, reach)
+            ia.append(first[order])
+            orient.append(np.full(order.size, o))
+        ia = np.concatenate(ia)
+        return ia, -circ.centers[ia], np.concatenate(orient)
+
+
+class AllPairsMode(_Hierarchical):
+    """Any two centres, every twist, both orientations (the six-parameter search)."""
+
+    name = "all-pairs"
+
+    def coarse(self, ctx, circ, valid, m_cut, work):
+        s = ctx.settings
+        import healpy as hp
+
+        a = st.weighted(circ.coeffs, m_cut)
+        ia, ib, orient, sv = allpairs_top(a, circ.centers, valid, twist_count(m_cut, s.twist_oversample),
+                                          s.n_pool * s.n_keep, np.radians(s.min_separation_deg),
+                                          s.kernel_mem_mb * (1 << 20), work, m_cut)
+        reach = 2.0 * hp.nside2resol(hp.npix2nside(len(circ)))
+        keep = []
+        for o in (st.SAME, st.OPPOSITE):
+            sel = np.flatnonzero(orient == o)
+            keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], sv[sel], s.n_keep, reach)])
+        keep = np.concatenate(keep)
+        return ia[keep], ib[keep], orient[keep]
+
+
+def twist_count(m_cut: int, oversample: float) -> int:
+    """Twists on the coarse grid: oversample * (m_cut + 1), at least 2 m_cut + 2, even."""
+    n = max(2 * m_cut + 2, int(math.ceil(oversample * (m_cut + 1))))
+    return n + (n % 2)
+
+
+def allpairs_top(a: np.ndarray, centers: np.ndarray, valid: np.ndarray, n_tau: int, n_keep: int,
+                 min_sep: float, mem_bytes: int, work: dict | None = None, m_cut: int = 0):
+    """Best ``n_keep`` unordered pairs per orientation by the blocked BLAS kernel.
+
+    a (n, M) weighted coefficients; S_ij = max_tau num / (|a_i|^2 + |a_j|^2). Pairs with j <= i,
+    invalid circles or centres closer than ``min_sep`` (rad) are excluded. Returns (ia, ib,
+    orientation, S) arrays.
+    """
+    n = a.shape[0]
+    norms = np.sum(np.abs(a) ** 2, axis=1).astype(np.float32)
+    cols_all = st.column_matrix(a)  # (2M, 2n)
+    rows_all = None
+    cos_min = math.cos(min_sep)
+    best_s = [np.full(0, -np.inf, dtype=np.float32) for _ in range(2)]
+    best_i = [np.zeros(0, dtype=np.int64) for _ in range(2)]
+    best_j = [np.zeros(0, dtype=np.int64) for _ in range(2)]
+    vidx = np.flatnonzero(valid)
+    blk = st.block_rows_for(n_tau, vidx.size, mem_bytes)
+    buf = None
+    for b0 in range(0, vidx.size, blk):
+        rows_idx = vidx[b0 : b0 + blk]
+        col_idx = vidx[b0:]  # upper triangle including the diagonal block
+        rows = st.rotated_rows(a[rows_idx], n_tau)
+        cols = np.concatenate([cols_all[:, col_idx], cols_all[:, n + col_idx]], axis=1)
+        need = rows_idx.size * n_tau * cols.shape[1]
+        if buf is None or buf.size < need:
+            buf = np.empty(need, dtype=np.float32)
+        num = st.blas_max_over_twist(rows, cols, buf[:need].reshape(rows_idx.size * n_tau, cols.shape[1]))
+        nc = col_idx.size
+        den = norms[rows_idx][:, None] + norms[col_idx][None, :]
+        bad = (rows_idx[:, None] >= col_idx[None, :]) | (centers[rows_idx] @ centers[col_idx].T >= cos_min) | (den <= 0)
+        if work is not None:
+            _add(work, int((~bad).sum()), n_tau, m_cut)
+        for o in (st.SAME, st.OPPOSITE):
+            with np.errstate(invalid="ignore", divide="ignore"):
+                sv = num[:, o * nc : (o + 1) * nc] / den
+            sv[bad] = -np.inf
+            flat = sv.ravel()
+            k = min(n_keep, flat.size)
+            part = np.argpartition(-flat, k - 1)[:k]
+            part = part[np.isfinite(flat[part])]
+            ri, cj = np.divmod(part, nc)
+            cat_s = np.concatenate([best_s[o], flat[part]])
+            cat_i = np.concatenate([best_i[o], rows_idx[ri]])
+            cat_j = np.concatenate([best_j[o], col_idx[cj]])
+            order = np.argsort(-cat_s, kind="stable")[:n_keep]
+            best_s[o], best_i[o], best_j[o] = cat_s[order], cat_i[order], cat_j[order]
+    ia = np.concatenate(best_i)
+    ib = np.concatenate(best_j)
+    orient = np.concatenate([np.full(best_i[0].size, st.SAME), np.full(best_i[1].size, st.OPPOSITE)])
+    return ia, ib, orient, np.concatenate(best_s).astype(float)
+
+
+# ---------------------------------------------------------------------------------------------
+# targeted search: one family, its predicted pairs, scanned over orientations (and positions)
+# ---------------------------------------------------------------------------------------------
+def orientation_grid(nside: int) -> np.ndarray:
+    """Euler angles (n, 3) z-y-z (rad): R z on the HEALPix pixel centres of ``nside`` (beta =
+    colatitude, alpha = longitude), gamma on a grid of step ~ the pixel size."""
+    import healpy as hp
+
+    theta, phi = hp.pix2ang(nside, np.arange(12 * nside * nside))
+    n_gamma = max(4, int(math.ceil(2.0 * np.pi / hp.nside2resol(nside))))
+    gamma = 2.0 * np.pi * np.arange(n_gamma) / n_gamma
+    a = np.repeat(phi, n_gamma)
+    b = np.repeat(theta, n_gamma)
+    g = np.tile(gamma, theta.size)
+    return np.stack([a, b, g], axis=1)
+
+
+def rotations(euler: np.ndarray) -> np.ndarray:
+    """(n, 3) z-y-z Euler angles -> (n, 3, 3) matrices R_z(a) R_y(b) R_z(g) (vectorised)."""
+    a, b, g = euler.T
+
+    def rz(t):
+        c, s = np.cos(t), np.sin(t)
+        z, o = np.zeros_like(t), np.ones_like(t)
+        return np.stack([np.stack([c, -s, z], -1), np.stack([s, c, z], -1), np.stack([z, z, o], -1)], -2)
+
+    def ry(t):
+        c, s = np.cos(t), np.sin(t)
+        z, o = np.zeros_like(t), np.ones_like(t)
+        return np.stack([np.stack([c, z, s], -1), np.stack([z, o, z], -1), np.stack([-s, z, c], -1)], -2)
+
+    return rz(a) @ ry(b) @ rz(g)
+
+
+class TargetedMode(Mode):
+    """Predicted pairs of one family (config [space], [cosmology], [observer]) scanned over sky
+    orientations R (z-y-z Euler grid; levels like the centre grids) and observer positions.
+
+    For each R the circles are sampled at R n_A(phi_k) and R n_B(s phi_k + tau) (the contract),
+    so each pair's S is taken at zero twist, same orientation; the combined statistic is the
+    mean of the pair values S_comb(R) = (1/P) sum_p S_p(R) over the P usable pairs (radius in
+    the radius range, both circles kept >= min_kept).
+    """
+
+    name = "targeted"
+
+    def tasks(self, ctx):
+        return list(range(len(self.positions(ctx))))
+
+    def positions(self, ctx) -> list:
+        s = ctx.settings
+        if s.positions:
+            return [list(map(float, p)) for p in s.positions]
+        sc = ctx.scenario
+        obs = sc.observer
+        if obs.geometry == "flat":
+            return [list(map(float, obs.point[:3]))]
+        return [list(map(float, obs.point))]
+
+    def predicted(self, ctx, position):
+        from ..circles import predict_circles
+
+        sc = ctx.scenario
+        try:
+            obs = geo.Observer.make(sc.space.geometry, position)
+        except InputError as e:
+            raise InputError(e.reason, "[search] positions") from None
+        lo, hi = min(ctx.settings.radii_deg), max(ctx.settings.radii_deg)
+        pairs = [p for p in predict_circles(sc.space, obs, sc.chi) if lo - 1e-9 <= np.degrees(p.radius) <= hi + 1e-9]
+        return pairs
+
+    def levels(self, ctx) -> list[Level]:
+        s = ctx.settings
+        return centre_levels(s.orientation_nside, s.nside_work, np.radians(s.fwhm_deg), s.level_smoothing)
+
+    def evaluate(self, ctx, lv: Level, pairs, euler: np.ndarray, work: dict) -> tuple[np.ndarray, np.ndarray]:
+        """S_p(R) for rotations (n_rot, 3 Euler): returns (n_rot, P) pair values and usable flags."""
+        from ..circles import circle_points
+
+        s = ctx.settings
+        n_phi = s.n_phi
+        phi = 2.0 * np.pi * np.arange(n_phi) / n_phi
+        base_a = np.stack([circle_points(p.center_a, p.radius, phi) for p in pairs])  # (P, N, 3)
+        base_b = np.stack([circle_points(p.center_b, p.radius, p.orientation * phi + p.twist) for p in pairs])
+        mp = ctx.level_map(lv)
+        out_s = np.empty((euler.shape[0], len(pairs)))
+        out_ok = np.empty((euler.shape[0], len(pairs)), dtype=bool)
+        chunk = max(1, 200_000 // (n_phi * len(pairs)))
+        m_cut_seen = 0
+        for i0 in range(0, euler.shape[0], chunk):
+            R = rotations(euler[i0 : i0 + chunk])  # (r, 3, 3)
+            pa = np.einsum("rij,pkj->rpki", R, base_a).reshape(-1, n_phi, 3)
+            pb = np.einsum("rij,pkj->rpki", R, base_b).reshape(-1, n_phi, 3)
+            ctr = np.zeros((pa.shape[0], 3))
+            ca = sample_points(mp, pa, ctr, 0.0, n_phi, s.m_max, ctx.mask)
+            cb = sample_points(mp, pb, ctr, 0.0, n_phi, s.m_max, ctx.mask)
+            m_cut = st.effective_m_cut(np.vstack([ca.coeffs, cb.coeffs]), s.m_max, s.power_fraction)
+            m_cut_seen = max(m_cut_seen, m_cut)
+            sv, _, _ = st.s_at_zero(ca, cb, m_cut, s.min_overlap)
+            ok = (ca.kept_fraction >= s.min_kept) & (cb.kept_fraction >= s.min_kept)
+            r = R.shape[0]
+            out_s[i0 : i0 + r] = sv.reshape(r, -1)
+            out_ok[i0 : i0 + r] = ok.reshape(r, -1)
+            _add(work, sv.size, 1, m_cut)
+        return out_s, out_ok
+
+    @staticmethod
+    def combine(sv: np.ndarray, ok: np.ndarray) -> np.ndarray:
+        cnt = ok.sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(cnt > 0, np.where(ok, sv, 0.0).sum(axis=1) / np.maximum(cnt, 1), -np.inf)
+
+    def run_task(self, ctx, key) -> dict:
+        import healpy as hp
+
+        s = ctx.settings
+        position = self.positions(ctx)[key]
+        pairs = self.predicted(ctx, position)
+        work = _work()
+        if not pairs:
+            return {"position": position, "pairs": [], "S_combined": None, "euler_deg": None, "work": work,
+                    "levels": []}
+        levels = self.levels(ctx)
+        lv = levels[0]
+        euler = orientation_grid(lv.nside)
+        sv, ok = self.evaluate(ctx, lv, pairs, euler, work)
+        comb = self.combine(sv, ok)
+        info = [{"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "orientations": int(euler.shape[0])}]
+        best = euler[np.argsort(-comb, kind="stable")[: s.n_keep]]
+        for prev, lv in zip(levels[:-1], levels[1:]):
+            cand = []
+            n_g = 2
+            for e in best:
+                zdir = np.array([np.sin(e[1]) * np.cos(e[0]), np.sin(e[1]) * np.sin(e[0]), np.cos(e[1])])
+                pix = hp.query_disc(lv.nside, zdir, prev.step)
+                if pix.size == 0:
+                    pix = np.array([hp.vec2pix(lv.nside, *zdir)])
+                th, ph = hp.pix2ang(lv.nside, pix)
+                g0 = _closest_gamma(rotations(e[None])[0], ph, th)
+                for dg in lv.step * np.arange(-n_g, n_g + 1):
+                    cand.append(np.stack([ph, th, (g0 + dg) % (2 * np.pi)], axis=1))
+            cand = np.unique(np.round(np.vstack(cand), 9), axis=0)
+            sv, ok = self.evaluate(ctx, lv, pairs, cand, work)
+            comb = self.combine(sv, ok)
+            order = np.argsort(-comb, kind="stable")
+            best = cand[order[: s.n_keep]]
+            info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "orientations": int(cand.shape[0])})
+        # final values at the best orientation
+        sv, ok = self.evaluate(ctx, levels[-1], pairs, best[:1], _work())
+        comb = float(self.combine(sv, ok)[0])
+        R = rotations(best[:1])[0]
+        out_pairs = []
+        for p, val, good in zip(pairs, sv[0], ok[0]):
+            c = _candidate(R @ p.center_a, R @ p.center_b, p.radius, 0.0, p.orientation, val if good else float("nan"),
+                           levels[-1].nside)
+            c.pop("twist_deg")
+            out_pairs.append({**c, "usable": bool(good)})
+        return {"position": position, "pairs": out_pairs, "S_combined": comb,
+                "euler_deg": [float(v) for v in np.degrees(best[0])], "work": work, "levels": info,
+                "rotation": R.tolist()}
+
+    def summarise(self, ctx, results: dict) -> dict:
+        work = _work()
+        for r in results.values():
+            for k in work:
+                work[k] += r["work"][k]
+        valid = [r for r in results.values() if r["S_combined"] is not None]
+        if not valid:
+            return {"candidates": [], "s_max": [], "work": work, "targeted": {"positions": list(results.values())}}
+        best = max(valid, key=lambda r: r["S_combined"])
+        cands, s_max = _targeted_pairs(ctx, best)
+        return {"candidates": cands, "s_max": s_max, "work": work,
+                "targeted": {"family": ctx.scenario.space.family, "best_position": best["position"],
+                             "best_euler_deg": best["euler_deg"], "S_combined": best["S_combined"],
+                             "positions": [{k: r[k] for k in ("position", "S_combined", "euler_deg")}
+                                           for r in results.values()]}}
+
+
+def _closest_gamma(r_old: np.ndarray, alpha: np.ndarray, beta: np.ndarray) -> np.ndarray:
+    """gamma making R_z(alpha) R_y(beta) R_z(gamma) closest to r_old (for each alpha, beta)."""
+    zero = np.zeros_like(alpha)
+    base = rotations(np.stack([alpha, beta, zero], axis=1))  # (n, 3, 3)
+    m = np.einsum("nji,jk->nik", base, r_old)  # base^T r_old ~ R_z(gamma)
+    return np.arctan2(m[:, 1, 0] - m[:, 0, 1], m[:, 0, 0] + m[:, 1, 1])
+
+
+def _targeted_pairs(ctx, best: dict):
+    """Candidates in the contract of the search output. Rotating the sky by R shifts the phase
+    of circle A by a constant delta_A and of B by delta_B, so the twist seen in the rotated
+    frame is tau' = tau + delta_B - s delta_A; it is measured from the rotated points."""
+    from ..circles import circle_phase, circle_points, predict_circles
+
+    sc = ctx.scenario
+    R = np.asarray(best["rotation"])
+    obs = geo.Observer.make(sc.space.geometry, best["position"])
+    lo, hi = min(ctx.settings.radii_deg), max(ctx.settings.radii_deg)
+    pairs = [p for p in predict_circles(sc.space, obs, sc.chi) if lo - 1e-9 <= np.degrees(p.radius) <= hi + 1e-9]
+    phi = np.linspace(0.0, 2.0 * np.pi, 16, endpoint=False)
+    cands, s_max = [], {}
+    for p, rec in zip(pairs, best["pairs"]):
+        ca, cb = R @ p.center_a, R @ p.center_b
+        psi_a = circle_phase(ca, circle_points(p.center_a, p.radius, phi) @ R.T)
+        psi_b = circle_phase(cb, circle_points(p.center_b, p.radius, p.orientation * phi + p.twist) @ R.T)
+        tau = float(np.angle(np.mean(np.exp(1j * (psi_b - p.orientation * psi_a)))) % (2 * np.pi))
+        c = dict(rec)
+        c["twist_deg"] = float(np.degrees(tau) % 360.0)
+        cands.append(c)
+        key = (round(c["radius_deg"], 6), c["orientation"])
+        if np.isfinite(c["S"]) and (key not in s_max or c["S"] > s_max[key]):
+            s_max[key] = c["S"]
+    cands.sort(key=lambda c: -(c["S"] if np.isfinite(c["S"]) else -9))
+    return cands, [{"radius_deg": k[0], "orientation": k[1], "S_max": v} for k, v in sorted(s_max.items())]

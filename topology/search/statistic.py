@@ -1,0 +1,300 @@
+"""The S statistic of matched circles and its kernels.
+
+Cornish, Spergel & Starkman (2004, PRL 92, 201302), with T_m the circle coefficients of
+:mod:`topology.search.sampling`:
+
+    S(tau) = 2 sum_{m>0} m Re[T_A,m conj(T_B,m) e^{-i m tau}] / sum_{m>0} m (|T_A,m|^2 + |T_B,m|^2)
+
+S = 1 for identical circles, -1 for a circle and its negative. Orientation, derived from the
+contract T_A(phi) = T_B(s phi + tau) of :mod:`topology.circles`:
+
+* s = +1: T_A,m = e^{i m tau} T_B,m, so the sum above peaks at tau with S = 1 ("same");
+* s = -1: T_A,m = e^{-i m tau} conj(T_B,m): the formula applied to the coefficients of the
+  reversed circle B'(phi) = T_B(-phi), which are conj(T_B,m), peaks at tau' = -tau. So for
+  "opposite" the kernels use conj(T_B) and report the twist tau = -tau' (mod 2 pi).
+
+With a_m = sqrt(m) T_m, the numerator is 2 Re sum a_A conj(a_B) e^{-i m tau} and the
+denominator |a_A|^2 + |a_B|^2. In real space this is the correlation of the filtered circles
+f(phi) = sum_{m=1}^{M} 2 sqrt(m) Re(T_m e^{i m phi}) (Parseval):
+
+    S(tau) = 2 sum_k f_A(phi_k) f_B(phi_k + tau) / sum_k [f_A(phi_k)^2 + f_B(phi_k + tau)^2].
+
+Masked variant: the same sums restricted to the samples that both circles keep, w_A,k
+w_B,k+j, for each shift j of the sample grid; the three sums are circular correlations,
+computed with FFTs. Sub-grid twists: Newton steps on the trigonometric polynomial (unmasked),
+a parabola through three shifts (masked).
+
+All-pairs kernel: for a block of circles the weighted coefficients are rotated by every twist
+tau_j = 2 pi j / N_tau, x_jm = a_m e^{-i m tau_j}, written as real rows [Re x, Im x], and
+multiplied (float32 matrix product, BLAS sgemm) by the columns [Re a_B, +-Im a_B] of all
+circles (+ same, - opposite); the maximum over j is taken block by block.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+SAME, OPPOSITE = 0, 1  # index of the orientation axis; s = +1, -1
+ORIENTATION_SIGN = (1, -1)
+ORIENTATION_NAME = ("same", "opposite")
+
+
+# ---------------------------------------------------------------------------------------------
+# coefficients
+# ---------------------------------------------------------------------------------------------
+def weighted(coeffs: np.ndarray, m_cut: int | None = None) -> np.ndarray:
+    """a_m = sqrt(m) T_m for m = 1..m_cut: (n, M+1) -> (n, m_cut) complex."""
+    m_cut = coeffs.shape[1] - 1 if m_cut is None else int(m_cut)
+    return coeffs[:, 1 : m_cut + 1] * np.sqrt(np.arange(1, m_cut + 1))
+
+
+def filtered_circles(coeffs: np.ndarray, n_phi: int, m_cut: int | None = None) -> np.ndarray:
+    """f(phi_k) = sum_{m=1}^{M} 2 sqrt(m) Re(T_m e^{i m phi_k}) on the N_phi grid: (n, n_phi)."""
+    a = weighted(coeffs, m_cut)
+    spec = np.zeros((a.shape[0], n_phi // 2 + 1), dtype=complex)
+    spec[:, 1 : a.shape[1] + 1] = a
+    return np.fft.irfft(spec, n=n_phi, axis=1) * n_phi
+
+
+def effective_m_cut(coeffs: np.ndarray, m_max: int, fraction: float = 0.999, minimum: int = 4) -> int:
+    """Smallest m_cut holding ``fraction`` of the m-weighted power sum_m m |T_m|^2 averaged over
+    circles (modes beyond carry nothing the beam left); at least ``minimum``, at most m_max."""
+    p = np.mean(np.abs(coeffs[:, 1 : m_max + 1]) ** 2, axis=0) * np.arange(1, m_max + 1)
+    total = p.sum()
+    if not total > 0:
+        return int(min(m_max, minimum))
+    c = np.cumsum(p) / total
+    return int(np.clip(np.searchsorted(c, fraction) + 1, min(minimum, m_max), m_max))
+
+
+# ---------------------------------------------------------------------------------------------
+# single pairs: exact S as a function of the twist, and its maximum
+# ---------------------------------------------------------------------------------------------
+def s_of_twist(ta: np.ndarray, tb: np.ndarray, tau, orientation: int = 1, m_cut: int | None = None) -> np.ndarray:
+    """S at contract twists: coefficient rows (k, M+1), tau (k,) or (k, t) -> S of tau's shape.
+
+    orientation +1: T_A(phi) = T_B(phi + tau); -1: T_A(phi) = T_B(-phi + tau).
+    """
+    a = weighted(np.atleast_2d(ta), m_cut)
+    b = weighted(np.atleast_2d(tb), m_cut)
+    m = np.arange(1, a.shape[1] + 1)
+    tau = np.asarray(tau, dtype=float)
+    t2 = tau.reshape(a.shape[0], -1)
+    if orientation > 0:
+        cross = a * np.conj(b)
+        phase = np.exp(-1j * m * t2[..., None])
+    else:
+        cross = a * b  # a conj(conj b), peaking at tau' = -tau
+        phase = np.exp(1j * m * t2[..., None])
+    num = 2.0 * np.real(np.sum(cross[:, None, :] * phase, axis=-1))
+    den = np.sum(np.abs(a) ** 2 + np.abs(b) ** 2, axis=1)[:, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(den > 0, num / den, 0.0).reshape(tau.shape)
+
+
+def best_twist_harmonic(ta: np.ndarray, tb: np.ndarray, m_cut: int | None = None, oversample: int = 8,
+                        newton_steps: int = 4) -> tuple[np.ndarray, np.ndarray]:
+    """max over tau of S for unmasked pairs, both orientations.
+
+    ta, tb: (k, M+1). Returns S (k, 2) and the contract twist tau (k, 2) in [0, 2 pi): a grid of
+    oversample * 2 (m_cut + 1) twists, then Newton steps on the trigonometric polynomial.
+    """
+    a = weighted(np.atleast_2d(ta), m_cut)
+    b = weighted(np.atleast_2d(tb), m_cut)
+    k, mc = a.shape
+    m = np.arange(1, mc + 1)
+    den = np.sum(np.abs(a) ** 2 + np.abs(b) ** 2, axis=1)
+    n_grid = int(oversample) * 2 * (mc + 1)
+    s_out = np.zeros((k, 2))
+    t_out = np.zeros((k, 2))
+    for o, cross in ((SAME, a * np.conj(b)), (OPPOSITE, a * b)):
+        c = np.zeros((k, n_grid), dtype=complex)
+        c[:, 1 : mc + 1] = 2.0 * cross
+        grid = np.real(np.fft.fft(c, axis=1))  # sum_m c_m e^{-i m tau_j}
+        j = np.argmax(grid, axis=1)
+        tau = 2.0 * np.pi * j / n_grid
+        h = 2.0 * np.pi / n_grid
+        best = grid[np.arange(k), j]
+        t0 = tau.copy()
+        for _ in range(newton_steps):
+            e = 2.0 * cross * np.exp(-1j * m * tau[:, None])
+            d1 = np.real(np.sum(-1j * m * e, axis=1))
+            d2 = np.real(np.sum(-(m**2) * e, axis=1))
+            step = np.where(d2 < 0, -d1 / np.where(d2 < 0, d2, -1.0), 0.0)
+            tau = np.clip(tau + step, t0 - h, t0 + h)
+        val = np.real(np.sum(2.0 * cross * np.exp(-1j * m * tau[:, None]), axis=1))
+        better = val >= best
+        tau = np.where(better, tau, t0)
+        val = np.where(better, val, best)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            s_out[:, o] = np.where(den > 0, val / den, 0.0)
+        t_out[:, o] = (tau if o == SAME else -tau) % (2.0 * np.pi)
+    return s_out, t_out
+
+
+def _corr(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Circular correlations c_j = sum_k x_k y_{k+j} of real rows (k, N) with FFTs."""
+    n = x.shape[1]
+    return np.fft.irfft(np.conj(np.fft.rfft(x, axis=1)) * np.fft.rfft(y, axis=1), n=n, axis=1)
+
+
+def masked_s_grid(fa: np.ndarray, wa: np.ndarray, fb: np.ndarray, wb: np.ndarray,
+                  min_overlap: float = 0.25) -> np.ndarray:
+    """Masked real-space S_j = 2 sum_k W f_A,k f_B,k+j / sum_k W (f_A,k^2 + f_B,k+j^2), W = w_A,k w_B,k+j,
+    for every shift j (tau_j = 2 pi j / N) of rows (k, N); -inf where the jointly kept samples are
+    fewer than ``min_overlap`` N."""
+    wa = wa.astype(float)
+    wb = wb.astype(float)
+    ga, gb = wa * fa, wb * fb
+    num = _corr(ga, gb)
+    den = _corr(ga * fa, wb) + _corr(wa, gb * fb)
+    over = _corr(wa, wb)
+    n = fa.shape[1]
+    ok = (over >= min_overlap * n - 1e-6) & (den > 1e-300)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(ok, 2.0 * num / np.where(ok, den, 1.0), -np.inf)
+
+
+def _parabola_peak(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Index offset and value of the parabola through each row's maximum and its neighbours."""
+    k, n = s.shape
+    j = np.argmax(s, axis=1)
+    r = np.arange(k)
+    s0 = s[r, j]
+    sm = s[r, (j - 1) % n]
+    sp = s[r, (j + 1) % n]
+    curv = sm - 2.0 * s0 + sp
+    good = np.isfinite(sm) & np.isfinite(sp) & (curv < 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d = np.where(good, 0.5 * (sm - sp) / np.where(good, curv, -1.0), 0.0)
+    d = np.clip(d, -0.5, 0.5)
+    val = np.where(good, s0 - 0.25 * (sm - sp) * d, s0)
+    return j + d, val
+
+
+def best_twist_masked(fa, wa, fb, wb, min_overlap: float = 0.25) -> tuple[np.ndarray, np.ndarray]:
+    """max over shifts of the masked S, both orientations: S (k, 2), contract twist (k, 2)."""
+    n = fa.shape[1]
+    rev = (-np.arange(n)) % n  # reversed circle: sample k at phi = -phi_k
+    s_out = np.zeros((fa.shape[0], 2))
+    t_out = np.zeros((fa.shape[0], 2))
+    for o, (f, w) in ((SAME, (fb, wb)), (OPPOSITE, (fb[:, rev], wb[:, rev]))):
+        grid = masked_s_grid(fa, wa, f, w, min_overlap)
+        j, val = _parabola_peak(grid)
+        tau = 2.0 * np.pi * j / n
+        s_out[:, o] = np.where(np.isfinite(val), val, -np.inf)
+        t_out[:, o] = (tau if o == SAME else -tau) % (2.0 * np.pi)
+    return s_out, t_out
+
+
+def best_twist(circ_a, circ_b, ia: np.ndarray, ib: np.ndarray, m_cut: int | None = None,
+               min_overlap: float = 0.25, block: int = 4096) -> tuple[np.ndarray, np.ndarray]:
+    """S and contract twist (k, 2) for pairs (circ_a[ia[i]], circ_b[ib[i]]): the exact harmonic
+    maximum when both circles are fully kept, the masked real-space variant otherwise."""
+    ia = np.asarray(ia, dtype=int)
+    ib = np.asarray(ib, dtype=int)
+    s = np.zeros((ia.size, 2))
+    t = np.zeros((ia.size, 2))
+    full = circ_a.full[ia] & circ_b.full[ib]
+    for i0 in range(0, ia.size, block):
+        sl = slice(i0, i0 + block)
+        xa, xb, fu = ia[sl], ib[sl], full[sl]
+        idx = np.arange(i0, i0 + xa.size)
+        if fu.any():
+            s[idx[fu]], t[idx[fu]] = best_twist_harmonic(circ_a.coeffs[xa[fu]], circ_b.coeffs[xb[fu]], m_cut)
+        if (~fu).any():
+            n = circ_a.n_phi
+            fa = filtered_circles(circ_a.coeffs[xa[~fu]], n, m_cut)
+            fb = filtered_circles(circ_b.coeffs[xb[~fu]], n, m_cut)
+            s[idx[~fu]], t[idx[~fu]] = best_twist_masked(fa, circ_a.kept[xa[~fu]], fb, circ_b.kept[xb[~fu]],
+                                                         min_overlap)
+    return s, t
+
+
+def s_at_zero(circ_a, circ_b, m_cut: int | None = None, min_overlap: float = 0.25) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """S at zero twist, same orientation, of row-aligned circles (the targeted search samples B
+    at s phi + tau already). Returns S, numerator and denominator (n,) (masked variant where a
+    circle is cut)."""
+    full = circ_a.full & circ_b.full
+    a = weighted(circ_a.coeffs, m_cut)
+    b = weighted(circ_b.coeffs, m_cut)
+    num = 2.0 * np.real(np.sum(a * np.conj(b), axis=1))
+    den = np.sum(np.abs(a) ** 2 + np.abs(b) ** 2, axis=1)
+    if (~full).any():
+        n = circ_a.n_phi
+        fa = filtered_circles(circ_a.coeffs[~full], n, m_cut)
+        fb = filtered_circles(circ_b.coeffs[~full], n, m_cut)
+        wa = circ_a.kept[~full].astype(float)
+        wb = circ_b.kept[~full].astype(float)
+        w = wa * wb
+        ok = w.sum(axis=1) >= min_overlap * n
+        num_m = 2.0 * np.sum(w * fa * fb, axis=1)
+        den_m = np.sum(w * (fa**2 + fb**2), axis=1)
+        # masked sums are N times the harmonic ones (Parseval); keep one scale
+        num[~full] = np.where(ok, num_m / n, 0.0)
+        den[~full] = np.where(ok, den_m / n, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s = np.where(den > 0, num / den, 0.0)
+    return s, num, den
+
+
+# ---------------------------------------------------------------------------------------------
+# all-pairs kernels: blocked matrix products (and the FFT reference they are checked against)
+# ---------------------------------------------------------------------------------------------
+def twist_grid(n_tau: int) -> np.ndarray:
+    return 2.0 * np.pi * np.arange(n_tau) / n_tau
+
+
+def rotated_rows(a: np.ndarray, n_tau: int) -> np.ndarray:
+    """Real rows [Re x, Im x] of x_jm = a_m e^{-i m tau_j}: (n, M) complex -> (n, n_tau, 2M) float32."""
+    n, mc = a.shape
+    m = np.arange(1, mc + 1)
+    rot = np.exp(-1j * np.outer(twist_grid(n_tau), m))  # (n_tau, M)
+    x = a[:, None, :] * rot[None]
+    out = np.empty((n, n_tau, 2 * mc), dtype=np.float32)
+    out[..., :mc] = x.real
+    out[..., mc:] = x.imag
+    return out
+
+
+def column_matrix(b: np.ndarray) -> np.ndarray:
+    """(2M, 2n) float32 columns [Re b; Im b] (same) then [Re b; -Im b] (opposite)."""
+    br = b.real.astype(np.float32).T
+    bi = b.imag.astype(np.float32).T
+    return np.ascontiguousarray(np.block([[br, br], [bi, -bi]]))
+
+
+def blas_max_over_twist(rows: np.ndarray, cols: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """max_j of 2 [Re x_j, Im x_j] . [Re b, +-Im b]: rows (k, n_tau, 2M), cols (2M, c) -> (k, c)."""
+    k, n_tau, two_m = rows.shape
+    c = cols.shape[1]
+    if out is None or out.shape != (k * n_tau, c):
+        out = np.empty((k * n_tau, c), dtype=np.float32)
+    np.matmul(rows.reshape(k * n_tau, two_m), cols, out=out)
+    res = out.reshape(k, n_tau, c).max(axis=1)
+    res *= 2.0
+    return res
+
+
+def fft_max_over_twist(a: np.ndarray, b: np.ndarray, n_tau: int) -> np.ndarray:
+    """Reference: cross-spectra of every pair, inverse FFT over the twist, maximum.
+
+    a (k, M), b (c, M) complex -> (k, 2c) numerators (same columns, then opposite), float32.
+    """
+    k, mc = a.shape
+    res = np.empty((k, 2 * b.shape[0]), dtype=np.float32)
+    a = a.astype(np.complex64)
+    b = b.astype(np.complex64)
+    for o, bb in ((0, np.conj(b)), (1, b)):
+        cross = a[:, None, :] * bb[None, :, :]  # (k, c, M)
+        spec = np.zeros((k, b.shape[0], n_tau // 2 + 1), dtype=np.complex64)
+        spec[..., 1 : mc + 1] = np.conj(cross)
+        # Re sum_m c_m e^{-i m tau_j} = (n_tau / 2) irfft(conj c)_j for c_0 = 0
+        vals = np.fft.irfft(spec, n=n_tau, axis=-1)
+        res[:, o * b.shape[0] : (o + 1) * b.shape[0]] = vals.max(axis=-1) * n_tau
+    return res
+
+
+def block_rows_for(n_tau: int, n_cols: int, mem_bytes: int) -> int:
+    """Rows per block so the float32 product (rows * n_tau, 2 n_cols) stays under mem_bytes."""
+    return int(max(1, mem_bytes // (4 * n_tau * 2 * max(n_cols, 1))))
