@@ -71,6 +71,19 @@ def _targets(args) -> list:
     return out
 
 
+def _readable(write):
+    """Wrap a writer so the file gets the usual mode (0666 less the umask), not mkstemp's 0600."""
+    import os
+
+    def inner(tmp):
+        write(tmp)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)
+
+    return inner
+
+
 def run(args):
     import json
     from pathlib import Path
@@ -114,14 +127,15 @@ def run(args):
                       f"{res.sky.meta.get('params', {})}, seed {params['seed']}") if args.preview else None
     doc = json.dumps(pairs_document(cfg, res), indent=2, allow_nan=False, default=_default) + "\n" \
         if args.pairs else None
-    atomic_write(args.out, lambda tmp: write_fits(tmp, res.map, res.header, dtype=args.dtype))
+    atomic_write(args.out, _readable(lambda tmp: write_fits(tmp, res.map, res.header, dtype=args.dtype)))
     if mpath is not None:
         cards = [c for c in res.header if c[0] in ("TOPOVER", "MASKTYPE", "MASKBDEG")]
-        atomic_write(mpath, lambda tmp: write_fits(tmp, res.mask, cards, dtype="float32", column="MASK", unit=""))
+        atomic_write(mpath, _readable(lambda tmp: write_fits(tmp, res.mask, cards, dtype="float32", column="MASK",
+                                                             unit="")))
     if png is not None:
-        atomic_write(args.preview, lambda tmp: Path(tmp).write_bytes(png))
+        atomic_write(args.preview, _readable(lambda tmp: Path(tmp).write_bytes(png)))
     if doc is not None:
-        atomic_write(args.pairs, lambda tmp: Path(tmp).write_text(doc))
+        atomic_write(args.pairs, _readable(lambda tmp: Path(tmp).write_text(doc)))
     written = [args.out] + ([mpath] if mpath else []) + [p for p in (args.preview, args.pairs) if p]
     print(f"{res.sky.meta.get('family', 'isotropic')}: nside {params['nside']}, lmax {params['lmax']}, "
           f"method {res.sky.meta.get('method')}, terms {','.join(res.sky.terms)}, {len(res.pairs)} predicted pairs")

@@ -129,7 +129,7 @@ def mask_path(out) -> str:
     return stem + "_mask.fits"
 
 
-def preview_png(m: np.ndarray, pairs, title: str = "", n_lon: int = 1200) -> bytes:
+def preview_png(m: np.ndarray, pairs, title: str = "", n_lon: int = 900) -> bytes:
     """A Mollweide PNG of the map with the predicted circles (A solid, B dashed), as bytes.
 
     Longitude grows to the left (astronomical convention of topology.plots.draw_circles).
