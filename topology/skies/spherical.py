@@ -38,10 +38,9 @@ P(n) = exp_x(chi n) of the observer x (chi = chi_rec / R_c), in microK. The Dopp
 terms are not implemented for spherical skies ("doppler", "isw" raise InputError).
 
 Sky. The field on the sky is band-limited to l <= kmax (a degree-k mode seen on a sphere about
-the observer has l <= k), so its a_lm are computed exactly: the field is evaluated on a
-Gauss-Legendre grid in the observer's sky frame and integrated against Y_lm
-by the ring method of :func:`field_alm` (exact Fourier series in longitude, Gauss-Legendre
-rings in colatitude), no pixel quadrature error; :func:`field_alm_by_grid` does the same by
+the observer has l <= k), so its a_lm are computed exactly (no pixel quadrature, no
+healpy.map2alm) by the ring method of :func:`field_alm`: exact Fourier series in longitude,
+Gauss-Legendre rings in colatitude, integrated against Y_lm in the observer's sky frame; :func:`field_alm_by_grid` does the same by
 brute-force evaluation and is its cross-check. The sky keeps its l = 0, 1 terms: the matched-
 circle identity T(P) = T(g^-1 P) holds for the whole field. Power at multipole l comes from
 k >~ l / chi, so a sky with modes up to kmax holds the fraction ~ 1 - 0.55 (l / (kmax chi))^2
