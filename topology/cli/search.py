@@ -1,0 +1,110 @@
+"""``topology search``: matched circles in a HEALPix map (antipodal, all-pairs or targeted)."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+NAME = "search"
+HELP = "search a HEALPix map for matched circles with the S statistic"
+EXAMPLE = "topology search map.fits --mask mask.fits --mode all-pairs --radii 10:90:1 --json"
+
+
+def add_arguments(p):
+    p.add_argument("map", help="HEALPix FITS map (RING or NESTED from the header)")
+    p.add_argument("--mask", metavar="MASK.fits", help="mask (0/1 or apodised weights, any N_side)")
+    p.add_argument("--mode", choices=["antipodal", "all-pairs", "targeted"], help="search mode (default antipodal)")
+    p.add_argument("--radii", metavar="START:STOP:STEP", help="circle radii in degrees, both ends included (default 5:90:1)")
+    p.add_argument("--fwhm", type=float, metavar="DEG", help="Gaussian smoothing FWHM in degrees (default 1)")
+    p.add_argument("--nside-work", type=int, metavar="N", help="working N_side (default 128)")
+    p.add_argument("--m-max", type=int, metavar="M", help="largest circle Fourier mode (default 64)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--plot", metavar="FILE", help="draw S_max against radius and the best pairs (PNG or PDF)")
+    p.add_argument("--resume", action="store_true", help="skip radii finished by an interrupted run")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--config", metavar="CONFIG", help="TOML config: [search] settings; [space], [cosmology], "
+                                                      "[observer] for --mode targeted")
+
+
+def _clean(o):
+    """NaN and infinities -> None, so the JSON is strict."""
+    if isinstance(o, float):
+        return o if math.isfinite(o) else None
+    if isinstance(o, dict):
+        return {k: _clean(v) for k, v in o.items()}
+    if isinstance(o, (list, tuple)):
+        return [_clean(v) for v in o]
+    return o
+
+
+def settings_for(args, cfg):
+    import numpy as np
+
+    from ..errors import InputError
+    from ..search.engine import parse_radii, settings_from
+
+    sec = cfg.section("search") if cfg is not None else {}
+    if "radii" in sec:
+        sec["radii"] = parse_radii(sec["radii"])
+    if "l_weights" in sec:
+        p = Path(sec["l_weights"])
+        if not p.is_absolute():
+            p = cfg.base_dir / p
+        try:
+            sec["l_weights"] = tuple(np.loadtxt(p, ndmin=1).tolist())
+        except (OSError, ValueError) as e:
+            raise InputError(f"cannot read l-weights ({e})", "[search] l_weights") from None
+    if "l_range" in sec and len(sec["l_range"]) != 2:
+        raise InputError("needs [l_min, l_max]", "[search] l_range")
+    return settings_from(sec, mode=args.mode, radii=parse_radii(args.radii) if args.radii else None,
+                         fwhm_deg=args.fwhm, nside_work=args.nside_work, m_max=args.m_max)
+
+
+def run(args):
+    from ..config import load_config
+    from ..search.engine import search_files, validate
+    from ._common import atomic_write, check_writable, print_json
+
+    cfg = load_config(args.config) if args.config else None
+    settings = validate(settings_for(args, cfg))
+    scenario = None
+    if settings.mode == "targeted":
+        from ..errors import InputError
+        from ..scenario import scenario_from_config
+
+        if cfg is None:
+            raise InputError("the targeted search needs a config with [space]", "--config")
+        scenario = scenario_from_config(cfg)
+    if args.plot:
+        check_writable(args.plot, "plot")
+    out = search_files(args.map, args.mask, settings, scenario=scenario, resume=args.resume,
+                       show_progress=False if args.quiet else None)
+    out = _clean(out)
+    if args.plot:
+        from ..search.plot import plot_search
+
+        atomic_write(args.plot, lambda tmp: plot_search(out, tmp))
+    if args.json:
+        print_json(out)
+        return 0
+    s = out["settings"]
+    w = out["work"]
+    print(f"{out['map']}: {s['mode']} search, {len(s['radii_deg'])} radii {min(s['radii_deg']):g}-{max(s['radii_deg']):g} deg, "
+          f"FWHM {s['fwhm_deg']:g} deg, N_side {s['nside_work']}, m <= {s['m_max']}")
+    print(f"{w['pairs']} circle pairs, {w['twists']} pair-twists, {w['modes']} pair-twist-modes in {out['elapsed_s']:.1f} s; "
+          f"{out.get('skipped_circles', 0)} circles skipped (kept fraction < {s['min_kept']:g})")
+    if "targeted" in out:
+        t = out["targeted"]
+        print(f"family {t.get('family')}: best S_combined = {t.get('S_combined')} at Euler angles {t.get('best_euler_deg')} deg")
+    if out["candidates"]:
+        print(f"{'S':>7} {'radius':>8} {'centre A (lon, lat)':>22} {'centre B (lon, lat)':>22} {'twist':>8} {'orient.':>9}")
+        for c in out["candidates"]:
+            a = "({:7.2f}, {:6.2f})".format(*c["center_a"])
+            b = "({:7.2f}, {:6.2f})".format(*c["center_b"])
+            sv = "   n/a" if c["S"] is None else f"{c['S']:7.3f}"
+            print(f"{sv} {c['radius_deg']:7.2f}d {a:>22} {b:>22} {c['twist_deg']:7.2f}d {c['orientation']:>9}")
+    else:
+        print("no candidate pairs")
+    if args.plot:
+        print(f"plot written to {args.plot}")
+    return 0
