@@ -169,3 +169,21 @@ def test_unwritable_output_checked_before_work(tmp_path, capsys):
     rc, _, err = run(capsys, "synth", cfg, "--out", tmp_path / "ok.txt")
     assert rc == 2 and ".fits" in err
     assert sorted(p.name for p in tmp_path.iterdir()) == ["c.toml"]
+
+
+def test_auto_method_threshold(tmp_path, capsys):
+    # documented rule: flat "auto" is the eigenmode sum for lmax <= 64, the grid above
+    from topology.config import config_from_dict
+    from topology.skies import AUTO_EIGENMODE_LMAX, sky_from_config
+
+    assert AUTO_EIGENMODE_LMAX == 64
+    base = {"space": {"family": "E1", "lengths": [1.6, 1.6, 1.6]}}
+    lo, _ = sky_from_config(config_from_dict({**base, "sky": {"nside": 32, "lmax": 64}}))
+    hi, sc = sky_from_config(config_from_dict({**base, "sky": {"nside": 32, "lmax": 65}}))
+    assert lo.meta["method"] == "eigenmode" and lo.alm is not None
+    assert hi.meta["method"] == "grid" and hi.map is not None and sc.space.family == "E1"
+    # spherical families refuse the grid method
+    cfg = write(tmp_path, '[cosmology]\nomega_k = -0.05\n[space]\nfamily = "dodecahedral"\n[sky]\nnside = 16\n'
+                'lmax = 10\nkmax = 20\nmethod = "grid"\n')
+    rc, _, err = run(capsys, "synth", cfg, "--out", tmp_path / "d.fits")
+    assert rc == 2 and "[sky] method" in err
