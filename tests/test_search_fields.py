@@ -70,14 +70,12 @@ def test_invariant_field_is_invariant(family, lengths):
     hol = space.elements_within(obs, 2.0)
     for g in hol.matrices[:10]:
         x = obs.exp(dirs, 1.0) @ g.T  # g x in homogeneous coordinates
-        xo = geo.Observer.make("flat", [0.0, 0.0, 0.0])
         d = x[:, :3] / np.linalg.norm(x[:, :3], axis=1, keepdims=True)
         r = np.linalg.norm(x[:, :3], axis=1)
         # evaluate at g x directly: directions from the origin observer at distance r
         t1 = np.array([invariant_field(space, _at(r_i), 0, 11, n_waves=200, qmax=6.0, directions=d_i[None])[0]
                        for r_i, d_i in zip(r, d)])
         assert np.allclose(t0, t1, atol=1e-9 * np.abs(t0).max())
-    del xo
 
 
 def _at(r):
