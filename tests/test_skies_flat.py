@@ -4,6 +4,7 @@ grid against eigenmode method, determinism and bad input."""
 import healpy as hp
 import numpy as np
 import pytest
+from scipy.signal import fftconvolve
 from scipy.special import spherical_jn
 
 from topology import geometry as geo
@@ -262,6 +263,8 @@ def test_bad_input_raises_input_error():
         flat_sky(e1, OBSERVER, COSMO, lmax=1500, nside=1024, method="eigenmode", seed=0)
     with pytest.raises(InputError, match="terms"):
         flat_sky(e1, OBSERVER, COSMO, lmax=10, method="eigenmode", terms=("sw", "doppler"), seed=0)
+    with pytest.raises(InputError, match="terms"):
+        flat_sky(e1, OBSERVER, COSMO, lmax=10, method="eigenmode", terms=("doppler",), seed=0)
     with pytest.raises(InputError, match="method"):
         flat_sky(e1, OBSERVER, COSMO, lmax=10, method="fast", seed=0)
     with pytest.raises(InputError, match="nside"):
@@ -270,3 +273,79 @@ def test_bad_input_raises_input_error():
         flat_sky(e1, OBSERVER, COSMO, lmax=100, nside=16, method="grid", seed=0)
     with pytest.raises(InputError, match="nside"):
         flat_sky(e1, OBSERVER, COSMO, lmax=10, method="grid", seed=0)
+
+
+# ---------------------------------------------------------------------------------------------
+# SW + Doppler + ISW from CAMB's transfer (eigenmode method)
+# ---------------------------------------------------------------------------------------------
+FULL = ("sw", "doppler", "isw")
+
+
+def test_camb_transfer_torus_mode_sum_matches_camb_cl():
+    # check: CAMB (camb_cl, unlensed TT): C_l = 4 pi int dk/k P_R Delta_l^2, so the mode sum
+    # 4 pi sum_q sigma_q^2 (5 Delta_l(q))^2 of a cubic torus of side 6 chi_rec (k chi <= 300)
+    # reproduces CAMB's spectrum at l = 2..10 to 1.5% (CAMB's own C_l and its transfer
+    # integral differ by ~0.5%). Shells |n|^2 = s of the cubic lattice with their counts.
+    from topology.skies.spectra import camb_cl
+    from topology.skies.transfer import temperature_transfer
+
+    lmax, side, kmax = 10, 6.0, 300.0
+    nm = int(kmax * side / (2 * np.pi))
+    c1 = np.bincount(np.arange(-nm, nm + 1) ** 2).astype(float)
+    c2 = np.rint(fftconvolve(c1, c1))[: len(c1)]
+    counts = np.rint(fftconvolve(c2, c1))[1: len(c1)]
+    s = np.arange(1, len(counts) + 1)
+    k = 2 * np.pi * np.sqrt(s) / side
+    sel = (k <= kmax) & (counts > 0)
+    k, counts = k[sel], counts[sel]
+    sig2 = flat.mode_sigma(k, COSMO, side**3) ** 2
+    delta = temperature_transfer(COSMO, lmax)(np.arange(lmax + 1), k / COSMO.chi_rec_mpc)
+    expect = 4 * np.pi * ((5 * delta) ** 2 @ (counts * sig2))
+    ref = camb_cl(COSMO, lmax)
+    assert np.all(np.abs(expect[2:] / ref[2:] - 1.0) < 0.015)
+
+
+def test_full_terms_sky_spectrum_and_degraded_circles():
+    # check: a big torus (side 6 chi_rec) with CAMB's transfer has on average the mode-sum
+    # spectrum (cosmic variance, 3 skies, l = 2..8); the Doppler term (direction dependent)
+    # and the ISW term (line of sight) do not match on circles, so the circle correlation of
+    # the cubic torus of side 1.6 drops below the SW value (from memory: Cornish, Spergel &
+    # Starkman 1998 note that Doppler and ISW dilute the match) but stays well above random.
+    from topology.skies.transfer import temperature_transfer
+
+    space = build_space({"family": "E1", "lengths": [6.0, 6.0, 6.0]})
+    obs = geo.Observer.make("flat", [0.3, 1.1, -2.0])
+    lmax = 8
+    cls = np.array([_cl(flat_sky(space, obs, COSMO, lmax=lmax, method="eigenmode", seed=s, kchi_max=40.0,
+                                 terms=FULL).alm, lmax) for s in range(3)])
+    _, k, _ = flat.half_ball_modes(space, 40.0)
+    kn = np.linalg.norm(k, axis=1)
+    sig2 = flat.mode_sigma(kn, COSMO, space.covering_cell_volume) ** 2
+    delta = temperature_transfer(COSMO, lmax)(np.arange(lmax + 1), kn / COSMO.chi_rec_mpc)
+    expect = 4 * np.pi * 2 * ((5 * delta) ** 2 @ sig2)
+    ell = np.arange(2, lmax + 1)
+    sigma = np.sqrt(2.0 / ((2 * ell + 1) * len(cls)))
+    assert np.all(np.abs(cls.mean(axis=0)[2:] / expect[2:] - 1) < 3 * sigma)
+    assert np.all(cls[:, :2] < 1e-20)  # no monopole or dipole from the transfer
+
+    torus = build_space({"family": "E1", "lengths": [1.6, 1.6, 1.6]})
+    pairs = predict_circles(torus, OBSERVER, 1.0)
+    phi = np.linspace(0.0, 2.0 * np.pi, 256, endpoint=False)
+    corr = {}
+    for terms in (("sw",), FULL):
+        sky = flat_sky(torus, OBSERVER, COSMO, lmax=60, nside=64, method="eigenmode", seed=11, kchi_max=40.0,
+                       terms=terms)
+        m = hp.alm2map(sky.alm, 64, lmax=60)
+        corr[terms] = [_pearson(_interp(m, circle_points(p.center_a, p.radius, phi)),
+                                _interp(m, circle_points(p.center_b, p.radius, p.orientation * phi + p.twist)))
+                       for p in pairs]
+    assert min(corr[("sw",)]) >= 0.99
+    assert 0.3 < np.mean(corr[FULL]) < 0.95
+
+
+def test_full_terms_need_the_eigenmode_method():
+    e1 = build_space({"family": "E1", "lengths": [1.6, 1.6, 1.6]})
+    with pytest.raises(InputError, match="grid"):
+        flat_sky(e1, OBSERVER, COSMO, lmax=10, nside=16, method="grid", terms=FULL, seed=0)
+    sky = flat_sky(e1, OBSERVER, COSMO, lmax=100, nside=64, method="auto", terms=FULL, seed=0, kchi_max=10.0)
+    assert sky.kind == "alm" and sky.meta["transfer"] == "camb"
