@@ -39,12 +39,19 @@ def check_writable(path: str | Path, what: str = "output") -> Path:
     return p
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def atomic_write(path: str | Path, write) -> None:
     """Call ``write(tmp_path)`` then rename into place, so no half-written file is ever left."""
     p = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=p.suffix, dir=p.parent if str(p.parent) else ".")
     os.close(fd)
     try:
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual permissions
         write(tmp)
         with open(tmp, "rb") as fh:
             os.fsync(fh.fileno())
