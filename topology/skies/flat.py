@@ -85,9 +85,9 @@ from .spectra import A_S, K_PIVOT, N_S, primordial_power
 BLOCK = 16                 # side of a block of lattice indices drawn from one SeedSequence
 _OFFSET = 1 << 20          # shifts block indices to non-negative spawn keys
 COMPACT_FAMILIES = ("E1", "E2", "E3", "E4", "E5", "E6", "E7", "E8", "E9", "E10")
-MAX_EIGEN_WORK = 4.0e9     # eigenmode guard: (modes in the half ball) x (a_lm with m >= 0)
+MAX_EIGEN_WORK = 2.0e9     # eigenmode guard: (modes in the half ball) x (a_lm with m >= 0)
 MAX_GRID_CELLS = 2.0e9     # grid guard: cells of the FFT grid
-MODE_BLOCK = 4096          # modes per block of the eigenmode sum
+MODE_BLOCK = 8192          # modes per block of the eigenmode sum
 METHODS = ("eigenmode", "grid", "auto")
 AUTO_LMAX = 64             # method "auto": eigenmode up to this lmax, grid above
 
@@ -155,19 +155,14 @@ def _threads(workers: int | None) -> int:
     return max(1, min(int(workers), n))
 
 
-def unit_normals_half(seed: int, m: np.ndarray, D: np.ndarray | None = None, kchi_max: float | None = None,
-                      workers: int | None = None) -> np.ndarray:
-    """z_n for n1 in [-m1, m1], n2 in [-m2, m2], n3 in [0, m3] (complex64, shape (2m1+1, 2m2+1, m3+1)).
+def _blocks(m: np.ndarray, D: np.ndarray | None, kchi_max: float | None) -> list:
+    """Blocks (b, start, end) covering n1 in [-m1, m1], n2 in [-m2, m2], n3 in [0, m3].
 
-    Hermitian on the n3 = 0 plane (z_{-n} = conj z_n, z_0 = 0), so the full Hermitian field
-    follows by z_{-n} = conj(z_n). With the dual basis D and kchi_max, blocks lying wholly
-    outside the ball |2 pi n D| <= kchi_max are left at zero (lower bound
-    |k|^2 >= lambda_min(G) |n|^2, G = 4 pi^2 D D^T).
+    With the dual basis D and kchi_max, blocks wholly outside the ball |2 pi n D| <= kchi_max
+    are dropped (lower bound |k|^2 >= lambda_min(G) |n|^2, G = 4 pi^2 D D^T).
     """
-    m = np.asarray(m, dtype=np.int64)
     lo = np.array([-m[0], -m[1], 0])
     hi = np.array([m[0], m[1], m[2]])
-    out = np.zeros((hi - lo + 1), dtype=np.complex64)
     blo = lo // BLOCK
     bhi = hi // BLOCK
     lam = None
@@ -185,12 +180,19 @@ def unit_normals_half(seed: int, m: np.ndarray, D: np.ndarray | None = None, kch
                     if lam * float(near @ near) > kchi_max**2 * (1 + 1e-9):
                         continue
                 jobs.append((b, s, e))
+    return jobs
+
+
+def _fill_blocks(seed: int, jobs: list, out: np.ndarray, offset, workers: int | None) -> None:
+    """Write the normals of each block into ``out`` at index n + offset (per axis)."""
+    offset = np.asarray(offset)
 
     def fill(part):
         for b, s, e in part:
             z = _block_normals(seed, tuple(b))
             o = b * BLOCK
-            out[s[0] - lo[0]:e[0] - lo[0] + 1, s[1] - lo[1]:e[1] - lo[1] + 1, s[2]:e[2] + 1] = \
+            d0 = s + offset
+            out[d0[0]:d0[0] + e[0] - s[0] + 1, d0[1]:d0[1] + e[1] - s[1] + 1, d0[2]:d0[2] + e[2] - s[2] + 1] = \
                 z[s[0] - o[0]:e[0] - o[0] + 1, s[1] - o[1]:e[1] - o[1] + 1, s[2] - o[2]:e[2] - o[2] + 1]
 
     nt = min(_threads(workers), max(1, len(jobs) // 8))
@@ -199,15 +201,54 @@ def unit_normals_half(seed: int, m: np.ndarray, D: np.ndarray | None = None, kch
             list(ex.map(fill, [jobs[i::nt] for i in range(nt)]))
     else:
         fill(jobs)
-    # n3 = 0 plane: keep n2 > 0 (and n2 = 0, n1 > 0), mirror the rest
-    plane = out[:, :, 0]
-    mirrored = np.conj(plane[::-1, ::-1])
-    i1 = np.arange(-m[0], m[0] + 1)[:, None]
-    i2 = np.arange(-m[1], m[1] + 1)[None, :]
-    keep = (i2 > 0) | ((i2 == 0) & (i1 > 0))
-    out[:, :, 0] = np.where(keep, plane, mirrored)
-    out[m[0], m[1], 0] = 0.0
+
+
+def _hermitian_plane(plane: np.ndarray, n1: np.ndarray, n2: np.ndarray, mirror1, mirror2) -> None:
+    """On the n3 = 0 plane keep n2 > 0 (and n2 = 0, n1 > 0) and set z_{-n} = conj z_n, z_0 = 0.
+
+    n1, n2: the signed index of each row / column; mirror1/2: the row / column of -n.
+    """
+    mirrored = np.conj(plane[mirror1][:, mirror2])
+    keep = (n2[None, :] > 0) | ((n2[None, :] == 0) & (n1[:, None] > 0))
+    plane[...] = np.where(keep, plane, mirrored)
+    plane[(n1[:, None] == 0) & (n2[None, :] == 0)] = 0.0
+
+
+def unit_normals_half(seed: int, m: np.ndarray, D: np.ndarray | None = None, kchi_max: float | None = None,
+                      workers: int | None = None) -> np.ndarray:
+    """z_n for n1 in [-m1, m1], n2 in [-m2, m2], n3 in [0, m3] (complex64, shape (2m1+1, 2m2+1, m3+1)).
+
+    Hermitian on the n3 = 0 plane (z_{-n} = conj z_n, z_0 = 0), so the full Hermitian field
+    follows by z_{-n} = conj(z_n). With D and kchi_max, blocks outside the ball stay zero.
+    """
+    m = np.asarray(m, dtype=np.int64)
+    out = np.zeros((2 * m[0] + 1, 2 * m[1] + 1, m[2] + 1), dtype=np.complex64)
+    _fill_blocks(seed, _blocks(m, D, kchi_max), out, (m[0], m[1], 0), workers)
+    i1 = np.arange(-m[0], m[0] + 1)
+    i2 = np.arange(-m[1], m[1] + 1)
+    _hermitian_plane(out[:, :, 0], i1, i2, slice(None, None, -1), slice(None, None, -1))
     return out
+
+
+def unit_normals_fft(seed: int, m: np.ndarray, shape, D: np.ndarray | None = None, kchi_max: float | None = None,
+                     workers: int | None = None) -> np.ndarray:
+    """The normals of :func:`unit_normals_half` written straight into the half spectrum of an
+    rfft grid of ``shape`` (complex64 (N1, N2, N3//2 + 1), index n mod N); zero elsewhere."""
+    m = np.asarray(m, dtype=np.int64)
+    N1, N2, N3 = shape
+    spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
+    jobs = _blocks(m, D, kchi_max)
+    # a block never straddles n = 0, so its rows land contiguously at n mod N
+    groups = {}
+    for b, s, e in jobs:
+        off = (N1 if s[0] < 0 else 0, N2 if s[1] < 0 else 0, 0)
+        groups.setdefault(off, []).append((b, s, e))
+    for off, part in groups.items():
+        _fill_blocks(seed, part, spec, off, workers)
+    n1 = np.where(np.arange(N1) <= N1 // 2, np.arange(N1), np.arange(N1) - N1)
+    n2 = np.where(np.arange(N2) <= N2 // 2, np.arange(N2), np.arange(N2) - N2)
+    _hermitian_plane(spec[:, :, 0], n1, n2, (-np.arange(N1)) % N1, (-np.arange(N2)) % N2)
+    return spec
 
 
 def unit_normals_full(seed: int, m: np.ndarray, D: np.ndarray | None = None, kchi_max: float | None = None,
@@ -293,8 +334,9 @@ def plane_wave_alm(k_sky: np.ndarray, coef: np.ndarray, r: float, lmax: int, rad
     nalm = (lmax + 1) * (lmax + 2) // 2
     alm = np.zeros(nalm, dtype=np.complex128)
     ell = np.arange(lmax + 1)
-    il = (1j) ** ell
-    start = np.array([_alm_index(lmax, mm, mm) for mm in range(lmax + 1)])
+    phase = 4.0 * np.pi * (1j) ** ell
+    even_l = (ell % 2 == 0)
+    # recursion coefficients a_lm, b_lm of P_lm = a (x P_{l-1,m} - b P_{l-2,m})
     for b0 in range(0, len(coef), MODE_BLOCK):
         kv = np.asarray(k_sky[b0:b0 + MODE_BLOCK], dtype=float)
         cf = np.asarray(coef[b0:b0 + MODE_BLOCK], dtype=np.complex128)
@@ -302,34 +344,42 @@ def plane_wave_alm(k_sky: np.ndarray, coef: np.ndarray, r: float, lmax: int, rad
         x = np.clip(kv[:, 2] / kn, -1.0, 1.0)
         s = np.sqrt(np.maximum(0.0, 1.0 - x * x))
         phi = np.arctan2(kv[:, 1], kv[:, 0])
+        # radial functions once per distinct |k| (lattice shells repeat it many times)
+        ku, inv = np.unique(np.round(kn, 12), return_inverse=True)
         if radial is None:
-            jl = spherical_jn(ell[:, None], kn[None, :] * r)  # (lmax+1, M)
+            jl = spherical_jn(ell[:, None], ku[None, :] * r)[:, inv]  # (lmax+1, M)
         else:
-            jl = radial(ell, kn)
-        even = 2.0 * cf.real                     # coef + conj(coef)
-        odd = 2j * cf.imag                       # coef - conj(coef)
-        # w[l, q] = 4 pi i^l j_l [coef + (-1)^l conj(coef)]
-        w = jl * np.where((ell % 2 == 0)[:, None], even[None, :], odd[None, :]) * (4.0 * np.pi * il)[:, None]
+            jl = radial(ell, ku)[:, inv]
+        d_even = 2.0 * cf.real                   # coef + conj(coef)
+        d_odd = 2.0 * cf.imag                    # (coef - conj(coef)) / i
         emphi = np.exp(-1j * phi)                # Y*_lm carries e^{-i m phi}
         em = np.ones_like(emphi)
         pmm = np.full(len(kn), math.sqrt(1.0 / (4.0 * np.pi)))
+        P = np.empty((lmax + 1, len(kn)))
         for mm in range(lmax + 1):
             if mm > 0:
                 pmm = -math.sqrt((2 * mm + 1) / (2.0 * mm)) * s * pmm
                 em = em * emphi
-            wm = w[mm:, :] * em[None, :]
-            i0 = start[mm]
-            alm[i0] += wm[0] @ pmm
-            if mm == lmax:
-                continue
-            p_prev = pmm
-            p_cur = math.sqrt(2 * mm + 3) * x * pmm
-            alm[i0 + 1] += wm[1] @ p_cur
+            P[0] = pmm
+            if mm < lmax:
+                P[1] = math.sqrt(2 * mm + 3) * x * pmm
             for ll in range(mm + 2, lmax + 1):
                 a = math.sqrt((4.0 * ll * ll - 1.0) / (ll * ll - mm * mm))
-                b = math.sqrt(((ll - 1.0) ** 2 - mm * mm) / (4.0 * (ll - 1.0) ** 2 - 1.0))
-                p_prev, p_cur = p_cur, a * (x * p_cur - b * p_prev)
-                alm[i0 + ll - mm] += wm[ll - mm] @ p_cur
+                bb = math.sqrt(((ll - 1.0) ** 2 - mm * mm) / (4.0 * (ll - 1.0) ** 2 - 1.0))
+                j = ll - mm
+                np.multiply(x, P[j - 1], out=P[j])
+                P[j] -= bb * P[j - 2]
+                P[j] *= a
+            nl = lmax + 1 - mm
+            JP = jl[mm:] * P[:nl]
+            ue = d_even * em
+            uo = d_odd * em
+            U = np.stack([ue.real, ue.imag, uo.real, uo.imag], axis=1)
+            R = JP @ U                               # (nl, 4), BLAS
+            ev = even_l[mm:]
+            val = np.where(ev, R[:, 0] + 1j * R[:, 1], 1j * (R[:, 2] + 1j * R[:, 3]))
+            i0 = _alm_index(lmax, mm, mm)
+            alm[i0:i0 + nl] += phase[mm:] * val
     return alm
 
 
@@ -379,8 +429,11 @@ def _sw_sigma_box(D, m, kchi_max, cosmology, volume):
     i3 = np.arange(0, m[2] + 1, dtype=f32)[None, None, :]
     G = (4.0 * np.pi**2 * (D @ D.T)).astype(f32)
     k2 = (G[0, 0] * i1 * i1 + 2 * G[0, 1] * i1 * i2 + G[1, 1] * i2 * i2)  # (.., .., 1)
-    k2 = k2 + (2 * G[0, 2] * i1 + 2 * G[1, 2] * i2) * i3
-    k2 += G[2, 2] * i3 * i3
+    if G[0, 2] == 0 and G[1, 2] == 0:
+        k2 = k2 + G[2, 2] * i3 * i3
+    else:
+        k2 = k2 + (2 * G[0, 2] * i1 + 2 * G[1, 2] * i2) * i3
+        k2 += G[2, 2] * i3 * i3
     t_uk = cosmology.t_cmb * 1e6
     C = (t_uk / 5.0) * math.sqrt(2.0 * np.pi**2 * A_S / volume) * (cosmology.chi_rec_mpc * K_PIVOT) ** ((1.0 - N_S) / 2)
     outside = k2 > f32(kchi_max**2 * (1 + 1e-6))
@@ -404,25 +457,24 @@ def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float =
         raise InputError(f"the grid method would need {shape} cells (> {MAX_GRID_CELLS:.0e}); lower lmax or "
                          "enlarge the space", "[sky] lmax")
     N1, N2, N3 = shape
-    spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
     group = point_group(space)
     A = space.lattice
     D = np.linalg.inv(A).T
     if len(group) == 1:
-        # dense fast path for the torus E1: c = -sigma z on the half box, written by quadrants
+        # dense fast path for the torus E1: c = -sigma z written by quadrants of the spectrum
         m = index_bounds(A, kchi_max)
-        vals = unit_normals_half(seed, m, D, kchi_max, workers)
+        spec = unit_normals_fft(seed, m, shape, D, kchi_max, workers)
         sig = _sw_sigma_box(D, m, kchi_max, cosmology, space.covering_cell_volume)
         sig *= -_bspline_deconv(np.arange(-m[0], m[0] + 1), N1)[:, None, None]
-        sig *= _bspline_deconv(np.arange(-m[1], m[1] + 1), N2)[None, :, None]
-        sig *= _bspline_deconv(np.arange(0, m[2] + 1), N3)[None, None, :]
-        vals *= sig
-        del sig
+        d23 = (_bspline_deconv(np.arange(-m[1], m[1] + 1), N2)[:, None]
+               * _bspline_deconv(np.arange(0, m[2] + 1), N3)[None, :])
+        sig *= d23[None, :, :]
         for src1, dst1 in ((slice(m[0], None), slice(0, m[0] + 1)), (slice(0, m[0]), slice(N1 - m[0], N1))):
             for src2, dst2 in ((slice(m[1], None), slice(0, m[1] + 1)), (slice(0, m[1]), slice(N2 - m[1], N2))):
-                spec[dst1, dst2, : m[2] + 1] = vals[src1, src2, :]
-        del vals
+                spec[dst1, dst2, : m[2] + 1] *= sig[src1, src2, :]
+        del sig
     else:
+        spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
         n, _, c = invariant_coefficients(space, cosmology, seed, kchi_max, workers)
         c = c * (_bspline_deconv(n[:, 0], N1) * _bspline_deconv(n[:, 1], N2) * _bspline_deconv(n[:, 2], N3))
         spec[n[:, 0] % N1, n[:, 1] % N2, n[:, 2]] = c
