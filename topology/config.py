@@ -112,7 +112,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "n_phi": Key((int,), None, "samples per circle (default 2 m_max + 2, at least 2 m_max + 1)", _positive),
         "centre_nside": Key((int,), 16, "N_side of the coarse centre grid (refined by factors 2 to FWHM/2)", _power_of_two),
         "level_smoothing": Key(NUMBER, 1.2, "coarse levels smooth to max(FWHM, this * grid step)", _positive),
-        "n_keep": Key((int,), 32, "candidates per radius and orientation kept between levels", _positive),
+        "n_keep": Key((int,), 64, "candidates per radius and orientation kept between levels", _positive),
         "n_pool": Key((int,), 8, "all-pairs: n_pool * n_keep best coarse pairs before removing neighbours", _positive),
         "n_report": Key((int,), 3, "candidates per radius and orientation in the output", _positive),
         "n_candidates": Key((int,), 20, "best candidates overall in the output", _positive),

@@ -34,7 +34,7 @@ class SearchSettings:
     n_phi: int | None = None  # default 2 m_max + 2
     centre_nside: int = 16  # coarse centre grid
     level_smoothing: float = 1.2  # kappa: FWHM_l = max(FWHM, kappa * step_l)
-    n_keep: int = 32  # candidates per radius and orientation kept between levels
+    n_keep: int = 64  # candidates per radius and orientation kept between levels
     n_pool: int = 8  # all-pairs: n_pool * n_keep best coarse pairs before removing neighbours
     n_report: int = 3  # candidates per radius and orientation reported
     n_candidates: int = 20  # best candidates overall in the output

@@ -46,7 +46,8 @@ class Level:
 
 
 def centre_levels(centre_nside: int, nside_work: int, fwhm: float, kappa: float) -> list[Level]:
-    """Grids c_0, 2 c_0, ... until step < FWHM / 2 or the working N_side is reached."""
+    """Grids c_0, 2 c_0, ... until the step is below FWHM / 4 (at most 4 N_side_work: the last
+    levels polish centres between the working pixels, which interpolation allows)."""
     import healpy as hp
 
     out = []
@@ -54,7 +55,7 @@ def centre_levels(centre_nside: int, nside_work: int, fwhm: float, kappa: float)
     while True:
         step = hp.nside2resol(c)
         out.append(Level(c, step, max(fwhm, kappa * step)))
-        if step < fwhm / 2.0 or c >= nside_work:
+        if step < fwhm / 4.0 or c >= 4 * nside_work:
             break
         c *= 2
     return out
@@ -188,12 +189,14 @@ class _Hierarchical(Mode):
                      "kept": int(len(orient))})
         # refinement levels ------------------------------------------------------------------
         s_val = twist = None
-        for prev, lv in zip(levels[:-1], levels[1:]):
-            ca, cb, orient, s_val, twist, m_cut, n_skip = self.refine(ctx, lv, prev, radius, ca, cb, orient, work)
+        for depth, (prev, lv) in enumerate(zip(levels[:-1], levels[1:])):
+            keep = max(8, s.n_keep >> depth)  # fewer candidates once the smoothing is close to FWHM
+            ca, cb, orient, s_val, twist, m_cut, n_skip = self.refine(ctx, lv, prev, radius, ca, cb, orient, work, keep)
             info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "m_cut": int(m_cut),
                          "kept": int(len(orient))})
         if s_val is None:  # a single level: evaluate the coarse candidates exactly
-            ca, cb, orient, s_val, twist, m_cut, n_skip = self.refine(ctx, levels[0], None, radius, ca, cb, orient, work)
+            ca, cb, orient, s_val, twist, m_cut, n_skip = self.refine(ctx, levels[0], None, radius, ca, cb, orient, work,
+                                                                      s.n_keep)
         final_level = levels[-1].nside
         cands = []
         s_max = {}
@@ -201,7 +204,9 @@ class _Hierarchical(Mode):
             sel = np.flatnonzero(orient == o)
             if sel.size == 0:
                 continue
-            order = sel[np.argsort(-s_val[sel], kind="stable")][: s.n_report]
+            # distinct reported pairs: no two within 2 FWHM (or a coarse step) of each other
+            reach = max(2.0 * np.radians(s.fwhm_deg), levels[0].step)
+            order = sel[distinct(ca[sel], cb[sel], s_val[sel], s.n_report, reach)]
             name = st.ORIENTATION_NAME[o]
             s_max[name] = float(s_val[order[0]])
             for i in order:
@@ -219,7 +224,7 @@ class _Hierarchical(Mode):
             pix = np.array([hp.vec2pix(nside, *vec)])
         return pix
 
-    def refine(self, ctx, lv: Level, prev: Level | None, radius, ca, cb, orient, work):
+    def refine(self, ctx, lv: Level, prev: Level | None, radius, ca, cb, orient, work, n_keep: int):
         """Evaluate every finer-grid combination around each candidate; keep the best."""
         import healpy as hp
 
@@ -276,7 +281,7 @@ class _Hierarchical(Mode):
         keep = []
         for o in (st.SAME, st.OPPOSITE):
             sel = np.flatnonzero(po == o)
-            pick = distinct(centers[ia[sel]], centers[ib[sel]], s_val[sel], s.n_keep, 2.0 * lv.step)
+            pick = distinct(centers[ia[sel]], centers[ib[sel]], s_val[sel], n_keep, lv.step)
             keep.append(sel[pick])
         keep = np.concatenate(keep)
         return (centers[ia[keep]], centers[ib[keep]], po[keep], s_val[keep], twist[keep], m_cut,
@@ -322,7 +327,7 @@ class AntipodalMode(_Hierarchical):
         sv, _ = st.best_twist(circ, circ, first, anti[first], m_cut, s.min_overlap)
         _add(work, first.size, 16 * (m_cut + 1), m_cut)
         ia, orient = [], []
-        reach = 2.0 * hp.nside2resol(nside)
+        reach = hp.nside2resol(nside)
         c = circ.centers[first]
         for o in (st.SAME, st.OPPOSITE):
             order = distinct(c, -c, sv[:, o], s.n_keep, reach)
@@ -345,7 +350,7 @@ class AllPairsMode(_Hierarchical):
         ia, ib, orient, sv = allpairs_top(a, circ.centers, valid, twist_count(m_cut, s.twist_oversample),
                                           s.n_pool * s.n_keep, np.radians(s.min_separation_deg),
                                           s.kernel_mem_mb * (1 << 20), work, m_cut)
-        reach = 2.0 * hp.nside2resol(hp.npix2nside(len(circ)))
+        reach = hp.nside2resol(hp.npix2nside(len(circ)))
         keep = []
         for o in (st.SAME, st.OPPOSITE):
             sel = np.flatnonzero(orient == o)
