@@ -28,8 +28,8 @@ from .base import TERMS, Sky
 __all__ = ["Sky", "TERMS", "SynthResult", "sky_params", "sky_from_config", "synthesize",
            "AUTO_EIGENMODE_LMAX", "default_kmax"]
 
-#: flat "auto" method: eigenmode sum up to this lmax, grid above
-AUTO_EIGENMODE_LMAX = 64
+#: flat "auto" method: eigenmode sum up to this lmax, grid above (the rule lives in skies.flat)
+from .flat import AUTO_LMAX as AUTO_EIGENMODE_LMAX  # noqa: E402
 #: the family name of the simply connected (isotropic) sky
 ISOTROPIC = "isotropic"
 
@@ -123,9 +123,7 @@ def sky_from_config(cfg, params: dict | None = None):
     sc = scenario_from_config(cfg)   # unknown family, invalid parameters -> InputError here
     geometry = sc.space.geometry
     if geometry == "flat":
-        method = p["method"]
-        if method == "auto":
-            method = "eigenmode" if p["lmax"] <= AUTO_EIGENMODE_LMAX else "grid"
+        method = p["method"]  # "auto" is resolved by flat_sky (it also knows the CAMB-term rule)
         from .flat import flat_sky
 
         sky = flat_sky(sc.space, sc.observer, sc.cosmology, lmax=p["lmax"], nside=p["nside"], method=method,
