@@ -275,9 +275,21 @@ class PreparedMap:
     @property
     def sample_mask(self) -> np.ndarray:
         """The working mask upgraded (copied) to :attr:`nside_sample`."""
-        key = "mask"
+        return self.level_mask(0.0)
+
+    def level_mask(self, fwhm_rad: float, leak: float = 0.5) -> np.ndarray:
+        """Kept pixels (N_side :attr:`nside_sample`) of a map smoothed to ``fwhm_rad``: the working
+        mask minus the pixels where more than ``leak`` of the beam falls on masked sky (there the
+        zero-filled sky leaks in): kept where the mask smoothed with the same beam is >= 1 - leak."""
+        import healpy as hp
+
+        key = ("mask", round(float(fwhm_rad), 12))
         if key not in self._cache:
-            self._cache[key] = regrade_weights(self.mask.astype(np.float64), self.nside_sample) > 0.5
+            base = regrade_weights(self.mask.astype(np.float64), self.nside_sample) > 0.5
+            if fwhm_rad > 0 and not base.all():
+                sm = hp.smoothing(base.astype(np.float64), fwhm=fwhm_rad, lmax=min(self.lmax, 3 * self.nside_sample - 1))
+                base = base & (sm >= 1.0 - leak)
+            self._cache[key] = base
         return self._cache[key]
 
     @property

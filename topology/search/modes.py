@@ -79,6 +79,12 @@ class SearchContext:
             return None
         return self.prepared.sample_mask
 
+    def level_mask(self, level: Level) -> np.ndarray | None:
+        """Kept pixels of the level's map: the mask shrunk where its smoothing leaks masked sky."""
+        if self.prepared.mask.all():
+            return None
+        return self.prepared.level_mask(level.fwhm)
+
 
 # ---------------------------------------------------------------------------------------------
 # the interface
@@ -176,7 +182,7 @@ class _Hierarchical(Mode):
         # level 0 --------------------------------------------------------------------------
         lv = levels[0]
         centers = centre_grid(lv.nside)
-        circ = sample_circles(ctx.level_map(lv), centers, radius, s.n_phi, s.m_max, mask)
+        circ = sample_circles(ctx.level_map(lv), centers, radius, s.n_phi, s.m_max, ctx.level_mask(lv))
         valid = circ.kept_fraction >= s.min_kept
         skipped = int((~valid).sum())
         m_cut = st.effective_m_cut(circ.coeffs[valid] if valid.any() else circ.coeffs, s.m_max, s.power_fraction)
@@ -206,7 +212,7 @@ class _Hierarchical(Mode):
                 continue
             # distinct reported pairs: no two within 2 FWHM (or a coarse step) of each other
             reach = max(2.0 * np.radians(s.fwhm_deg), levels[0].step)
-            order = sel[distinct(ca[sel], cb[sel], s_val[sel], s.n_report, reach)]
+            order = sel[distinct(ca[sel], cb[sel], self._rank[sel], s.n_report, reach)]
             name = st.ORIENTATION_NAME[o]
             s_max[name] = float(s_val[order[0]])
             for i in order:
@@ -264,7 +270,7 @@ class _Hierarchical(Mode):
             centers = np.array(hp.pix2vec(lv.nside, ub)).T
             ia = np.searchsorted(ub, pa)
             ib = np.searchsorted(ub, pb)
-        circ = sample_circles(ctx.level_map(lv), centers, radius, s.n_phi, s.m_max, mask)
+        circ = sample_circles(ctx.level_map(lv), centers, radius, s.n_phi, s.m_max, ctx.level_mask(lv))
         valid = circ.kept_fraction >= s.min_kept
         m_cut = st.effective_m_cut(circ.coeffs[valid] if valid.any() else circ.coeffs, s.m_max, s.power_fraction)
         ok = valid[ia] & valid[ib]
@@ -272,18 +278,20 @@ class _Hierarchical(Mode):
             sep_cos = np.einsum("ij,ij->i", centers[ia], centers[ib])
             ok &= sep_cos < math.cos(np.radians(s.min_separation_deg))
         ia, ib, po = ia[ok], ib[ok], po[ok]
-        sv, tw = st.best_twist(circ, circ, ia, ib, m_cut, s.min_overlap)
+        sv, tw, fr = st.best_twist(circ, circ, ia, ib, m_cut, s.min_overlap, with_overlap=True, orient=po)
         r = np.arange(ia.size)
         s_val = sv[r, po]
         twist = tw[r, po]
-        _add(work, ia.size, 16 * (m_cut + 1), m_cut)
+        rank = s_val * np.sqrt(fr[r, po])  # S sqrt(f): cut and full circles on one scale
+        _add(work, ia.size, 8 * (m_cut + 1), m_cut)
         # keep the n_keep best per orientation
         keep = []
         for o in (st.SAME, st.OPPOSITE):
             sel = np.flatnonzero(po == o)
-            pick = distinct(centers[ia[sel]], centers[ib[sel]], s_val[sel], n_keep, lv.step)
+            pick = distinct(centers[ia[sel]], centers[ib[sel]], rank[sel], n_keep, lv.step)
             keep.append(sel[pick])
         keep = np.concatenate(keep)
+        self._rank = rank[keep]
         return (centers[ia[keep]], centers[ib[keep]], po[keep], s_val[keep], twist[keep], m_cut,
                 int((~valid).sum()))
 
@@ -325,7 +333,7 @@ class AntipodalMode(_Hierarchical):
         first = np.flatnonzero(np.arange(n) < anti)
         first = first[valid[first] & valid[anti[first]]]
         sv, _ = st.best_twist(circ, circ, first, anti[first], m_cut, s.min_overlap)
-        _add(work, first.size, 16 * (m_cut + 1), m_cut)
+        _add(work, first.size, 8 * (m_cut + 1), m_cut)
         ia, orient = [], []
         reach = hp.nside2resol(nside)
         c = circ.centers[first]
@@ -512,8 +520,8 @@ class TargetedMode(Mode):
             pa = np.einsum("rij,pkj->rpki", R, base_a).reshape(-1, n_phi, 3)
             pb = np.einsum("rij,pkj->rpki", R, base_b).reshape(-1, n_phi, 3)
             ctr = np.zeros((pa.shape[0], 3))
-            ca = sample_points(mp, pa, ctr, 0.0, n_phi, s.m_max, ctx.mask)
-            cb = sample_points(mp, pb, ctr, 0.0, n_phi, s.m_max, ctx.mask)
+            ca = sample_points(mp, pa, ctr, 0.0, n_phi, s.m_max, ctx.level_mask(lv))
+            cb = sample_points(mp, pb, ctr, 0.0, n_phi, s.m_max, ctx.level_mask(lv))
             m_cut = st.effective_m_cut(np.vstack([ca.coeffs, cb.coeffs]), s.m_max, s.power_fraction)
             m_cut_seen = max(m_cut_seen, m_cut)
             sv, _, _ = st.s_at_zero(ca, cb, m_cut, s.min_overlap)

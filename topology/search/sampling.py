@@ -14,7 +14,10 @@ it on maps of a single Y_lm. A sample is kept only when all four pixels it uses 
 
 Fourier coefficients (the package's convention): T(phi) = sum_m T_m e^{i m phi} over
 m = -M..M with T_{-m} = conj(T_m), i.e. T_m = (1/N_phi) sum_k T(phi_k) e^{-i m phi_k}.
-On a partly masked circle the kept mean is removed and masked samples are set to zero first.
+On a partly masked circle the kept mean is removed; the masked samples keep their values, which
+are those of the zero-filled, smoothed map (a taper to zero over ~FWHM, with no step): setting
+them to zero instead would put a step at each mask edge that the sqrt(m) weighting of S
+amplifies into ringing over the kept samples.
 """
 
 from __future__ import annotations
@@ -45,8 +48,7 @@ def default_n_phi(m_max: int) -> int:
 class CircleSet:
     """Sampled circles of one radius.
 
-    centers (n, 3); radius (rad); samples (n, N_phi) with masked samples zeroed and the kept mean
-    removed; kept (n, N_phi) bool; coeffs (n, m_max + 1) complex T_m, m = 0..m_max.
+    centers (n, 3); radius (rad); samples (n, N_phi) minus the kept mean; kept (n, N_phi) bool; coeffs (n, m_max + 1) complex T_m, m = 0..m_max.
     """
 
     centers: np.ndarray
@@ -121,6 +123,6 @@ def sample_points(map_ring: np.ndarray, points, centers: np.ndarray, radius: flo
         kept[sl] = k.reshape(-1, n_phi)
     nk = kept.sum(axis=1)
     mean = np.where(nk > 0, (samples * kept).sum(axis=1) / np.maximum(nk, 1), 0.0)
-    samples = np.where(kept, samples - mean[:, None], 0.0)
+    samples = samples - mean[:, None]
     coeffs = np.fft.rfft(samples, axis=1)[:, : m_max + 1] / n_phi
     return CircleSet(centers, float(radius), samples, kept, coeffs)

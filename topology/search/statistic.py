@@ -92,12 +92,14 @@ def s_of_twist(ta: np.ndarray, tb: np.ndarray, tau, orientation: int = 1, m_cut:
         return np.where(den > 0, num / den, 0.0).reshape(tau.shape)
 
 
-def best_twist_harmonic(ta: np.ndarray, tb: np.ndarray, m_cut: int | None = None, oversample: int = 8,
-                        newton_steps: int = 4) -> tuple[np.ndarray, np.ndarray]:
-    """max over tau of S for unmasked pairs, both orientations.
+def best_twist_harmonic(ta: np.ndarray, tb: np.ndarray, m_cut: int | None = None, oversample: int = 4,
+                        newton_steps: int = 3, orient: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """max over tau of S for unmasked pairs, both orientations (or only ``orient[i]`` per pair).
 
     ta, tb: (k, M+1). Returns S (k, 2) and the contract twist tau (k, 2) in [0, 2 pi): a grid of
-    oversample * 2 (m_cut + 1) twists, then Newton steps on the trigonometric polynomial.
+    oversample * 2 (m_cut + 1) twists (one inverse real FFT), then Newton steps on the
+    trigonometric polynomial, kept only when they improve on the grid value. Entries of the
+    orientation not asked for are -inf.
     """
     a = weighted(np.atleast_2d(ta), m_cut)
     b = weighted(np.atleast_2d(tb), m_cut)
@@ -105,30 +107,34 @@ def best_twist_harmonic(ta: np.ndarray, tb: np.ndarray, m_cut: int | None = None
     m = np.arange(1, mc + 1)
     den = np.sum(np.abs(a) ** 2 + np.abs(b) ** 2, axis=1)
     n_grid = int(oversample) * 2 * (mc + 1)
-    s_out = np.zeros((k, 2))
+    h = 2.0 * np.pi / n_grid
+    s_out = np.full((k, 2), -np.inf)
     t_out = np.zeros((k, 2))
-    for o, cross in ((SAME, a * np.conj(b)), (OPPOSITE, a * b)):
-        c = np.zeros((k, n_grid), dtype=complex)
-        c[:, 1 : mc + 1] = 2.0 * cross
-        grid = np.real(np.fft.fft(c, axis=1))  # sum_m c_m e^{-i m tau_j}
+    for o in (SAME, OPPOSITE):
+        rows = np.arange(k) if orient is None else np.flatnonzero(np.asarray(orient) == o)
+        if rows.size == 0:
+            continue
+        cross = 2.0 * (a[rows] * (np.conj(b[rows]) if o == SAME else b[rows]))
+        spec = np.zeros((rows.size, n_grid // 2 + 1), dtype=complex)
+        spec[:, 1 : mc + 1] = np.conj(cross)
+        grid = np.fft.irfft(spec, n=n_grid, axis=1) * (n_grid / 2.0)  # Re sum_m c_m e^{-i m tau_j}
         j = np.argmax(grid, axis=1)
-        tau = 2.0 * np.pi * j / n_grid
-        h = 2.0 * np.pi / n_grid
-        best = grid[np.arange(k), j]
-        t0 = tau.copy()
+        best = grid[np.arange(rows.size), j]
+        t0 = h * j
+        tau = t0.copy()
         for _ in range(newton_steps):
-            e = 2.0 * cross * np.exp(-1j * m * tau[:, None])
+            e = cross * np.exp(-1j * np.outer(tau, m))
             d1 = np.real(np.sum(-1j * m * e, axis=1))
             d2 = np.real(np.sum(-(m**2) * e, axis=1))
             step = np.where(d2 < 0, -d1 / np.where(d2 < 0, d2, -1.0), 0.0)
             tau = np.clip(tau + step, t0 - h, t0 + h)
-        val = np.real(np.sum(2.0 * cross * np.exp(-1j * m * tau[:, None]), axis=1))
+        val = np.real(np.sum(cross * np.exp(-1j * np.outer(tau, m)), axis=1))
         better = val >= best
         tau = np.where(better, tau, t0)
         val = np.where(better, val, best)
         with np.errstate(invalid="ignore", divide="ignore"):
-            s_out[:, o] = np.where(den > 0, val / den, 0.0)
-        t_out[:, o] = (tau if o == SAME else -tau) % (2.0 * np.pi)
+            s_out[rows, o] = np.where(den[rows] > 0, val / den[rows], 0.0)
+        t_out[rows, o] = (tau if o == SAME else -tau) % (2.0 * np.pi)
     return s_out, t_out
 
 
@@ -139,10 +145,10 @@ def _corr(x: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 
 def masked_s_grid(fa: np.ndarray, wa: np.ndarray, fb: np.ndarray, wb: np.ndarray,
-                  min_overlap: float = 0.25) -> np.ndarray:
+                  min_overlap: float = 0.25, with_overlap: bool = False):
     """Masked real-space S_j = 2 sum_k W f_A,k f_B,k+j / sum_k W (f_A,k^2 + f_B,k+j^2), W = w_A,k w_B,k+j,
     for every shift j (tau_j = 2 pi j / N) of rows (k, N); -inf where the jointly kept samples are
-    fewer than ``min_overlap`` N."""
+    fewer than ``min_overlap`` N. ``with_overlap`` also returns the jointly kept fraction (k, N)."""
     wa = wa.astype(float)
     wb = wb.astype(float)
     ga, gb = wa * fa, wb * fb
@@ -152,62 +158,86 @@ def masked_s_grid(fa: np.ndarray, wa: np.ndarray, fb: np.ndarray, wb: np.ndarray
     n = fa.shape[1]
     ok = (over >= min_overlap * n - 1e-6) & (den > 1e-300)
     with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(ok, 2.0 * num / np.where(ok, den, 1.0), -np.inf)
+        grid = np.where(ok, 2.0 * num / np.where(ok, den, 1.0), -np.inf)
+    if with_overlap:
+        return grid, np.clip(over / n, 0.0, 1.0)
+    return grid
 
 
 def _parabola_peak(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Index offset and value of the parabola through each row's maximum and its neighbours."""
     k, n = s.shape
+    s = np.where(np.isfinite(s), s, -1e300)
     j = np.argmax(s, axis=1)
     r = np.arange(k)
     s0 = s[r, j]
     sm = s[r, (j - 1) % n]
     sp = s[r, (j + 1) % n]
     curv = sm - 2.0 * s0 + sp
-    good = np.isfinite(sm) & np.isfinite(sp) & (curv < 0)
+    good = (sm > -1e299) & (sp > -1e299) & (curv < 0)
     with np.errstate(invalid="ignore", divide="ignore"):
         d = np.where(good, 0.5 * (sm - sp) / np.where(good, curv, -1.0), 0.0)
     d = np.clip(d, -0.5, 0.5)
-    val = np.where(good, s0 - 0.25 * (sm - sp) * d, s0)
+    val = np.where(good, s0 - 0.25 * (sm - sp) * d, np.where(s0 > -1e299, s0, -np.inf))
     return j + d, val
 
 
-def best_twist_masked(fa, wa, fb, wb, min_overlap: float = 0.25) -> tuple[np.ndarray, np.ndarray]:
-    """max over shifts of the masked S, both orientations: S (k, 2), contract twist (k, 2)."""
+def best_twist_masked(fa, wa, fb, wb, min_overlap: float = 0.25):
+    """Masked S, both orientations: S (k, 2), contract twist (k, 2), jointly kept fraction f (k, 2).
+
+    The shift chosen maximises S sqrt(f), not S: under the null the variance of S grows as 1/f
+    (fewer modes), so S sqrt(f) compares cut and full circles on one scale, and a short overlap
+    cannot win by chance alone. The S reported is the S at that shift (parabola-refined).
+    """
     n = fa.shape[1]
     rev = (-np.arange(n)) % n  # reversed circle: sample k at phi = -phi_k
-    s_out = np.zeros((fa.shape[0], 2))
-    t_out = np.zeros((fa.shape[0], 2))
+    k = fa.shape[0]
+    s_out = np.zeros((k, 2))
+    t_out = np.zeros((k, 2))
+    f_out = np.zeros((k, 2))
+    r = np.arange(k)
     for o, (f, w) in ((SAME, (fb, wb)), (OPPOSITE, (fb[:, rev], wb[:, rev]))):
-        grid = masked_s_grid(fa, wa, f, w, min_overlap)
-        j, val = _parabola_peak(grid)
-        tau = 2.0 * np.pi * j / n
+        grid, frac = masked_s_grid(fa, wa, f, w, min_overlap, with_overlap=True)
+        score = np.where(np.isfinite(grid), grid * np.sqrt(frac), -np.inf)
+        j = np.argmax(score, axis=1)
+        sm, s0, sp = grid[r, (j - 1) % n], grid[r, j], grid[r, (j + 1) % n]
+        d, val = _parabola_peak(np.stack([sm, s0, sp], axis=1))
+        shift = j + (d - 1)
+        tau = 2.0 * np.pi * shift / n
         s_out[:, o] = np.where(np.isfinite(val), val, -np.inf)
+        f_out[:, o] = frac[r, j]
         t_out[:, o] = (tau if o == SAME else -tau) % (2.0 * np.pi)
-    return s_out, t_out
+    return s_out, t_out, f_out
 
 
 def best_twist(circ_a, circ_b, ia: np.ndarray, ib: np.ndarray, m_cut: int | None = None,
-               min_overlap: float = 0.25, block: int = 4096) -> tuple[np.ndarray, np.ndarray]:
+               min_overlap: float = 0.25, block: int = 4096, with_overlap: bool = False,
+               orient: np.ndarray | None = None):
     """S and contract twist (k, 2) for pairs (circ_a[ia[i]], circ_b[ib[i]]): the exact harmonic
-    maximum when both circles are fully kept, the masked real-space variant otherwise."""
+    maximum when both circles are fully kept, the masked real-space variant otherwise
+    (``with_overlap`` adds the jointly kept fraction, 1 for full circles)."""
     ia = np.asarray(ia, dtype=int)
     ib = np.asarray(ib, dtype=int)
     s = np.zeros((ia.size, 2))
     t = np.zeros((ia.size, 2))
+    f = np.ones((ia.size, 2))
     full = circ_a.full[ia] & circ_b.full[ib]
     for i0 in range(0, ia.size, block):
         sl = slice(i0, i0 + block)
         xa, xb, fu = ia[sl], ib[sl], full[sl]
         idx = np.arange(i0, i0 + xa.size)
         if fu.any():
-            s[idx[fu]], t[idx[fu]] = best_twist_harmonic(circ_a.coeffs[xa[fu]], circ_b.coeffs[xb[fu]], m_cut)
+            oo = None if orient is None else np.asarray(orient)[sl][fu]
+            s[idx[fu]], t[idx[fu]] = best_twist_harmonic(circ_a.coeffs[xa[fu]], circ_b.coeffs[xb[fu]], m_cut,
+                                                         orient=oo)
         if (~fu).any():
             n = circ_a.n_phi
             fa = filtered_circles(circ_a.coeffs[xa[~fu]], n, m_cut)
             fb = filtered_circles(circ_b.coeffs[xb[~fu]], n, m_cut)
-            s[idx[~fu]], t[idx[~fu]] = best_twist_masked(fa, circ_a.kept[xa[~fu]], fb, circ_b.kept[xb[~fu]],
-                                                         min_overlap)
+            s[idx[~fu]], t[idx[~fu]], f[idx[~fu]] = best_twist_masked(fa, circ_a.kept[xa[~fu]], fb,
+                                                                      circ_b.kept[xb[~fu]], min_overlap)
+    if with_overlap:
+        return s, t, f
     return s, t
 
 
