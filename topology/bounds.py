@@ -576,8 +576,9 @@ def latex_caption(summary: dict) -> str:
             f"Convention: {conv}.")
 
 
-def write_latex(table, summary: dict, path) -> None:
-    """LaTeX (deluxetable-free ``table`` environment) with a caption giving alpha_min and the convention."""
+def write_latex(table, summary: dict, path, extra_caption: str = "") -> None:
+    """LaTeX (deluxetable-free ``table`` environment) with a caption giving alpha_min and the
+    convention, followed by ``extra_caption`` (e.g. the confidence level of alpha_min)."""
     from astropy.io import ascii
 
     names = {
@@ -599,5 +600,5 @@ def write_latex(table, summary: dict, path) -> None:
     for c in t.colnames:
         if t[c].dtype.kind == "U":
             t[c] = [s.replace("_", r"\_") for s in t[c].filled("")]
-    t.write(path, format="ascii.latex", overwrite=True, caption=latex_caption(summary),
+    t.write(path, format="ascii.latex", overwrite=True, caption=latex_caption(summary) + extra_caption,
             latexdict={"preamble": r"\centering", "tablealign": "htbp"}, fill_values=[(ascii.masked, "--")])

@@ -131,6 +131,60 @@ SCHEMA: dict[str, dict[str, Key]] = {
 }
 
 
+def _unit_interval(v):
+    return None if 0.0 < v < 1.0 else "must be in (0, 1)"
+
+
+# Sections of `topology run` (the main job). [[maps]] is an array of tables.
+SCHEMA.update({
+    "maps": {
+        "name": Key((str,), None, "name of the map in the report (letters, digits, - and _)"),
+        "path": Key((str,), None, "HEALPix FITS file (path relative to the config); or give an inline sky instead"),
+        "field": Key((int, str), 0, "column of a multi-column map: index or name (default the first, temperature)"),
+        "ordering": Key((str,), None, "RING or NESTED when the FITS header has no ORDERING key"),
+        "space": Key((dict,), None, "inline synthetic sky: a [space] table (family and parameters, or isotropic)"),
+        "observer": Key((dict,), None, "inline synthetic sky: an [observer] table"),
+        "sky": Key((dict,), None, "inline synthetic sky: [sky] keys (seed, lmax ...); beam and noise come from [instrument]"),
+    },
+    "mask": {
+        "path": Key((str,), None, "HEALPix FITS mask (1 kept, 0 masked, or apodised weights), any N_side"),
+        "galactic_b_deg": Key(NUMBER, None, "instead of a file: mask the band |b| < this (degrees)", _positive),
+        "ordering": Key((str,), None, "RING or NESTED when the FITS header has no ORDERING key"),
+        "min_sky_fraction": Key(NUMBER, 0.2, "refuse a mask that keeps less of the sky than this", _unit_interval),
+    },
+    "instrument": {
+        "fwhm_deg": Key(NUMBER, 1.0, "beam FWHM of the maps in degrees (null and injected skies get it)", _non_negative),
+        "noise_uk": Key(NUMBER, 0.0, "white noise rms per pixel in microK (null and injected skies)", _non_negative),
+        "nside": Key((int,), None, "N_side of null and injected skies (default: that of the first map)", _power_of_two),
+        "lmax": Key((int,), None, "highest multipole of null and injected skies (default 2 nside)", _positive),
+        "terms": Key((list,), ["sw"], "temperature terms of null and injected skies: ['sw'] or ['sw', 'doppler', 'isw']"),
+    },
+    "significance": {
+        "n_null": Key((int,), 100, "isotropic null skies searched like the data", _positive),
+        "false_alarm": Key(NUMBER, 0.05, "false-alarm probability of a detection over the whole radius range", _unit_interval),
+        "efficiency_level": Key(NUMBER, 0.95, "detection efficiency that defines alpha_min", _unit_interval),
+        "seed": Key((int,), 0, "run seed: every null and injected sky derives its seed from it and its task id", _non_negative),
+        "injection_radii": Key((str,), "15:75:10", "radii of injected circles START:STOP:STEP (degrees, < 90)"),
+        "n_injections": Key((int,), 20, "injected skies per radius", _positive),
+        "injection_family": Key((str,), "E1", "family of the injected skies: E1 (cubic torus, side 2 chi_rec cos(alpha))"),
+        "radius_tolerance_deg": Key(NUMBER, None, "an injected circle counts as found within this of its radius (default one radius step)", _non_negative),
+    },
+    "bounds": {
+        "families": Key((list,), [], "family specs in the [space] format (plus optional position, orientation) to test"),
+        "p_max": Key((int,), 20, "lens spaces L(p, q) in the bound table up to this p", _positive),
+        "m_max": Key((int,), 10, "prism spaces D*_m in the bound table up to this m", _positive),
+    },
+    "output": {
+        "dir": Key((str,), "report", "report folder (relative to the current folder)"),
+    },
+    "execution": {
+        "engine": Key((str,), "local", "serial, local (process pool, one worker per core) or dask"),
+        "workers": Key((int,), None, "number of workers (default: the number of cores)", _positive),
+        "scheduler": Key((str,), None, "dask: address of a running scheduler, e.g. tcp://host:8786"),
+    },
+})
+
+
 def register_section(name: str, keys: dict[str, Key]) -> None:
     """Add a section schema (used by stages that bring their own config sections)."""
     SCHEMA[name] = keys

@@ -122,17 +122,28 @@ def figure_smax(base: Path, name: str, radii_deg, smax, th, smax_null) -> list[s
     return _save(fig, base)
 
 
-def figure_sky(base: Path, name: str, sky_map, pairs, title_extra="") -> list[str]:
+def figure_sky(base: Path, name: str, sky_map, pairs, title_extra="", mask=None) -> list[str]:
+    """Mollweide map (healpy) with circle pairs drawn by healpy.projplot (A solid, B dashed)."""
     import healpy as hp
+
+    from .plots import circle_lonlat
 
     plt = _mpl()
     fig = plt.figure(figsize=(9, 5))
     m = np.array(sky_map, dtype=float)
-    hp.mollview(m, fig=fig.number, title=f"{name} {title_extra}", unit="uK", cmap="RdBu_r", hold=True,
-                min=np.percentile(m[m != hp.UNSEEN], 1) if np.any(m != hp.UNSEEN) else None,
-                max=np.percentile(m[m != hp.UNSEEN], 99) if np.any(m != hp.UNSEEN) else None)
-    ax = plt.gca()
-    draw_circles(ax, pairs)
+    bad = ~np.isfinite(m) | (m == hp.UNSEEN)
+    if mask is not None:
+        bad |= np.asarray(mask) < 0.5
+    m[bad] = hp.UNSEEN
+    good = m[~bad]
+    lo, hi = (np.percentile(good, [1, 99]) if good.size else (None, None))
+    hp.mollview(m, fig=fig.number, title=f"{name} {title_extra}", unit="microK", cmap="RdBu_r", min=lo, max=hi)
+    colors = plt.get_cmap("tab10")
+    for i, p in enumerate(pairs):
+        for center, style in ((p.center_a, "-"), (p.center_b, "--")):
+            lon, lat = circle_lonlat(center, p.radius)
+            hp.projplot(lon, lat, style, lonlat=True, color=colors(i % 10), lw=1.4)
+    hp.graticule(dpar=30, dmer=60, alpha=0.3)
     return _save(fig, base)
 
 
