@@ -109,7 +109,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "fwhm_deg": Key(NUMBER, 1.0, "Gaussian smoothing of the working map, FWHM in degrees", _non_negative),
         "nside_work": Key((int,), 128, "working N_side (the map is degraded to it harmonically)", _power_of_two),
         "m_max": Key((int,), 64, "largest Fourier mode m of a circle (<= 3 nside_work - 1)", _positive),
-        "n_phi": Key((int,), None, "samples per circle (default 2 m_max + 2, at least 2 m_max + 1)", _positive),
+        "n_phi": Key((int,), None, "samples per circle (default: enough for the smoothed map's band limit; at least 2 m_max + 1)", _positive),
         "centre_nside": Key((int,), 16, "N_side of the coarse centre grid (refined by factors 2 to FWHM/2)", _power_of_two),
         "level_smoothing": Key(NUMBER, 1.2, "coarse levels smooth to max(FWHM, this * grid step)", _positive),
         "n_keep": Key((int,), 64, "candidates per radius and orientation kept between levels", _positive),

@@ -31,7 +31,7 @@ class SearchSettings:
     fwhm_deg: float = 1.0
     nside_work: int = 128
     m_max: int = 64
-    n_phi: int | None = None  # default 2 m_max + 2
+    n_phi: int | None = None  # None: enough samples for the map's band limit (modes.SearchContext.n_phi)
     centre_nside: int = 16  # coarse centre grid
     level_smoothing: float = 1.2  # kappa: FWHM_l = max(FWHM, kappa * step_l)
     n_keep: int = 64  # candidates per radius and orientation kept between levels
@@ -50,10 +50,6 @@ class SearchSettings:
     ordering: str | None = None
     orientation_nside: int = 4  # targeted: coarse orientation grid
     positions: tuple | None = None  # targeted: observer positions (the config's observer if None)
-
-    def __post_init__(self):
-        if self.n_phi is None:
-            self.n_phi = 2 * int(self.m_max) + 2
 
     def as_dict(self) -> dict:
         d = asdict(self)
@@ -100,7 +96,7 @@ def validate(s: SearchSettings) -> SearchSettings:
         raise InputError(f"m_max = {s.m_max} is above what N_side {s.nside_work} supports "
                          f"(a band-limited map has |m| <= l <= 3 N_side - 1 = {lmax_work} on any circle)",
                          "--m-max")
-    if s.n_phi < 2 * s.m_max + 1:
+    if s.n_phi is not None and s.n_phi < 2 * s.m_max + 1:
         raise InputError(f"needs N_phi >= 2 m_max + 1 = {2 * s.m_max + 1}, got {s.n_phi}", "[search] n_phi")
     if s.centre_nside > s.nside_work:
         raise InputError(f"centre grid N_side {s.centre_nside} is finer than the working map "

@@ -69,6 +69,20 @@ class SearchContext:
     settings: object
     scenario: object = None  # targeted mode: topology.scenario.Scenario
 
+    def n_phi(self, radius: float, level: Level) -> int:
+        """Samples per circle: the setting when given, else enough for the level map's band limit
+        so that modes m > m_max do not alias onto m <= m_max (aliasing would differ between the
+        two circles of a twisted pair): a circle of radius alpha carries m <= l_band sin(alpha),
+        l_band = min(3 N_side_work - 1, 3.7 / sigma) where the Gaussian beam has fallen to 1e-3
+        (sigma = FWHM / sqrt(8 ln 2)); N_phi = max(2 m_max + 2, 2 ceil(l_band sin alpha) + 2)."""
+        s = self.settings
+        if s.n_phi is not None:
+            return int(s.n_phi)
+        l_band = 3 * s.nside_work - 1
+        if level.fwhm > 0:
+            l_band = min(l_band, int(math.ceil(3.7 * math.sqrt(8.0 * math.log(2.0)) / level.fwhm)))
+        return int(max(2 * s.m_max + 2, 2 * math.ceil(l_band * math.sin(min(radius, np.pi / 2))) + 2))
+
     def level_map(self, level: Level) -> np.ndarray:
         return self.prepared.working_map(level.fwhm)
 
@@ -182,7 +196,7 @@ class _Hierarchical(Mode):
         # level 0 --------------------------------------------------------------------------
         lv = levels[0]
         centers = centre_grid(lv.nside)
-        circ = sample_circles(ctx.level_map(lv), centers, radius, s.n_phi, s.m_max, ctx.level_mask(lv))
+        circ = sample_circles(ctx.level_map(lv), centers, radius, ctx.n_phi(radius, lv), s.m_max, ctx.level_mask(lv))
         valid = circ.kept_fraction >= s.min_kept
         skipped = int((~valid).sum())
         m_cut = st.effective_m_cut(circ.coeffs[valid] if valid.any() else circ.coeffs, s.m_max, s.power_fraction)
@@ -270,7 +284,7 @@ class _Hierarchical(Mode):
             centers = np.array(hp.pix2vec(lv.nside, ub)).T
             ia = np.searchsorted(ub, pa)
             ib = np.searchsorted(ub, pb)
-        circ = sample_circles(ctx.level_map(lv), centers, radius, s.n_phi, s.m_max, ctx.level_mask(lv))
+        circ = sample_circles(ctx.level_map(lv), centers, radius, ctx.n_phi(radius, lv), s.m_max, ctx.level_mask(lv))
         valid = circ.kept_fraction >= s.min_kept
         m_cut = st.effective_m_cut(circ.coeffs[valid] if valid.any() else circ.coeffs, s.m_max, s.power_fraction)
         ok = valid[ia] & valid[ib]
@@ -506,7 +520,7 @@ class TargetedMode(Mode):
         from ..circles import circle_points
 
         s = ctx.settings
-        n_phi = s.n_phi
+        n_phi = ctx.n_phi(max(p.radius for p in pairs), lv)
         phi = 2.0 * np.pi * np.arange(n_phi) / n_phi
         base_a = np.stack([circle_points(p.center_a, p.radius, phi) for p in pairs])  # (P, N, 3)
         base_b = np.stack([circle_points(p.center_b, p.radius, p.orientation * phi + p.twist) for p in pairs])

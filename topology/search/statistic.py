@@ -198,7 +198,8 @@ def best_twist_masked(fa, wa, fb, wb, min_overlap: float = 0.25):
     r = np.arange(k)
     for o, (f, w) in ((SAME, (fb, wb)), (OPPOSITE, (fb[:, rev], wb[:, rev]))):
         grid, frac = masked_s_grid(fa, wa, f, w, min_overlap, with_overlap=True)
-        score = np.where(np.isfinite(grid), grid * np.sqrt(frac), -np.inf)
+        fin = np.isfinite(grid)
+        score = np.where(fin, np.where(fin, grid, 0.0) * np.sqrt(frac), -np.inf)
         j = np.argmax(score, axis=1)
         sm, s0, sp = grid[r, (j - 1) % n], grid[r, j], grid[r, (j + 1) % n]
         d, val = _parabola_peak(np.stack([sm, s0, sp], axis=1))
