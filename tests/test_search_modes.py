@@ -48,7 +48,7 @@ SETTINGS = dict(fwhm_deg=2.0, nside_work=64, m_max=48, centre_nside=16, n_report
 
 @pytest.mark.parametrize("family,lengths,radii", [
     ("E1", [1.6, 1.6, 1.6], [36.87]),
-    ("E2", [1.55, 1.7, 0.8], [65.13, 25.52]),  # half-turn screw: twisted pairs
+    ("E2", [1.55, 1.7, 0.8], [65.13, 39.73, 25.52]),  # half-turn screw: twisted pairs
     ("E3", [1.6, 1.6, 0.9], [62.66, 32.27]),  # quarter-turn screw
     ("E7", [1.5, 1.6, 0.9], [62.24, 39.27]),  # non-orientable (glide): "same" pairs
 ])
@@ -123,10 +123,11 @@ def test_beam_noise_and_galactic_mask():
         zb = circle_points(p.center_b, p.radius, p.orientation * phi + p.twist)[:, 2]
         return np.mean((np.abs(np.degrees(np.arcsin(za))) >= 20) & (np.abs(np.degrees(np.arcsin(zb))) >= 20))
 
-    # Known limit (see the report): pairs with 50-75% jointly kept are not yet reliably found, so the
-    # assertion covers the pairs with more than half of each circle unmasked and > 75% jointly kept.
+    # Known limit (see the report): on this field full-circle decoys reach S ~ 0.8 at the coarse
+    # level, above a pair with 63% jointly kept (S sqrt(f) ranking), so the assertion covers the pairs
+    # with more than half of each circle unmasked and more than 70% jointly kept.
     visible = [p for p in pairs if kept(p.center_a, p.radius) > 0.5 and kept(p.center_b, p.radius) > 0.5
-               and joint(p) > 0.75]
+               and joint(p) > 0.7]
     assert len(visible) >= 1
     rad = tuple(sorted({float(np.degrees(p.radius)) for p in visible}))
     out = search_sky(as_skymap(T), as_skymap(mask), SearchSettings(mode="all-pairs", radii_deg=rad, **SETTINGS))

@@ -18,8 +18,10 @@ What the refinement can miss (tests/test_search_modes.py shows both): (1) a pair
 S is not among the ``n_keep`` best at its radius (weak or strongly masked circles on a noisy
 map, or many strong decoys); (2) pairs whose centres are closer than ``min_separation_deg``
 (excluded: neighbouring circles overlap and correlate trivially); (3) on a masked map the coarse
-kernel uses zero-filled circles, whose S is lowered by roughly the fraction of the circles that
-is jointly kept, so cut pairs rank lower than their exact masked S.
+kernel uses the cut circles as sampled (masked arcs hold the smoothed zero-filled sky), whose S
+is lowered by roughly the fraction that is jointly kept, and the refinement ranks the exact
+masked S by S sqrt(f) (f: jointly kept fraction; the null variance of S grows as 1/f), so a cut
+pair loses to full-circle decoys of S above S_true sqrt(f).
 """
 
 from __future__ import annotations
