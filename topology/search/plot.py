@@ -26,6 +26,7 @@ def plot_search(result: dict, path, n_pairs: int = 5) -> None:
     ax1.legend(fontsize=8)
     ax2 = fig.add_subplot(1, 2, 2, projection="mollweide")
     ax2.grid(True, alpha=0.3)
+    ax2.set_xticklabels([f"{v}°" for v in (150, 120, 90, 60, 30, 0, 330, 300, 270, 240, 210)], fontsize=7)
     pairs = [SimpleNamespace(center_a=lonlat_to_vec(*c["center_a"]), center_b=lonlat_to_vec(*c["center_b"]),
                              radius=np.radians(c["radius_deg"]))
              for c in result["candidates"][:n_pairs] if c.get("S") is not None]
