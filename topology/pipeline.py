@@ -11,8 +11,9 @@ Stages (each a set of independent tasks, see :mod:`topology.execution`):
    look-elsewhere correction) and the candidates' p-values;
 3. ``inj/<radius>/<j>``: multiply connected skies with circles of known radius (default: a cubic
    torus E1 of side 2 chi_rec cos(alpha), randomly oriented, which has three back-to-back pairs
-   of radius alpha), observed and searched like the data; an injection is recovered when S_max
-   within the radius tolerance of alpha exceeds the whole-range threshold. The efficiency per
+   of radius alpha, with alpha drawn uniformly within half a search step of the nominal radius),
+   observed and searched like the data; an injection is recovered when S_max within the radius
+   tolerance (default one search step) of the nominal radius exceeds the whole-range threshold. The efficiency per
    radius gives alpha_min, the smallest radius above which it stays >= the configured level;
 4. bounds from alpha_min (:mod:`topology.bounds`) for every map without a detection;
 5. the report (:mod:`topology.report`).
@@ -355,7 +356,11 @@ def task_injection(plan_d: dict, radius_deg: float, index: int, task_id: str) ->
     seed = _int_seed(plan_d["significance"]["seed"], task_id)
     rng = np.random.default_rng(task_seed(plan_d["significance"]["seed"], task_id + "/geometry"))
     cosmo = cosmology_from_config(config_from_dict({"cosmology": plan_d["sections"].get("cosmology", {})}))
-    side = 2.0 * math.cos(math.radians(radius_deg))
+    # the injected radius is drawn uniformly within half a search step of the nominal one, so the
+    # efficiency covers circles between the grid radii too (not only those on the grid)
+    half = 0.5 * float(plan_d["radius_step_deg"])
+    radius_true = float(np.clip(radius_deg + rng.uniform(-half, half), 0.5, 89.5))
+    side = 2.0 * math.cos(math.radians(radius_true))
     space = build_space({"family": "E1", "lengths": [side] * 3})
     observer = geo.Observer.make("flat", rng.uniform(0, side, 3), geo.euler_zyz(*random_rotation(rng)))
     inst = plan_d["instrument"]
@@ -363,7 +368,7 @@ def task_injection(plan_d: dict, radius_deg: float, index: int, task_id: str) ->
     m = observe(sky, nside=nside, lmax=lmax, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"], seed=seed)
     res = _search(m, plan_d, task_id)
     return {"s_max": _smax_by_radius(res, np.asarray(plan_d["radii_deg"])), "radius_deg": float(radius_deg),
-            "seed": seed, "elapsed_s": res["elapsed_s"]}
+            "radius_true_deg": radius_true, "seed": seed, "elapsed_s": res["elapsed_s"]}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -375,6 +380,7 @@ def _plan_dict(plan: RunPlan, nside_hint: int) -> dict:
         "maps": [m.__dict__ for m in plan.maps], "mask": plan.mask, "instrument": plan.instrument,
         "search": plan.search, "significance": plan.significance, "radii_deg": plan.radii_deg.tolist(),
         "nside_hint": nside_hint,
+        "radius_step_deg": float(np.min(np.diff(plan.radii_deg))) if plan.radii_deg.size > 1 else 0.0,
     }
 
 
