@@ -123,21 +123,22 @@ def test_beam_noise_and_galactic_mask():
         zb = circle_points(p.center_b, p.radius, p.orientation * phi + p.twist)[:, 2]
         return np.mean((np.abs(np.degrees(np.arcsin(za))) >= 20) & (np.abs(np.degrees(np.arcsin(zb))) >= 20))
 
-    # Known limit (see the report): on this field full-circle decoys reach S ~ 0.8 at the coarse
-    # level, above a pair with 63% jointly kept (S sqrt(f) ranking), so the assertion covers the pairs
-    # with more than half of each circle unmasked and more than 70% jointly kept.
+    # Known limit (see the report): on this field the coarse level ranks a pair with 63% jointly kept
+    # below ~100 decoys, so the check covers the pairs with more than half of each circle unmasked
+    # and more than 70% of their points kept on both circles.
     visible = [p for p in pairs if kept(p.center_a, p.radius) > 0.5 and kept(p.center_b, p.radius) > 0.5
                and joint(p) > 0.7]
     assert len(visible) >= 1
     rad = tuple(sorted({float(np.degrees(p.radius)) for p in visible}))
     out = search_sky(as_skymap(T), as_skymap(mask), SearchSettings(mode="all-pairs", radii_deg=rad, **SETTINGS))
     for p in visible:
-        entries = [e for e in out["s_max"] if abs(e["radius_deg"] - np.degrees(p.radius)) < 1e-6]
-        best = max(entries, key=lambda e: e["S_max"])["best"]
-        d, dt = match(best, p)
-        assert best["orientation"] == ("same" if p.orientation > 0 else "opposite")
-        assert d < 1.5 and dt < 3.0, (np.degrees(p.radius), d, dt, best["S"])
-        assert best["S"] > 0.6
+        # found: among the candidates reported at its radius (cut pairs have their own quota, since
+        # full-circle decoys with S above S_true sqrt(f) outrank them), right orientation
+        want = "same" if p.orientation > 0 else "opposite"
+        found = [c for c in out["candidates"] + [e["best"] for e in out["s_max"]] + out["reported"]
+                 if abs(c["radius_deg"] - np.degrees(p.radius)) < 1e-6 and c["orientation"] == want]
+        errs = [match(c, p) + (c["S"],) for c in found]
+        assert any(d < 1.5 and dt < 3.0 and sv > 0.8 for d, dt, sv in errs), (np.degrees(p.radius), errs)
 
 
 def test_what_refinement_misses():

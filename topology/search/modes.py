@@ -228,7 +228,9 @@ class _Hierarchical(Mode):
                 continue
             # distinct reported pairs: no two within 2 FWHM (or a coarse step) of each other
             reach = max(2.0 * np.radians(s.fwhm_deg), levels[0].step)
-            order = sel[distinct(ca[sel], cb[sel], self._rank[sel], s.n_report, reach)]
+            order = list(sel[distinct(ca[sel], cb[sel], self._rank[sel], s.n_report, reach)])
+            cs = sel[self._cut[sel]]  # and the best cut pairs by S
+            order += [i for i in cs[distinct(ca[cs], cb[cs], s_val[cs], s.n_report, reach)] if i not in order]
             name = st.ORIENTATION_NAME[o]
             s_max[name] = float(s_val[order[0]])
             for i in order:
@@ -302,11 +304,14 @@ class _Hierarchical(Mode):
         _add(work, ia.size, 8 * (m_cut + 1), m_cut)
         # keep the n_keep best per orientation
         keep = []
+        cutp = fr[r, po] < 1.0
         for o in (st.SAME, st.OPPOSITE):
             sel = np.flatnonzero(po == o)
-            pick = distinct(centers[ia[sel]], centers[ib[sel]], rank[sel], n_keep, lv.step)
-            keep.append(sel[pick])
-        keep = np.concatenate(keep)
+            keep.append(sel[distinct(centers[ia[sel]], centers[ib[sel]], rank[sel], n_keep, lv.step)])
+            sel = sel[cutp[sel]]  # quota for cut pairs, ranked by their own S
+            keep.append(sel[distinct(centers[ia[sel]], centers[ib[sel]], s_val[sel], max(1, n_keep // 2), lv.step)])
+        keep = np.unique(np.concatenate(keep))
+        self._cut = cutp[keep]
         self._rank = rank[keep]
         return (centers[ia[keep]], centers[ib[keep]], po[keep], s_val[keep], twist[keep], m_cut,
                 int((~valid).sum()))
@@ -328,8 +333,9 @@ class _Hierarchical(Mode):
                     best = next(c for c in r["candidates"] if c["orientation"] == name)
                     s_max.append({"radius_deg": float(key), "orientation": name, "S_max": r["s_max"][name],
                                   "best": best})
+        reported = list(cands)  # per radius: n_report best per orientation, plus the best cut pairs
         cands.sort(key=lambda c: -c["S"])
-        return {"candidates": cands[: s.n_candidates], "s_max": s_max, "work": work,
+        return {"candidates": cands[: s.n_candidates], "s_max": s_max, "work": work, "reported": reported,
                 "skipped_circles": skipped}
 
 
@@ -371,16 +377,22 @@ class AllPairsMode(_Hierarchical):
         import healpy as hp
 
         a = st.weighted(circ.coeffs, m_cut)
+        cut = ~circ.full
         ia, ib, orient, sv = allpairs_top(a, circ.centers, valid, twist_count(m_cut, s.twist_oversample),
                                           s.n_pool * s.n_keep, np.radians(s.min_separation_deg),
-                                          s.kernel_mem_mb * (1 << 20), work, m_cut)
+                                          s.kernel_mem_mb * (1 << 20), work, m_cut,
+                                          cut=cut if cut.any() else None)
         reach = hp.nside2resol(hp.npix2nside(len(circ)))
         keep = []
+        pc = cut[ia] | cut[ib]
         for o in (st.SAME, st.OPPOSITE):
             sel = np.flatnonzero(orient == o)
             keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], sv[sel], s.n_keep, reach)])
-        keep = np.concatenate(keep)
-        return ia[keep], ib[keep], orient[keep]
+            sel = sel[pc[sel]]  # quota for pairs with a cut circle
+            keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], sv[sel], s.n_keep // 2, reach)])
+        keep = np.unique(np.concatenate(keep))
+        combo = np.unique(np.stack([ia[keep], ib[keep], orient[keep]], axis=1), axis=0)
+        return combo[:, 0], combo[:, 1], combo[:, 2]
 
 
 def twist_count(m_cut: int, oversample: float) -> int:
@@ -390,21 +402,25 @@ def twist_count(m_cut: int, oversample: float) -> int:
 
 
 def allpairs_top(a: np.ndarray, centers: np.ndarray, valid: np.ndarray, n_tau: int, n_keep: int,
-                 min_sep: float, mem_bytes: int, work: dict | None = None, m_cut: int = 0):
+                 min_sep: float, mem_bytes: int, work: dict | None = None, m_cut: int = 0,
+                 cut: np.ndarray | None = None):
     """Best ``n_keep`` unordered pairs per orientation by the blocked BLAS kernel.
 
     a (n, M) weighted coefficients; S_ij = max_tau num / (|a_i|^2 + |a_j|^2). Pairs with j <= i,
     invalid circles or centres closer than ``min_sep`` (rad) are excluded. Returns (ia, ib,
-    orientation, S) arrays.
+    orientation, S) arrays. With ``cut`` (n,) flags of partly masked circles, a second list of the
+    ``n_keep`` best pairs with at least one cut circle is appended (a quota: cut pairs rank low in
+    the coarse kernel, see the module docstring).
     """
     n = a.shape[0]
     norms = np.sum(np.abs(a) ** 2, axis=1).astype(np.float32)
     cols_all = st.column_matrix(a)  # (2M, 2n)
     rows_all = None
     cos_min = math.cos(min_sep)
-    best_s = [np.full(0, -np.inf, dtype=np.float32) for _ in range(2)]
-    best_i = [np.zeros(0, dtype=np.int64) for _ in range(2)]
-    best_j = [np.zeros(0, dtype=np.int64) for _ in range(2)]
+    lists = 4 if cut is not None else 2  # (same, opposite) all pairs, then (same, opposite) cut pairs
+    best_s = [np.full(0, -np.inf, dtype=np.float32) for _ in range(lists)]
+    best_i = [np.zeros(0, dtype=np.int64) for _ in range(lists)]
+    best_j = [np.zeros(0, dtype=np.int64) for _ in range(lists)]
     vidx = np.flatnonzero(valid)
     blk = st.block_rows_for(n_tau, vidx.size, mem_bytes)
     buf = None
@@ -422,23 +438,29 @@ def allpairs_top(a: np.ndarray, centers: np.ndarray, valid: np.ndarray, n_tau: i
         bad = (rows_idx[:, None] >= col_idx[None, :]) | (centers[rows_idx] @ centers[col_idx].T >= cos_min) | (den <= 0)
         if work is not None:
             _add(work, int((~bad).sum()), n_tau, m_cut)
+        pair_cut = None if cut is None else (cut[rows_idx][:, None] | cut[col_idx][None, :])
         for o in (st.SAME, st.OPPOSITE):
             with np.errstate(invalid="ignore", divide="ignore"):
                 sv = num[:, o * nc : (o + 1) * nc] / den
             sv[bad] = -np.inf
-            flat = sv.ravel()
-            k = min(n_keep, flat.size)
-            part = np.argpartition(-flat, k - 1)[:k]
-            part = part[np.isfinite(flat[part])]
-            ri, cj = np.divmod(part, nc)
-            cat_s = np.concatenate([best_s[o], flat[part]])
-            cat_i = np.concatenate([best_i[o], rows_idx[ri]])
-            cat_j = np.concatenate([best_j[o], col_idx[cj]])
-            order = np.argsort(-cat_s, kind="stable")[:n_keep]
-            best_s[o], best_i[o], best_j[o] = cat_s[order], cat_i[order], cat_j[order]
+            targets = [(o, sv)]
+            if pair_cut is not None and pair_cut.any():
+                targets.append((2 + o, np.where(pair_cut, sv, -np.inf)))
+            for li, vals in targets:
+                flat = vals.ravel()
+                k = min(n_keep, flat.size)
+                part = np.argpartition(-flat, k - 1)[:k]
+                part = part[np.isfinite(flat[part])]
+                ri, cj = np.divmod(part, nc)
+                cat_s = np.concatenate([best_s[li], flat[part]])
+                cat_i = np.concatenate([best_i[li], rows_idx[ri]])
+                cat_j = np.concatenate([best_j[li], col_idx[cj]])
+                order = np.argsort(-cat_s, kind="stable")[:n_keep]
+                best_s[li], best_i[li], best_j[li] = cat_s[order], cat_i[order], cat_j[order]
     ia = np.concatenate(best_i)
     ib = np.concatenate(best_j)
-    orient = np.concatenate([np.full(best_i[0].size, st.SAME), np.full(best_i[1].size, st.OPPOSITE)])
+    orient = np.concatenate([np.full(best_i[li].size, st.SAME if li % 2 == 0 else st.OPPOSITE)
+                             for li in range(lists)])
     return ia, ib, orient, np.concatenate(best_s).astype(float)
 
 
