@@ -46,6 +46,7 @@ from .errors import InputError
 from .execution import Task, make_engine, task_seed
 from .store import MemoryStore, TaskStore, config_hash
 
+N_CANDIDATES = 10  # candidates per map in the summary and tables
 _NAME = re.compile(r"^[A-Za-z0-9_.-]{1,64}$")
 CAUTION = (
     "A detection or a bound here is only as good as its calibration. The statistic is the m-weighted "
@@ -480,8 +481,11 @@ def analyse(plan: RunPlan, store) -> dict:
         smax = _smax_by_radius(res, radii)
         smax_f = np.where(np.isfinite(smax), smax, -1.0)
         is_detected = bool(np.any(smax_f > th.whole_range))
+        # the pairs that define S_max (the best-ranked pair per radius and orientation): the same
+        # statistic as the null skies', so their p-values are comparable
+        source = [e["best"] for e in res["s_max"] if e.get("best")] or res["candidates"]
         cands = []
-        for c in res["candidates"]:
+        for c in source:
             i = int(np.argmin(np.abs(radii - c["radius_deg"])))
             curve = np.full(len(radii), -1.0)
             curve[i] = c["S"]
@@ -489,7 +493,8 @@ def analyse(plan: RunPlan, store) -> dict:
             cands.append({k: c[k] for k in ("center_a", "center_b", "radius_deg", "twist_deg", "orientation", "S")}
                          | {"p_value": sig.global_p_value(curve, null), "p_value_local": p_local,
                             "above_threshold": bool(c["S"] > th.whole_range[i])})
-        cands.sort(key=lambda c: (c["p_value"], -c["S"]))
+        cands.sort(key=lambda c: (not c["above_threshold"], c["p_value"], -c["S"]))
+        cands = cands[:N_CANDIDATES]
         if is_detected or amin is None:
             bounds = None
         else:
@@ -508,7 +513,7 @@ def analyse(plan: RunPlan, store) -> dict:
         extra[spec.name] = {"map_values": res.get("map_values"), "path": spec.path, "nside": res.get("nside")}
     calib = {
         "radii_deg": radii.tolist(), "threshold_whole_range": th.whole_range.tolist(),
-        "threshold_local": th.local.tolist(), "local_level": th.local_level,
+        "threshold_local": th.local.tolist(), "local_level": th.local_level, "z_threshold": th.z_threshold,
         "measured_false_alarm": th.measured_false_alarm, "measured_false_alarm_error": th.measured_false_alarm_error,
         "injection_radii_deg": inj_r.tolist(), "efficiency": eff.tolist(), "efficiency_error": eff_err.tolist(),
         "n_injections": n_inj, "efficiency_level": level, "alpha_min_deg": amin,

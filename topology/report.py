@@ -46,7 +46,7 @@ def thresholds_table(radii_deg, th, smax_null) -> Table:
     t["null_std"] = th.null_std
     t["null_q16"] = np.quantile(smax_null, 0.16, axis=0)
     t["null_q84"] = np.quantile(smax_null, 0.84, axis=0)
-    t.meta.update(false_alarm=th.false_alarm, n_null=th.n_null, local_level=th.local_level,
+    t.meta.update(false_alarm=th.false_alarm, n_null=th.n_null, local_level=th.local_level, z_threshold=th.z_threshold,
                   measured_false_alarm=th.measured_false_alarm,
                   measured_false_alarm_error=th.measured_false_alarm_error)
     return t

@@ -5,11 +5,12 @@ Inputs are plain arrays: ``smax_null`` of shape (n_null, n_radius) holds the lar
 each radius of each null (isotropic) sky, searched with the same settings as the data.
 
 * Local threshold at radius alpha: the (1 - p) quantile of the null S_max(alpha).
-* Look-elsewhere: a whole-range threshold curve S_thr(alpha) at false-alarm probability p is
-  the local threshold at a smaller local level p_loc chosen so that the fraction of null skies
-  exceeding the curve at *any* radius is p. p_loc is found on the null sample itself, from each
-  null sky's smallest leave-one-out local p-value over radius (the min-p method of Westfall &
-  Young 1993, "Resampling-based multiple testing"; common practice in circle searches).
+* Look-elsewhere: the whole-range threshold curve at false-alarm probability p is
+  S_thr(alpha) = mean(alpha) + z_thr std(alpha) of the null S_max, with z_thr the (1 - p)
+  quantile of each null sky's largest standardised S_max over radius (leave-one-out). The
+  fraction of null skies exceeding the curve at *any* radius is then p, however the radii are
+  correlated, and N >= 2/p - 1 skies suffice (the resampling max-statistic method of Westfall
+  & Young 1993, "Resampling-based multiple testing", on standardised statistics).
 * p-values carry the +1 correction, p = (1 + #{null >= observed}) / (1 + N) (Davison &
   Hinkley 1997, "Bootstrap methods", eq. 4.11), so that p is never zero.
 * Binomial uncertainty on a false-alarm fraction f from N skies: sqrt(f (1 - f) / N).
@@ -49,14 +50,36 @@ def local_p_values(values: np.ndarray, smax_null: np.ndarray) -> np.ndarray:
     return ((1.0 + exceed) / (1.0 + n)).reshape(v.shape)
 
 
-def _loo_min_p(smax_null: np.ndarray) -> np.ndarray:
-    """Each null sky's smallest local p-value over radius, against the other N-1 skies."""
+def _smoother(n_radius: int, degree: int = 3) -> np.ndarray:
+    """Least-squares projection onto polynomials of ``degree`` in the radius index: the null
+    mean and spread of S_max vary smoothly with radius, and smoothing them keeps the noise of a
+    small calibration out of the standardised statistic (common practice)."""
+    deg = min(degree, n_radius - 1)
+    x = np.linspace(-1.0, 1.0, n_radius)
+    v = np.polynomial.legendre.legvander(x, deg)
+    return v @ np.linalg.pinv(v)
+
+
+def _standardise(null: np.ndarray):
+    P = _smoother(null.shape[1])
+    mean = null.mean(axis=0) @ P
+    std = null.std(axis=0, ddof=1) @ P
+    return mean, np.where(std > 0, std, 1e-12)
+
+
+def _loo_max_z(smax_null: np.ndarray) -> np.ndarray:
+    """Each null sky's largest standardised S_max over radius, z = (S - mean) / std with the
+    (smoothed) mean and spread of the *other* N - 1 skies (leave-one-out, so that a sky does not
+    calibrate itself)."""
     null = np.asarray(smax_null, dtype=float)
     n = null.shape[0]
-    # rank of each sky among the others at each radius: #{j != i : null_j >= null_i}
-    ge = (null[None, :, :] >= null[:, None, :]).sum(axis=1) - 1
-    p = (1.0 + ge) / n  # (1 + count) / (1 + (N - 1))
-    return p.min(axis=1)
+    P = _smoother(null.shape[1])
+    tot, tot2 = null.sum(axis=0), (null**2).sum(axis=0)
+    mean = (tot[None, :] - null) / (n - 1)
+    var = ((tot2[None, :] - null**2) - (n - 1) * mean**2) / (n - 2)
+    std = np.sqrt(np.maximum(var, 1e-24)) @ P
+    mean = mean @ P
+    return ((null - mean) / np.maximum(std, 1e-12)).max(axis=1)
 
 
 @dataclass(frozen=True)
@@ -66,12 +89,13 @@ class Thresholds:
     radii_deg: np.ndarray
     false_alarm: float
     local: np.ndarray  # (1 - p) quantile at each radius
-    whole_range: np.ndarray  # look-elsewhere corrected curve
-    local_level: float  # p_loc used for the whole-range curve
+    whole_range: np.ndarray  # look-elsewhere corrected curve: mean + z_thr * std
+    local_level: float  # mean fraction of null skies above the whole-range curve at one radius
+    z_threshold: float  # the standardised level of the whole-range curve
     n_null: int
     null_mean: np.ndarray
     null_std: np.ndarray
-    measured_false_alarm: float  # fraction of null skies above the whole-range curve
+    measured_false_alarm: float  # fraction of null skies (leave-one-out) above the whole-range curve
     measured_false_alarm_error: float  # binomial sqrt(f(1-f)/N)
 
     def exceeds(self, smax: np.ndarray) -> np.ndarray:
@@ -84,34 +108,41 @@ def _quantile(null: np.ndarray, level: float) -> np.ndarray:
 
 
 def thresholds(radii_deg, smax_null: np.ndarray, false_alarm: float) -> Thresholds:
-    """Local and look-elsewhere-corrected thresholds from null S_max (n_null, n_radius)."""
+    """Local and look-elsewhere-corrected thresholds from null S_max (n_null, n_radius).
+
+    Whole range: each null sky's largest standardised S_max over radius, T = max_alpha z(alpha)
+    (leave-one-out mean and spread), calibrates z_thr, the (1 - p) quantile of T; the curve is
+    mean(alpha) + z_thr std(alpha). A sky exceeds the curve somewhere exactly when its T exceeds
+    z_thr, so the whole-range false-alarm probability is p whatever the correlation between
+    radii, with N >= 2/p - 1 skies (the standardised-maximum method for the look-elsewhere
+    effect; e.g. Gross & Vitells 2010 for the trials factor it replaces).
+    """
     null = np.asarray(smax_null, dtype=float)
     if null.ndim != 2 or null.shape[1] != len(radii_deg):
         raise ValueError("smax_null must have shape (n_null, n_radius)")
     n = null.shape[0]
     check_null_count(n, false_alarm)
     local = _quantile(null, false_alarm)
-    if null.shape[1] == 1:
-        p_loc = false_alarm
-    else:
-        minp = _loo_min_p(null)
-        # the largest local level whose min-p exceedance fraction stays <= false_alarm
-        p_loc = float(np.quantile(minp, false_alarm, method="lower"))
-        p_loc = max(p_loc, 1.0 / n)
-    whole = _quantile(null, p_loc)
-    above = (null > whole[None, :]).any(axis=1).mean()
-    return Thresholds(np.asarray(radii_deg, float), false_alarm, local, whole, p_loc, n,
-                      null.mean(axis=0), null.std(axis=0, ddof=1) if n > 1 else np.zeros(null.shape[1]),
-                      float(above), float(math.sqrt(max(above * (1 - above), 1e-300) / n)))
+    mean, std = _standardise(null)
+    t = _loo_max_z(null)
+    z_thr = float(np.quantile(t, 1.0 - false_alarm, method="higher"))
+    whole = mean + z_thr * std
+    above = float(np.mean(t > z_thr))
+    local_level = float(np.mean(null > whole[None, :]))
+    return Thresholds(np.asarray(radii_deg, float), false_alarm, local, whole, local_level, z_thr, n,
+                      mean, std, above, float(math.sqrt(max(above * (1 - above), 1e-300) / n)))
 
 
 def global_p_value(smax: np.ndarray, smax_null: np.ndarray) -> float:
-    """Look-elsewhere p-value of a whole S_max curve: the fraction of null skies whose smallest
-    local p-value over radius is at most the data's, with the +1 correction."""
+    """Look-elsewhere p-value of an S_max curve (NaN or -inf radii ignored): the fraction of null
+    skies whose largest standardised S_max is at least the data's, with the +1 correction."""
     null = np.asarray(smax_null, dtype=float)
-    p_data = local_p_values(np.asarray(smax, float)[None, :], null)[0].min()
-    minp = _loo_min_p(null)
-    return float((1.0 + np.sum(minp <= p_data)) / (1.0 + null.shape[0]))
+    mean, std = _standardise(null)
+    z = (np.asarray(smax, float) - mean) / std
+    z = z[np.isfinite(z)]
+    t_data = z.max() if z.size else -np.inf
+    t = _loo_max_z(null)
+    return float((1.0 + np.sum(t >= t_data)) / (1.0 + null.shape[0]))
 
 
 def efficiency(detected: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -222,6 +222,7 @@ class _Hierarchical(Mode):
         final_level = levels[-1].nside
         cands = []
         s_max = {}
+        best = {}
         for o in (st.SAME, st.OPPOSITE):
             sel = np.flatnonzero(orient == o)
             if sel.size == 0:
@@ -235,9 +236,11 @@ class _Hierarchical(Mode):
             s_max[name] = float(s_val[order[0]])
             for i in order:
                 cands.append(_candidate(ca[i], cb[i], radius, twist[i], st.ORIENTATION_SIGN[o], s_val[i], final_level))
+                if i == order[0]:
+                    best[name] = cands[-1]  # the pair that defines S_max (best by the ranking score)
         cands.sort(key=lambda c: -c["S"])
-        return {"radius_deg": key, "candidates": cands, "s_max": s_max, "work": work, "skipped_circles": skipped,
-                "levels": info}
+        return {"radius_deg": key, "candidates": cands, "s_max": s_max, "best": best, "work": work,
+                "skipped_circles": skipped, "levels": info}
 
     # -- refinement ----------------------------------------------------------------------------
     def neighbours(self, nside: int, vec: np.ndarray, radius: float) -> np.ndarray:
@@ -330,7 +333,7 @@ class _Hierarchical(Mode):
             cands.extend(r["candidates"])
             for name in st.ORIENTATION_NAME:
                 if name in r["s_max"]:
-                    best = next(c for c in r["candidates"] if c["orientation"] == name)
+                    best = r.get("best", {}).get(name) or next(c for c in r["candidates"] if c["orientation"] == name)
                     s_max.append({"radius_deg": float(key), "orientation": name, "S_max": r["s_max"][name],
                                   "best": best})
         reported = list(cands)  # per radius: n_report best per orientation, plus the best cut pairs
