@@ -10,11 +10,10 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
-import tempfile
 from pathlib import Path
 
 from ..errors import InputError
+from ..store import atomic_bytes
 
 VERSION = 1
 
@@ -60,18 +59,7 @@ class FileCheckpoint:
     def save(self, key, result: dict) -> None:
         self.results[key] = result
         data = {"fingerprint": self.fp, "version": VERSION, "results": [[k, v] for k, v in self.results.items()]}
-        folder = self.path.parent if str(self.path.parent) else Path(".")
-        fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.", dir=folder)
-        try:
-            with os.fdopen(fd, "w") as fh:
-                json.dump(data, fh, allow_nan=True)
-            os.replace(tmp, self.path)
-        except BaseException:
-            try:
-                os.unlink(tmp)
-            except FileNotFoundError:
-                pass
-            raise
+        atomic_bytes(self.path, json.dumps(data, allow_nan=True).encode())
 
     def finish(self) -> None:
         """A complete search needs no checkpoint: remove it."""
