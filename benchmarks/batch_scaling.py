@@ -1,0 +1,80 @@
+"""Scaling of the null-calibration stage of ``topology run`` on the local engine.
+
+Runs the same null/ tasks (isotropic skies synthesised, observed and searched) with 1 and then
+2 local workers in one run and prints both wall times, the speed-up (target >= 1.7 on 2 cores)
+and the peak resident memory of any worker (ru_maxrss measured inside each task).
+
+    python benchmarks/batch_scaling.py [--n-null 12] [--nside 32]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import resource
+import time
+
+from topology.config import config_from_dict
+from topology.execution import LocalEngine, Task
+from topology.pipeline import build_tasks, plan_from_config
+
+
+def measured(fn, kwargs):
+    """Run one task; return its result, the worker's pid and its peak RSS so far (MB)."""
+    result = fn(**kwargs)
+    return {"result": result, "pid": os.getpid(),
+            "maxrss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0}
+
+
+def config(n_null: int, nside: int) -> dict:
+    return {
+        "maps": [{"name": "iso", "space": {"family": "isotropic"}, "sky": {"seed": 4}}],
+        "mask": {"galactic_b_deg": 10.0},
+        "instrument": {"fwhm_deg": 2.0, "noise_uk": 1.0, "nside": nside, "lmax": 2 * nside},
+        "search": {"radii": "25:50:5", "nside_work": nside, "fwhm_deg": 4.0, "m_max": 24, "centre_nside": 8},
+        "significance": {"n_null": n_null, "false_alarm": 0.2, "n_injections": 1, "injection_radii": "30:40:10",
+                         "seed": 11},
+        "execution": {"engine": "local"},
+    }
+
+
+def timed(tasks, workers: int):
+    eng = LocalEngine(workers)
+    t0 = time.perf_counter()
+    try:
+        res = dict(eng.run(tasks))
+    finally:
+        eng.close()
+    wall = time.perf_counter() - t0
+    per_worker = {}
+    for r in res.values():
+        per_worker[r["pid"]] = max(per_worker.get(r["pid"], 0.0), r["maxrss_mb"])
+    return wall, res, per_worker
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--n-null", type=int, default=12)
+    ap.add_argument("--nside", type=int, default=32)
+    args = ap.parse_args()
+    plan = plan_from_config(config_from_dict(config(args.n_null, args.nside)), "unused_out")
+    nulls = [t for t in build_tasks(plan) if t.id.startswith("null/")]
+    tasks = [Task(t.id, measured, {"fn": t.fn, "kwargs": t.kwargs}) for t in nulls]
+    print(f"null-calibration stage: {len(tasks)} null skies at N_side {args.nside}, "
+          f"{os.cpu_count()} CPUs visible, load average {os.getloadavg()[0]:.2f} (other work skews the ratio)")
+    wall1, res1, mem1 = timed(tasks, 1)
+    print(f"1 worker : {wall1:7.2f} s  ({wall1 / len(tasks):.2f} s per sky), peak worker RSS "
+          f"{max(mem1.values()):.0f} MB")
+    wall2, res2, mem2 = timed(tasks, 2)
+    print(f"2 workers: {wall2:7.2f} s  ({len(mem2)} worker processes used), peak worker RSS "
+          f"{max(mem2.values()):.0f} MB")
+    same = all((res1[k]["result"]["s_max"] == res2[k]["result"]["s_max"]).all() for k in res1)
+    print(f"identical S_max with 1 and 2 workers: {same}")
+    speedup = wall1 / wall2
+    peak = max(max(mem1.values()), max(mem2.values()))
+    print(f"speed-up {speedup:.2f} (target >= 1.7 on 2 cores); load average now {os.getloadavg()[0]:.2f}")
+    print(f"speedup={speedup:.2f} peak_worker_mb={peak:.0f}")
+
+
+if __name__ == "__main__":
+    main()
