@@ -21,8 +21,9 @@ from topology.pipeline import build_tasks, plan_from_config
 
 def measured(fn, kwargs):
     """Run one task; return its result, the worker's pid and its peak RSS so far (MB)."""
+    c0 = time.process_time()
     result = fn(**kwargs)
-    return {"result": result, "pid": os.getpid(),
+    return {"result": result, "pid": os.getpid(), "cpu_s": time.process_time() - c0,
             "maxrss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0}
 
 
@@ -49,6 +50,10 @@ def timed(tasks, workers: int):
     per_worker = {}
     for r in res.values():
         per_worker[r["pid"]] = max(per_worker.get(r["pid"], 0.0), r["maxrss_mb"])
+    cpu = sum(r["cpu_s"] for r in res.values())
+    print(f"{workers} worker(s): {wall:7.2f} s wall ({wall / len(tasks):.2f} s per sky), task CPU {cpu:.1f} s, "
+          f"core use {cpu / (wall * min(workers, len(tasks))):.0%} (below ~90%: other work on the machine), "
+          f"peak worker RSS {max(per_worker.values()):.0f} MB, {len(per_worker)} worker process(es)")
     return wall, res, per_worker
 
 
@@ -63,11 +68,7 @@ def main():
     print(f"null-calibration stage: {len(tasks)} null skies at N_side {args.nside}, "
           f"{os.cpu_count()} CPUs visible, load average {os.getloadavg()[0]:.2f} (other work skews the ratio)")
     wall1, res1, mem1 = timed(tasks, 1)
-    print(f"1 worker : {wall1:7.2f} s  ({wall1 / len(tasks):.2f} s per sky), peak worker RSS "
-          f"{max(mem1.values()):.0f} MB")
     wall2, res2, mem2 = timed(tasks, 2)
-    print(f"2 workers: {wall2:7.2f} s  ({len(mem2)} worker processes used), peak worker RSS "
-          f"{max(mem2.values()):.0f} MB")
     same = all((res1[k]["result"]["s_max"] == res2[k]["result"]["s_max"]).all() for k in res1)
     print(f"identical S_max with 1 and 2 workers: {same}")
     speedup = wall1 / wall2
