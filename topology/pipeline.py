@@ -98,8 +98,9 @@ class RunPlan:
 
 
 def _resolve(base_dir, path: str) -> str:
+    """Absolute path of a config-relative path (workers on other hosts or folders see it too)."""
     p = Path(path)
-    return str(p if p.is_absolute() else Path(base_dir) / p)
+    return str(p if p.is_absolute() else (Path(base_dir) / p).resolve())
 
 
 def _map_specs(cfg: Config) -> list[MapSpec]:

@@ -49,13 +49,24 @@ def _commands():
     return sorted(mods, key=lambda m: order.get(m.NAME, 5))
 
 
-class _Parser(argparse.ArgumentParser):
-    pass
+def _terminate_as_interrupt() -> None:
+    """SIGTERM (a batch system's stop) unwinds like Ctrl-C: partial outputs are removed and the
+    run store stays valid for --resume."""
+    import signal
+
+    def handler(signum, frame):
+        raise KeyboardInterrupt
+
+    try:
+        signal.signal(signal.SIGTERM, handler)
+    except ValueError:  # not the main thread (e.g. called from a notebook worker thread)
+        pass
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    _terminate_as_interrupt()
     if not getattr(args, "_run", None):
         parser.print_help()
         return 2
