@@ -137,7 +137,11 @@ def figure_sky(base: Path, name: str, sky_map, pairs, title_extra="", mask=None)
     m[bad] = hp.UNSEEN
     good = m[~bad]
     lo, hi = (np.percentile(good, [1, 99]) if good.size else (None, None))
-    hp.mollview(m, fig=fig.number, title=f"{name} {title_extra}", unit="microK", cmap="RdBu_r", min=lo, max=hi)
+    import warnings
+
+    with warnings.catch_warnings():  # healpy's own figure and colormap calls warn on new matplotlib
+        warnings.simplefilter("ignore")
+        hp.mollview(m, fig=fig.number, title=f"{name} {title_extra}", unit="microK", cmap="RdBu_r", min=lo, max=hi)
     colors = plt.get_cmap("tab10")
     for i, p in enumerate(pairs):
         for center, style in ((p.center_a, "-"), (p.center_b, "--")):
