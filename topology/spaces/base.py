@@ -8,7 +8,7 @@ less than ``radius`` (in the geometry's units), as 4x4 matrices (see :mod:`topol
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -72,14 +72,3 @@ def sort_holonomies(geometry: str, observer: geo.Observer, mats: np.ndarray, rad
     keep = (~identity) & (d < radius)
     order = np.argsort(d[keep], kind="stable")
     return Holonomies(mats[keep][order], d[keep][order])
-
-
-@dataclass
-class _Param:
-    """Declarative description of one family parameter (used for validation messages)."""
-
-    name: str
-    doc: str
-    default: object = None
-    required: bool = False
-    extra: dict = field(default_factory=dict)
