@@ -15,6 +15,7 @@ manifest a summary. A store made from another config is refused on resume.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import os
@@ -50,14 +51,20 @@ def _fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
-def atomic_bytes(path: Path, data: bytes) -> None:
-    """Write bytes to ``path`` atomically (temp file, fsync, rename, fsync folder)."""
+@contextlib.contextmanager
+def atomic_path(path: Path):
+    """Yield a temporary path beside ``path``; on success fsync it, rename it over ``path`` and
+    fsync the folder; on any error remove it. The temporary file gets the usual permissions."""
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    folder = path.parent if str(path.parent) else Path(".")
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix, dir=folder)
+    os.close(fd)
     try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600
+        yield tmp
+        with open(tmp, "rb") as fh:
             os.fsync(fh.fileno())
         os.replace(tmp, path)
     except BaseException:
@@ -66,7 +73,14 @@ def atomic_bytes(path: Path, data: bytes) -> None:
         except FileNotFoundError:
             pass
         raise
-    _fsync_dir(path.parent)
+    _fsync_dir(folder)
+
+
+def atomic_bytes(path: Path, data: bytes) -> None:
+    """Write bytes to ``path`` atomically (see :func:`atomic_path`)."""
+    with atomic_path(path) as tmp:
+        with open(tmp, "wb") as fh:
+            fh.write(data)
 
 
 class MemoryStore:

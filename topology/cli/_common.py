@@ -5,7 +5,6 @@ from __future__ import annotations
 import json
 import os
 import sys
-import tempfile
 from pathlib import Path
 
 from ..errors import InputError
@@ -39,26 +38,9 @@ def check_writable(path: str | Path, what: str = "output") -> Path:
     return p
 
 
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
 def atomic_write(path: str | Path, write) -> None:
     """Call ``write(tmp_path)`` then rename into place, so no half-written file is ever left."""
-    p = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=p.suffix, dir=p.parent if str(p.parent) else ".")
-    os.close(fd)
-    try:
-        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual permissions
+    from ..store import atomic_path
+
+    with atomic_path(path) as tmp:
         write(tmp)
-        with open(tmp, "rb") as fh:
-            os.fsync(fh.fileno())
-        os.replace(tmp, p)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise

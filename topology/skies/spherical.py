@@ -58,7 +58,9 @@ from scipy.special import sph_harm_y
 
 from .. import geometry as geo
 from ..errors import InputError
+from . import default_kmax
 from .base import Sky, stream_rng
+from .instrument import _legendre_table
 from .s3_harmonics import (
     InvariantProjector, gauss_legendre_grid, grid_to_alm, invariant_ranks, projectors,
     wigner_stack, zonal_s3,
@@ -261,10 +263,6 @@ def field_alm_by_grid(field: InvariantField, observer: geo.Observer, chi: float,
     return alm
 
 
-def _default_kmax(lmax: int, chi: float) -> int:
-    return int(math.ceil(2.0 * lmax / chi))
-
-
 def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside: int | None = None,
                   kmax: int | None = None, terms=("sw",), seed: int = 0) -> Sky:
     """Sachs-Wolfe sky (alm, microK) of the spherical space ``space`` seen by ``observer``.
@@ -293,7 +291,7 @@ def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside:
     seed = _check_int(seed, "[sky] seed", 0)
     chi = float(cosmology.chi_rec_over_curvature_radius)
     if kmax is None:
-        kmax = _default_kmax(lmax, chi)
+        kmax = default_kmax(lmax, chi)
         if kmax > KMAX_LIMIT:
             raise InputError(f"the default kmax = ceil(2 lmax / (chi_rec/R_c)) = {kmax} exceeds {KMAX_LIMIT}; "
                              f"give kmax <= {KMAX_LIMIT} (the sky is then complete to l ~ kmax chi / 2 = "
@@ -327,12 +325,7 @@ def s3_sachs_wolfe_cl(cosmology, lmax: int, kmax: int) -> np.ndarray:
     t_uk = cosmology.t_cmb * 1e6
     x, w = np.polynomial.legendre.leggauss((kmax + lmax) // 2 + 1)
     cos_psi = math.cos(chi) ** 2 + math.sin(chi) ** 2 * x
-    pl = np.empty((lmax + 1, len(x)))
-    pl[0] = 1.0
-    if lmax >= 1:
-        pl[1] = x
-    for ell in range(2, lmax + 1):
-        pl[ell] = ((2 * ell - 1) * x * pl[ell - 1] - (ell - 1) * pl[ell - 2]) / ell
+    pl = _legendre_table(x, lmax)
     var = np.zeros(kmax + 1)
     var[KMIN:] = mode_variance(np.arange(KMIN, kmax + 1), cosmology.curvature_radius_mpc)
     corr = np.zeros(len(x))
