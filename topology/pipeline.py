@@ -152,6 +152,23 @@ def _radii(text: str, where: str) -> np.ndarray:
     return r
 
 
+def _check_files(maps: list[MapSpec], mask: dict) -> None:
+    """Read every FITS map and the mask once before any work, so that a bad file stops the run
+    before an output folder exists (the tasks read them again where they run)."""
+    from .maps import read_healpix
+
+    for m in maps:
+        if m.path:
+            read_healpix(m.path, field=m.field, ordering=m.ordering, what="map")
+    if "path" in mask:
+        _mask_map(mask, 0)
+    elif mask.get("galactic_b_deg") is not None:
+        kept = 1.0 - math.sin(math.radians(float(mask["galactic_b_deg"])))  # sky fraction with |b| >= b0
+        if kept < float(mask["min_sky_fraction"]):
+            raise InputError(f"the band |b| < {mask['galactic_b_deg']} deg leaves {kept:.1%} of the sky, less than "
+                             f"min_sky_fraction = {mask['min_sky_fraction']}", "[mask] galactic_b_deg")
+
+
 def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: str | None = None,
                      workers: int | None = None, scheduler: str | None = None) -> RunPlan:
     """Validate the whole config of a run (files, counts, families) before any work."""
@@ -171,6 +188,7 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
         if not Path(mask["path"]).is_file():
             raise InputError("mask file not found", mask["path"])
     mask.setdefault("min_sky_fraction", cfg.get("mask", "min_sky_fraction"))
+    _check_files(maps, mask)
 
     inst = {k: cfg.get("instrument", k) for k in ("fwhm_deg", "noise_uk", "nside", "lmax", "terms")}
     terms = tuple(inst["terms"])
@@ -680,19 +698,36 @@ def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progre
     """Execute a validated plan end to end; returns the summary (also written to the folder)."""
     timings = {}
     t0 = time.perf_counter()
+    created = False
     if store is None:
         prepare_output(plan.out_dir, force=force, resume=resume)
         if resume and not (plan.out_dir / "store" / "meta.json").exists():
             raise InputError("nothing to resume: the output folder has no run store", str(plan.out_dir))
-        plan.out_dir.mkdir(parents=True, exist_ok=True)
-        store = TaskStore(plan.out_dir / "store", plan.config_hash, resume=resume)
+        created = not plan.out_dir.exists()
+        try:
+            plan.out_dir.mkdir(parents=True, exist_ok=True)
+        except OSError as e:
+            raise InputError(f"cannot create the output folder ({e.strerror or e})", str(plan.out_dir)) from None
+        try:
+            store = TaskStore(plan.out_dir / "store", plan.config_hash, resume=resume)
+        except BaseException:
+            if created:
+                shutil.rmtree(plan.out_dir, ignore_errors=True)
+            raise
     tasks = build_tasks(plan)
     ex = plan.execution
-    engine = make_engine(ex["engine"], ex["workers"], ex["scheduler"])
     try:
-        counts = run_tasks(tasks, store, engine, show_progress)
-    finally:
-        engine.close()
+        engine = make_engine(ex["engine"], ex["workers"], ex["scheduler"])
+        try:
+            counts = run_tasks(tasks, store, engine, show_progress)
+        finally:
+            engine.close()
+    except BaseException:
+        # a run that stops before finishing any task leaves nothing behind; otherwise the store
+        # of finished tasks stays for --resume
+        if created and not store.finished():
+            shutil.rmtree(plan.out_dir, ignore_errors=True)
+        raise
     timings["tasks_s"] = counts["elapsed_s"]
     t1 = time.perf_counter()
     analysis = analyse(plan, store)
@@ -711,7 +746,10 @@ def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progre
     staging = plan.out_dir / f".report-{os.getpid()}"
     if staging.exists():
         shutil.rmtree(staging)
-    staging.mkdir()
+    try:
+        staging.mkdir()
+    except OSError as e:
+        raise InputError(f"cannot write the report ({e.strerror or e})", str(plan.out_dir)) from None
     try:
         t2 = time.perf_counter()
         timings["report_s"] = 0.0
@@ -722,9 +760,13 @@ def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progre
         summary["provenance"] = provenance
         (staging / "summary.json").write_text(json.dumps(summary, indent=1, default=_json_default, allow_nan=False))
         # move into place: summary.json last, so a folder with summary.json is a whole report
+        (plan.out_dir / "summary.json").unlink(missing_ok=True)
         names = sorted(os.listdir(staging), key=lambda n: n == "summary.json")
         for n in names:
             os.replace(staging / n, plan.out_dir / n)
+    except OSError as e:  # disk full, quota, permissions: the store of finished tasks stays valid
+        raise InputError(f"cannot write the report ({e.strerror or e}); the finished tasks are kept in the store: "
+                         "free space, then rerun with --resume", str(plan.out_dir)) from None
     finally:
         shutil.rmtree(staging, ignore_errors=True)
     return summary

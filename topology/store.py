@@ -57,7 +57,10 @@ def atomic_path(path: Path):
     fsync the folder; on any error remove it. The temporary file gets the usual permissions."""
     path = Path(path)
     folder = path.parent if str(path.parent) else Path(".")
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix, dir=folder)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix, dir=folder)
+    except OSError as e:
+        raise InputError(f"cannot write here ({e.strerror or e})", str(path)) from None
     os.close(fd)
     try:
         umask = os.umask(0)
@@ -67,11 +70,13 @@ def atomic_path(path: Path):
         with open(tmp, "rb") as fh:
             os.fsync(fh.fileno())
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as e:
         try:
             os.unlink(tmp)
-        except FileNotFoundError:
+        except OSError:
             pass
+        if isinstance(e, OSError):  # disk full, quota, read-only file system, permissions
+            raise InputError(f"cannot write ({e.strerror or e}); nothing was written to this file", str(path)) from None
         raise
     _fsync_dir(folder)
 

@@ -19,8 +19,15 @@ EPILOG = """exit status: 0 success, 2 bad input, 3 internal error, 130 interrupt
 example: topology predict configs/demo.toml --json"""
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with a one-line usage error (exit 2), like every other bad input."""
+
+    def error(self, message):
+        self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="topology",
         description="Matched-circle tests of the topology of space on HEALPix maps.",
         epilog=EPILOG,
@@ -63,15 +70,45 @@ def _terminate_as_interrupt() -> None:
         pass
 
 
+_WARNINGS: list[str] = []
+
+
+def _one_line_warnings(command: str) -> None:
+    """Library warnings (astropy on odd FITS headers, healpy) become one line each, kept until
+    the command ends: printed after a success, dropped after an error (whose one line says what
+    matters)."""
+    import warnings
+
+    _WARNINGS.clear()
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        text = " ".join(str(message).split())
+        line = f"topology {command}: warning: {text[:300]}"
+        if line not in _WARNINGS:
+            _WARNINGS.append(line)
+
+    warnings.showwarning = show
+    try:  # astropy routes warnings through its own logger (several lines): take them back
+        from astropy import log
+
+        log.disable_warnings_logging()
+    except Exception:  # noqa: BLE001 - astropy missing or already changed: keep its logger
+        pass
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     _terminate_as_interrupt()
+    _one_line_warnings(getattr(args, "command", None) or "")
     if not getattr(args, "_run", None):
         parser.print_help()
         return 2
     try:
-        return int(args._run(args) or 0)
+        code = int(args._run(args) or 0)
+        for line in _WARNINGS:
+            print(line, file=sys.stderr)
+        return code
     except InputError as e:
         print(f"topology {args.command}: error: {e}", file=sys.stderr)
         return 2
