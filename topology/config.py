@@ -166,7 +166,10 @@ SCHEMA.update({
         "seed": Key((int,), 0, "run seed: every null and injected sky derives its seed from it and its task id", _non_negative),
         "injection_radii": Key((str,), "15:75:10", "radii of injected circles START:STOP:STEP (degrees, < 90)"),
         "n_injections": Key((int,), 20, "injected skies per radius", _positive),
-        "injection_family": Key((str,), "E1", "family of the injected skies: E1 (cubic torus, side 2 chi_rec cos(alpha))"),
+        "injection_family": Key((str, dict), "E1", "family of the injected skies: 'E1' (cubic torus, side 2 chi_rec "
+                                "cos(alpha)) or a compact flat or spherical family in the [space] format, e.g. "
+                                "{family = \"E2\", lengths = [1, 1, 0.8]}, scaled so its largest circles have the "
+                                "injected radius"),
         "radius_tolerance_deg": Key(NUMBER, None, "an injected circle counts as found within this of its radius (default one radius step)", _non_negative),
     },
     "bounds": {

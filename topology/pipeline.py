@@ -219,9 +219,11 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
     if inj.min() < radii.min() - 1e-9 or inj.max() > radii.max() + 1e-9:
         raise InputError(f"injection radii {inj.min():g}..{inj.max():g} deg lie outside the searched radii "
                          f"{radii.min():g}..{radii.max():g} deg", "[significance] injection_radii")
-    if sg["injection_family"] != "E1":
-        raise InputError(f"only 'E1' (cubic torus) injections are available, got {sg['injection_family']!r}",
-                         "[significance] injection_family")
+    from . import injection
+
+    sg["injection_family"] = injection.injection_spec(sg["injection_family"])
+    nside_sim = int(inst["nside"] or 64)
+    injection.check(sg["injection_family"], cosmo, inj, int(inst["lmax"] or min(2 * nside_sim, 3 * nside_sim - 1)))
     if sg["radius_tolerance_deg"] is None:
         sg["radius_tolerance_deg"] = float(np.min(np.diff(radii))) if radii.size > 1 else 1.0
 
@@ -366,29 +368,35 @@ def random_rotation(rng: np.random.Generator) -> tuple[float, float, float]:
 
 
 def task_injection(plan_d: dict, radius_deg: float, index: int, task_id: str) -> dict:
-    from . import geometry as geo
+    """One injected sky (:mod:`topology.injection`): the configured family scaled so that its
+    largest circles have a radius drawn uniformly within half a search step of the nominal one
+    (so the efficiency covers circles between the grid radii too), observed and searched."""
+    from . import injection
     from .scenario import cosmology_from_config
-    from .skies.flat import flat_sky
     from .skies.instrument import observe
-    from .spaces import build_space
 
     nside, lmax = _sim_settings(plan_d, plan_d["nside_hint"])
     seed = _int_seed(plan_d["significance"]["seed"], task_id)
     rng = np.random.default_rng(task_seed(plan_d["significance"]["seed"], task_id + "/geometry"))
     cosmo = cosmology_from_config(config_from_dict({"cosmology": plan_d["sections"].get("cosmology", {})}))
-    # the injected radius is drawn uniformly within half a search step of the nominal one, so the
-    # efficiency covers circles between the grid radii too (not only those on the grid)
     half = 0.5 * float(plan_d["radius_step_deg"])
     radius_true = float(np.clip(radius_deg + rng.uniform(-half, half), 0.5, 89.5))
-    side = 2.0 * math.cos(math.radians(radius_true))
-    space = build_space({"family": "E1", "lengths": [side] * 3})
-    observer = geo.Observer.make("flat", rng.uniform(0, side, 3), geo.euler_zyz(*random_rotation(rng)))
+    space, observer, cosmo_inj = injection.scaled(plan_d["significance"]["injection_family"], radius_true, rng, cosmo)
     inst = plan_d["instrument"]
-    sky = flat_sky(space, observer, cosmo, lmax=lmax, nside=nside, method="auto", terms=tuple(inst["terms"]), seed=seed)
+    terms = tuple(inst["terms"])
+    if space.geometry == "flat":
+        from .skies.flat import flat_sky
+
+        sky = flat_sky(space, observer, cosmo_inj, lmax=lmax, nside=nside, method="auto", terms=terms, seed=seed)
+    else:
+        from .skies.spherical import spherical_sky
+
+        sky = spherical_sky(space, observer, cosmo_inj, lmax=lmax, nside=nside, terms=terms, seed=seed)
     m = observe(sky, nside=nside, lmax=lmax, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"], seed=seed)
     res = _search(m, plan_d, task_id)
     return {"s_max": _smax_by_radius(res, np.asarray(plan_d["radii_deg"])), "radius_deg": float(radius_deg),
-            "radius_true_deg": radius_true, "seed": seed, "elapsed_s": res["elapsed_s"]}
+            "radius_true_deg": radius_true, "seed": seed, "elapsed_s": res["elapsed_s"],
+            "omega_k": float(cosmo_inj.omega_k)}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -536,6 +544,7 @@ def analyse(plan: RunPlan, store) -> dict:
         "measured_false_alarm": th.measured_false_alarm, "measured_false_alarm_error": th.measured_false_alarm_error,
         "injection_radii_deg": inj_r.tolist(), "efficiency": eff.tolist(), "efficiency_error": eff_err.tolist(),
         "n_injections": n_inj, "efficiency_level": level, "alpha_min_deg": amin,
+        "injection_family": plan.significance["injection_family"], "injection": injection_name(plan),
     }
     return {"maps": maps_out, "calibration": calib, "_thresholds": th, "_null": null, "_extra": extra}
 
@@ -651,13 +660,19 @@ def write_report(plan: RunPlan, analysis: dict, provenance: dict, staging: Path)
     return summary
 
 
+def injection_name(plan: RunPlan) -> str:
+    from .injection import describe
+
+    return describe(plan.significance["injection_family"])
+
+
 def calib_fa(plan: RunPlan) -> str:
     return f"{float(plan.significance['false_alarm']):g}"
 
 
 def caution_text(plan: RunPlan) -> str:
     return CAUTION.format(n_null=plan.significance["n_null"], terms="+".join(plan.instrument["terms"]).upper(),
-                          false_alarm=calib_fa(plan), injection="cubic-torus (E1)",
+                          false_alarm=calib_fa(plan), injection=injection_name(plan),
                           level=float(plan.significance["efficiency_level"]))
 
 

@@ -1,0 +1,143 @@
+"""Injected skies for the sensitivity stage: a multiply connected space of a chosen family,
+scaled so that its largest matched circles have a chosen radius alpha.
+
+The family is given in the ``[space]`` format (``{family = "E2", lengths = [1, 1, 0.8]}``,
+``{family = "lens", p = 8, q = 1}``); the default ``"E1"`` is the cubic torus. Its size is fixed
+by alpha, from the circle relation of Cornish, Spergel & Starkman (1998) for the shortest clone
+distance d_min the (random) observer sees:
+
+* flat families: every length (and the observer position) is multiplied by lambda; distances
+  scale with lambda, so cos(alpha) = lambda d_min(1) / 2 gives lambda = 2 cos(alpha) / d_min(1),
+  d_min(1) measured at unit scale (lengths as given, in chi_rec);
+* spherical families: the shape is fixed and the size is chi = chi_rec / R_c; from
+  cos(alpha) = tan(d_min / 2) / tan(chi), chi = arctan(tan(d_min / 2) / cos(alpha)), and Omega_K
+  follows (h, omega_b h^2, omega_c h^2 and z_* kept; Omega_Lambda takes up the change).
+
+Observers: flat, uniform in the box spanned by the largest length; spherical, uniform on S^3;
+orientation uniform on SO(3). Hyperbolic families have their size fixed by the curvature and
+cannot be scaled to a radius: they are refused.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from . import geometry as geo
+from .errors import InputError
+
+WHERE = "[significance] injection_family"
+
+
+def injection_spec(value) -> dict:
+    """The family spec of ``[significance] injection_family`` (a name or a [space]-style table)."""
+    if isinstance(value, str):
+        if value == "E1":
+            return {"family": "E1", "lengths": [1.0, 1.0, 1.0]}
+        spec = {"family": value}
+    elif isinstance(value, dict):
+        spec = dict(value)
+    else:
+        raise InputError("must be a family name or a table like {family = \"E2\", lengths = [1, 1, 0.8]}", WHERE)
+    if "family" not in spec:
+        raise InputError("the table needs a family", WHERE)
+    for k in ("length_unit",):
+        if k in spec and spec[k] != "chi_rec":
+            raise InputError("injected lengths set only the shape: give them in chi_rec", WHERE)
+    return spec
+
+
+def describe(spec: dict) -> str:
+    """A short name of the injected family for reports: 'cubic torus (E1)', 'E2(lengths=...)'."""
+    if spec.get("family") == "E1" and np.allclose(spec.get("lengths", [0, 1, 2]), spec.get("lengths", [1])[0]) \
+            and not spec.get("angles"):
+        return "cubic-torus (E1)"
+    args = ", ".join(f"{k}={v}" for k, v in spec.items() if k != "family")
+    return f"{spec['family']}({args})" if args else spec["family"]
+
+
+def _unit_space(spec: dict):
+    from .spaces import build_space
+
+    try:
+        return build_space(spec)
+    except InputError as e:
+        raise InputError(e.reason, f"{WHERE} ({e.where or 'space'})") from None
+
+
+def _d_min(space, observer) -> float:
+    """Shortest clone distance of the observer (flat: in the lengths' units; spherical: radians)."""
+    from .circles import predict_circles
+
+    if space.geometry == "flat":
+        chi = 2.0 * max(abs(float(v)) for v in space.params.get("lengths", [1.0])) + 1.0
+        pairs = predict_circles(space, observer, chi)
+        if not pairs:
+            raise InputError("no clone of the observer found: the family has no circles to inject", WHERE)
+        return 2.0 * chi * math.cos(pairs[0].radius)
+    chi = 0.5 * math.pi - 1e-3
+    pairs = predict_circles(space, observer, chi)
+    if not pairs:
+        raise InputError("no clone of the observer found: the family has no circles to inject", WHERE)
+    return 2.0 * math.atan(math.cos(pairs[0].radius) * math.tan(chi))
+
+
+def _random_observer(space, rng: np.random.Generator):
+    from .pipeline import random_rotation
+
+    if space.geometry == "flat":
+        box = max(abs(float(v)) for v in space.params.get("lengths", [1.0]))
+        pos = rng.uniform(0.0, box, 3)
+    else:
+        x = rng.normal(size=4)
+        pos = x / np.linalg.norm(x)
+    return pos, geo.euler_zyz(*random_rotation(rng))
+
+
+def check(spec: dict, cosmo, radii_deg, lmax: int) -> None:
+    """Plan-time checks: a compact flat or spherical family whose skies exist at these radii."""
+    space = _unit_space(spec)
+    if space.geometry == "hyperbolic":
+        raise InputError("hyperbolic spaces have their size fixed by the curvature and cannot be scaled to an "
+                         "injection radius; use a flat or spherical family", WHERE)
+    if not getattr(space, "compact", True):
+        raise InputError(f"{space.family} is not compact; inject a compact family", WHERE)
+    pos = np.zeros(3) if space.geometry == "flat" else np.array([1.0, 0.0, 0.0, 0.0])
+    obs = geo.Observer.make(space.geometry, pos)
+    d = _d_min(space, obs)
+    if space.geometry == "spherical":
+        from .skies.spherical import KMAX_LIMIT
+
+        chi = math.atan(math.tan(d / 2.0) / math.cos(math.radians(float(min(radii_deg)))))
+        kmax = math.ceil(2 * lmax / chi)
+        if kmax > KMAX_LIMIT:
+            raise InputError(f"a {space.family} sky with circles of {min(radii_deg):g} deg (chi_rec/R_c = {chi:.3f}) "
+                             f"at lmax {lmax} needs S^3 modes up to k = {kmax} > {KMAX_LIMIT}; lower [instrument] "
+                             f"lmax to {int(KMAX_LIMIT * chi / 2)} or raise the smallest injection radius", WHERE)
+
+
+def scaled(spec: dict, alpha_deg: float, rng: np.random.Generator, cosmo):
+    """(space, observer, cosmology) of one injection whose largest circles have radius alpha."""
+    from .spaces import build_space
+
+    alpha = math.radians(alpha_deg)
+    unit = _unit_space(spec)
+    pos, rot = _random_observer(unit, rng)
+    if unit.geometry == "flat":
+        d1 = _d_min(unit, geo.Observer.make("flat", pos))
+        lam = 2.0 * math.cos(alpha) / d1
+        sc = dict(spec)
+        for key in ("lengths",):
+            if key in sc:
+                sc[key] = [lam * float(v) for v in sc[key]]
+        space = build_space(sc)
+        return space, geo.Observer.make("flat", lam * np.asarray(pos), rot), cosmo
+    from .cosmology import omega_k_for_ratio
+
+    d = _d_min(unit, geo.Observer.make("spherical", pos))
+    chi = math.atan(math.tan(d / 2.0) / math.cos(alpha))
+    ok = omega_k_for_ratio(cosmo, chi, -1)
+    if ok is None:
+        raise InputError(f"no Omega_K > -0.5 gives chi_rec/R_c = {chi:.3f} for circles of {alpha_deg:g} deg", WHERE)
+    return unit, geo.Observer.make("spherical", pos, rot), cosmo.with_omega_k(ok)
