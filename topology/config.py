@@ -4,12 +4,15 @@ A config is a TOML file of sections. Each known section has a schema here: the k
 their types and defaults, and a line of documentation (printed by ``topology keys``). Unknown
 sections and keys are errors with a did-you-mean; wrong types are errors that name the key.
 Family-specific keys of ``[space]`` are checked by :mod:`topology.spaces.registry`.
+:func:`load_config` then runs :func:`check_config` (background, spaces, observers, inline skies,
+[bounds] families) so that a bad file stops before any work, with the file named in the error.
 """
 
 from __future__ import annotations
 
 import difflib
 import math
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -188,6 +191,51 @@ SCHEMA.update({
 })
 
 
+def radii_problem(text, *, below_90: bool = False) -> str | None:
+    """What is wrong with a radii string 'START:STOP:STEP' (degrees, both ends included) or a
+    single radius, or None. Radii lie in (0, 90] (below 90 when ``below_90``)."""
+    parts = str(text).split(":")
+    try:
+        nums = [float(v) for v in parts]
+    except ValueError:
+        nums = None
+    if nums is None or len(nums) not in (1, 3):
+        return "expected START:STOP:STEP in degrees (or one radius)"
+    if not all(math.isfinite(v) for v in nums):
+        return "radii must be finite numbers of degrees"
+    if len(nums) == 3:
+        start, stop, step = nums
+        if not step > 0:
+            return "needs STEP > 0"
+        if stop < start:
+            return "needs START <= STOP"
+        if (stop - start) / step > 100_000:
+            return "more than 100000 radii"
+        nums = [start, start + math.floor((stop - start) / step + 1e-9) * step]
+    if min(nums) <= 0 or max(nums) > 90:
+        return "radii must lie in (0, 90] degrees"
+    if below_90 and max(nums) >= 90:
+        return "injected circles need radii below 90 degrees"
+    return None
+
+
+# Checks that need more than a key's own schema entry, kept outside the section blocks:
+# (section, key) -> callable(value) -> error string or None
+EXTRA_CHECKS = {
+    ("search", "radii"): radii_problem,
+    ("significance", "injection_radii"): lambda v: radii_problem(v, below_90=True),
+}
+
+
+def _cross_check(name: str, entry: dict, where: str) -> None:
+    """Checks between keys of one table: lmax <= 3 nside - 1 (HEALPix band limit, common practice)."""
+    if name in ("sky", "instrument") and isinstance(entry.get("nside"), int) and isinstance(entry.get("lmax"), int):
+        nside, lmax = entry["nside"], entry["lmax"]
+        if lmax > 3 * nside - 1:
+            raise InputError(f"must be <= 3 nside - 1 = {3 * nside - 1} for nside {nside}, got {lmax}",
+                             f"{where}: [{name}] lmax")
+
+
 def register_section(name: str, keys: dict[str, Key]) -> None:
     """Add a section schema (used by stages that bring their own config sections)."""
     SCHEMA[name] = keys
@@ -254,10 +302,16 @@ def validate(data: dict, where: str = "config") -> dict:
                     raise InputError(f"must be {want}, got {type(value).__name__} {value!r}", f"{where}: [{name}] {key}")
                 if isinstance(value, float) and not math.isfinite(value):
                     raise InputError(f"must be finite, got {value}", f"{where}: [{name}] {key}")
-                if spec.check is not None:
-                    msg = spec.check(value)
+                if isinstance(value, list) and any(isinstance(v, float) and not math.isfinite(v) for v in value):
+                    raise InputError(f"must hold finite numbers, got {value!r}", f"{where}: [{name}] {key}")
+                for check in (spec.check, EXTRA_CHECKS.get((name, key))):
+                    msg = check(value) if check is not None else None
                     if msg:
                         raise InputError(f"{msg}, got {value!r}", f"{where}: [{name}] {key}")
+            _cross_check(name, entry, where)
+        if name == "maps":
+            for i, entry in enumerate(entries):  # inline sky: [space], [observer], [sky] tables
+                validate({k: entry[k] for k in ("space", "observer", "sky") if k in entry}, f"{where}: [[maps]] #{i + 1}")
     return data
 
 
@@ -275,7 +329,153 @@ def load_config(path: str | Path) -> Config:
     except _toml.TOMLDecodeError as e:
         raise InputError(f"not valid TOML ({e})", str(p)) from None
     validate(data, str(p))
-    return Config(data, p, text)
+    cfg = Config(data, p, text)
+    check_config(cfg)
+    return cfg
+
+
+@contextmanager
+def naming_file(cfg: Config | None):
+    """Re-raise an InputError about a config key (where = "[section] key") with the config file
+    in front, so the one-line error names both."""
+    try:
+        yield
+    except InputError as e:
+        if cfg is not None and cfg.path is not None and e.where and e.where.startswith("["):
+            raise InputError(e.reason, f"{cfg.path}: {e.where}") from None
+        raise
+
+
+def _rename(e: InputError, prefix: str, strip: str = "") -> InputError:
+    """The same error with ``prefix`` in front of its key (``strip`` removed from the key first)."""
+    key = e.where or ""
+    if strip and key.startswith(strip):
+        key = key[len(strip):]
+    elif key.startswith("["):
+        return InputError(e.reason, f"{prefix}: {key}")
+    else:
+        return e  # a file: it names itself
+    return InputError(e.reason, f"{prefix} {key}")
+
+
+def check_config(cfg: Config) -> None:
+    """Checks of a loaded config that need more than the schema, run before any work: the
+    background cosmology, the family, parameters and observer of every space ([space],
+    [[maps]] inline skies, [bounds] families), band limits of inline skies. Errors name the file.
+    """
+    with naming_file(cfg):
+        _check_config(cfg)
+
+
+def _check_config(cfg: Config) -> None:
+    from .cosmology import Cosmology, cosmology_from_section
+    from .spaces import build_space
+
+    data = cfg.sections
+    spaces = "space" in data or "maps" in data or data.get("bounds", {}).get("families")
+    if not ("cosmology" in data or spaces):
+        return
+    cosmo = cosmology_from_section(data.get("cosmology", {})) if "cosmology" in data else Cosmology()
+    if "space" in data:
+        _check_scenario(cfg.section("space"), cfg.section("observer") if "observer" in data else None,
+                        cosmo, cfg.base_dir, curvature=False)
+
+    maps = data.get("maps", [])
+    maps = [maps] if isinstance(maps, dict) else maps
+    inst = data.get("instrument", {})
+    for i, e in enumerate(maps):
+        if "space" not in e:
+            continue
+        where = f"[[maps]] #{i + 1}"
+        try:
+            _check_scenario(e["space"], e.get("observer"), cosmo, cfg.base_dir, curvature=True,
+                            sky=e.get("sky", {}))
+        except InputError as err:
+            raise _rename(err, where) from None
+        sky = e.get("sky", {})
+        if "lmax" in sky or "lmax" in inst:
+            nside = sky.get("nside", inst.get("nside", 64))
+            lmax = sky.get("lmax", inst.get("lmax"))
+            if lmax > 3 * nside - 1:
+                key = f"{where} sky lmax" if "lmax" in sky else "[instrument] lmax"
+                raise InputError(f"the inline sky {e.get('name', '')!r} has nside {nside}, which supports lmax <= "
+                                 f"3 nside - 1 = {3 * nside - 1}, got lmax {lmax}", key)
+
+    for i, fam in enumerate(data.get("bounds", {}).get("families", [])):
+        where = f"[bounds] families #{i + 1}"
+        if not isinstance(fam, dict):
+            raise InputError('each family is a table like {family = "lens", p = 8, q = 3}', where)
+        spec = {k: v for k, v in fam.items() if k not in ("position", "orientation")}
+        try:
+            if spec.get("family") == "isotropic":
+                raise InputError("a bound needs a multiply connected family, not 'isotropic'", "[space] family")
+            space = build_space(spec, chi_rec_mpc=cosmo.chi_rec_mpc, base_dir=cfg.base_dir)
+        except InputError as err:
+            if err.where and err.where.startswith("[space] ") and "unknown key" in err.reason:
+                # family keys plus the observer's position and orientation
+                from .spaces.registry import allowed_keys
+
+                key = err.where[len("[space] "):]
+                ok = sorted(allowed_keys(spec["family"]) | {"position", "orientation"})
+                raise InputError(f"unknown key for family {spec['family']}{_did_you_mean(key, ok)}; "
+                                 f"allowed: {', '.join(ok)}", f"{where} {key}") from None
+            raise _rename(err, where, "[space] ") from None
+        try:
+            obs = _bound_observer(space, fam)
+            if space.geometry == "hyperbolic":
+                from .bounds import shortest_displacement
+
+                shortest_displacement(space, obs)  # a fixed point of the group raises here
+        except InputError as err:
+            raise _rename(err, where, "[observer] ") from None
+
+
+def _bound_observer(space, fam: dict):
+    """The observer of a [bounds] family: ``position`` (default the origin) and ``orientation``."""
+    from . import geometry as geo
+
+    angles = fam.get("orientation", [0.0, 0.0, 0.0])
+    if not (isinstance(angles, list) and len(angles) == 3 and all(_type_ok(a, NUMBER) for a in angles)):
+        raise InputError(f"must be three Euler angles z-y-z in degrees, got {angles!r}", "[observer] orientation")
+    pos = fam.get("position")
+    if pos is None:
+        pos = geo.origin(space.geometry)[:3] if space.geometry == "flat" else geo.origin(space.geometry)
+    elif not (isinstance(pos, list) and all(_type_ok(a, NUMBER) for a in pos)):
+        raise InputError(f"must be a list of numbers, got {pos!r}", "[observer] position")
+    try:
+        return geo.Observer.make(space.geometry, pos, geo.euler_zyz(*[math.radians(a) for a in angles]))
+    except InputError as err:
+        raise InputError(err.reason, "[observer] position") from None
+
+
+def _check_scenario(space_sec: dict, observer_sec: dict | None, cosmo, base_dir, *, curvature: bool,
+                    sky: dict | None = None) -> None:
+    """Family, parameters and observer of one space table (``isotropic`` takes no parameters);
+    with ``curvature``, also the agreement of the family's geometry with the background and the
+    sky methods available for it (inline skies of a run)."""
+    from .scenario import lss_radius, observer_from_config
+    from .spaces import build_space
+
+    family = space_sec.get("family")
+    if family is None:
+        raise InputError('missing: give a family of space (or "isotropic" for a sky)', "[space] family")
+    if family == "isotropic":
+        extra = sorted(k for k in space_sec if k != "family")
+        if extra:
+            raise InputError(f"the isotropic sky takes no [space] parameters, got {', '.join(extra)}",
+                             f"[space] {extra[0]}")
+        return
+    space = build_space(space_sec, chi_rec_mpc=cosmo.chi_rec_mpc, base_dir=base_dir)
+    sub = Config({"space": space_sec, **({"observer": observer_sec} if observer_sec is not None else {})})
+    observer_from_config(sub, space, cosmo)
+    if curvature:
+        lss_radius(space, cosmo)
+        if space.geometry == "hyperbolic":
+            raise InputError(f"synthetic skies are not available for hyperbolic spaces (family {family})",
+                             "[space] family")
+        if space.geometry == "spherical" and (sky or {}).get("method") == "grid":
+            raise InputError("spherical skies are built from eigenmodes only: use 'eigenmode' or 'auto'",
+                             "[sky] method")
 
 
 def config_from_dict(data: dict, where: str = "config") -> Config:

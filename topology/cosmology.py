@@ -55,25 +55,47 @@ class Cosmology:
 
     def __post_init__(self):
         checks = [
-            ("h", 0.1 <= self.h <= 2.0, "must be in [0.1, 2]"),
-            ("omega_b_h2", self.omega_b_h2 > 0, "must be positive"),
-            ("omega_c_h2", self.omega_c_h2 >= 0, "must not be negative"),
-            ("t_cmb", self.t_cmb > 0, "must be positive (K)"),
-            ("n_eff", self.n_eff >= 0, "must not be negative"),
-            ("omega_k", -1.0 < self.omega_k < 1.0, "must be in (-1, 1)"),
-            ("z_star", self.z_star is None or 1.0 < self.z_star < 1e5, "must be in (1, 1e5)"),
+            ("h", 0.1 <= self.h <= 2.0, "H0 = 100 h km/s/Mpc needs h in [0.1, 2]"),
+            ("omega_b_h2", self.omega_b_h2 > 0, "the physical baryon density must be positive"),
+            ("omega_c_h2", self.omega_c_h2 >= 0, "the physical dark-matter density must not be negative"),
+            ("t_cmb", self.t_cmb > 0, "the CMB temperature must be positive (K)"),
+            ("n_eff", self.n_eff >= 0, "the number of neutrino species must not be negative"),
+            ("z_star", self.z_star is None or 1.0 < self.z_star < 1e5, "the redshift of last scattering must be in (1, 1e5)"),
         ]
         for key, ok, msg in checks:
             if not ok:
                 raise InputError(f"{msg}, got {getattr(self, key)!r}", f"[cosmology] {key}")
-        if self.omega_lambda < -1e-12 and self.omega_k < 0:
-            pass  # negative Lambda is allowed in principle; E(z) is checked below
-        zz = np.geomspace(1e-4, self.zstar, 2000)
-        if np.any(self.e2(zz) <= 0) or self.e2(0.0) <= 0:
-            raise InputError("no last-scattering surface: H(z)^2 <= 0 between z = 0 and z_* for these densities",
-                             "[cosmology]")
-        if self.omega_k < 0 and self.chi_rec_over_curvature_radius >= math.pi:
-            raise InputError("the last-scattering sphere wraps around S^3 (chi_rec >= pi R_c)", "[cosmology] omega_k")
+        z_min, e2_min = self.e2_minimum()
+        if e2_min <= 0:
+            # E^2(0) = 1 > 0, so E^2 crosses zero below z_min: the redshift of the bounce
+            z_b = optimize.brentq(lambda z: float(self.e2(z)), 0.0, z_min) if z_min > 0 else 0.0
+            raise InputError(
+                f"no last-scattering surface: with Omega_m = {self.omega_m:.4g}, Omega_K = {self.omega_k:.4g} and "
+                f"Omega_Lambda = {self.omega_lambda:.4g}, H(z)^2 = H0^2 E(z)^2 reaches 0 at z = {z_b:.3g} "
+                f"(a bounce, no big bang), before z_* = {self.zstar:.0f}", "[cosmology] omega_k")
+        if not -1.0 < self.omega_k < 1.0:
+            raise InputError(f"the curvature density must be in (-1, 1), got {self.omega_k!r}", "[cosmology] omega_k")
+        if self.omega_k < 0:
+            ratio = self.chi_rec_over_curvature_radius
+            if ratio >= math.pi:
+                raise InputError(f"chi_rec / R_c = {ratio:.3f} >= pi: the last-scattering sphere wraps around S^3 "
+                                 f"(a closed universe this curved has no last-scattering sphere to search)",
+                                 "[cosmology] omega_k")
+
+    def e2_minimum(self) -> tuple[float, float]:
+        """(z, E(z)^2) at the smallest E^2 over 0 <= z <= z_*, exactly.
+
+        E^2 is the polynomial O_r x^4 + O_m x^3 + O_K x^2 + O_L in x = 1 + z; its interior
+        extrema solve x (4 O_r x^2 + 3 O_m x + 2 O_K) = 0, so the minimum is at an end point or at
+        a positive root of the quadratic.
+        """
+        x1 = 1.0 + self.zstar
+        xs = [1.0, x1]
+        roots = np.roots([4.0 * self.omega_r, 3.0 * self.omega_m, 2.0 * self.omega_k])
+        xs += [float(r.real) for r in roots if abs(r.imag) < 1e-12 and 1.0 < r.real < x1]
+        vals = [float(self.e2(x - 1.0)) for x in xs]
+        i = int(np.argmin(vals))
+        return xs[i] - 1.0, vals[i]
 
     # -- densities ---------------------------------------------------------------------------
     @property
@@ -182,3 +204,28 @@ def omega_k_for_ratio(cosmo: Cosmology, ratio: float, sign: int) -> float | None
             return None
     ok_abs = optimize.brentq(f, 1e-14, hi, xtol=1e-14, rtol=1e-12)
     return sign * ok_abs
+
+
+def cosmology_from_section(sec: dict) -> Cosmology:
+    """The background of a ``[cosmology]`` table (keys as in :class:`Cosmology`, or ``omega_lambda``
+    instead of ``omega_k``: Omega_K = 1 - Omega_m - Omega_r - Omega_Lambda).
+
+    Errors about the curvature name ``omega_lambda`` when that is the key the table gives.
+    """
+    sec = {k: (float(v) if v is not None else None) for k, v in dict(sec).items()}
+    if "omega_lambda" not in sec:
+        return Cosmology(**sec)
+    if "omega_k" in sec:
+        raise InputError("give omega_k or omega_lambda, not both", "[cosmology] omega_lambda")
+    lam = sec.pop("omega_lambda")
+    probe = Cosmology(**sec)  # flat: only its Omega_m and Omega_r are used
+    sec["omega_k"] = 1.0 - probe.omega_m - probe.omega_r - lam
+    try:
+        return Cosmology(**sec)
+    except InputError as e:
+        if e.where != "[cosmology] omega_k":
+            raise
+        reason = e.reason if "Omega_Lambda =" in e.reason else (
+            f"Omega_Lambda = {lam:g} gives Omega_K = 1 - Omega_m - Omega_r - Omega_Lambda = {sec['omega_k']:.4g}: "
+            f"{e.reason}")
+        raise InputError(reason, "[cosmology] omega_lambda") from None

@@ -63,7 +63,10 @@ def run(args):
         kw["m_max"] = args.m_max
     if args.positions is not None:
         kw["n_positions"] = args.positions
-    summary = bounds.bound_summary(a, config=cfg, seed=args.seed, **kw)
+    from ..config import naming_file
+
+    with naming_file(cfg):  # errors about a key name the config file too
+        summary = bounds.bound_summary(a, config=cfg, seed=args.seed, **kw)
     if paths:
         table = bounds.bounds_table(summary)
         ecsv, tex = paths

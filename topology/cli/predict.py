@@ -31,13 +31,14 @@ def prediction(cfg) -> dict:
 
 
 def run(args):
-    from ..config import load_config
+    from ..config import load_config, naming_file
     from ._common import atomic_write, check_writable, print_json
 
     cfg = load_config(args.config)
     if args.plot:
         check_writable(args.plot, "plot")
-    out, pairs = prediction(cfg)
+    with naming_file(cfg):  # errors about a key name the config file too
+        out, pairs = prediction(cfg)
     if args.plot:
         from ..plots import plot_circles
 

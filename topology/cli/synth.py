@@ -85,14 +85,20 @@ def _readable(write):
 
 
 def run(args):
+    from ..config import load_config, naming_file
+
+    cfg = load_config(args.config)
+    with naming_file(cfg):  # errors about a key name the config file too
+        return _run(args, cfg)
+
+
+def _run(args, cfg):
     import json
     from pathlib import Path
 
-    from ..config import load_config
     from ..errors import InputError
     from ._common import _default, atomic_write, check_writable, print_json
 
-    cfg = load_config(args.config)
     if args.modes:
         table = mode_table(cfg, args.kmax)
         if args.json:

@@ -48,10 +48,33 @@ LORENTZ_TOL = 1e-6
 MAX_WORDS = 200_000
 
 
+def _matrix_problem(g) -> str | None:
+    """What keeps ``g`` from being a 4x4 matrix of numbers (4 rows of 4 numbers, no booleans or
+    strings), or None."""
+    if isinstance(g, np.ndarray):
+        return None if g.shape == (4, 4) and g.dtype.kind in "iuf" else f"an array of shape {g.shape}"
+    if not isinstance(g, (list, tuple)):
+        return f"a {type(g).__name__}"
+    lens = [len(r) if isinstance(r, (list, tuple)) else None for r in g]
+    if all(n is None for n in lens):
+        return f"a flat list of {len(g)}"
+    if lens != [4, 4, 4, 4]:
+        return f"{len(g)} rows of lengths {lens}"
+    for i, row in enumerate(g):
+        for j, v in enumerate(row):
+            if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, float, np.integer, np.floating)):
+                return f"entry [{i}][{j}] = {v!r}, not a number"
+    return None
+
+
 def validate_lorentz(g: np.ndarray, where: str) -> np.ndarray:
+    """g as a float array after checking g^T J g = J, det g = +1 and g_00 >= 1 (SO+(3,1))."""
+    problem = _matrix_problem(g)
+    if problem:
+        raise InputError(f"a generator must be a 4x4 matrix of numbers (4 rows of 4), got {problem}", where)
     g = np.asarray(g, dtype=float)
-    if g.shape != (4, 4) or not np.all(np.isfinite(g)):
-        raise InputError(f"a generator must be a 4x4 matrix of finite numbers, got shape {g.shape}", where)
+    if not np.all(np.isfinite(g)):
+        raise InputError("a generator has entries that are not finite (NaN or infinity)", where)
     J = geo.MINKOWSKI
     err = np.max(np.abs(g.T @ J @ g - J)) / max(1.0, np.max(np.abs(g)) ** 2)
     if err > LORENTZ_TOL:
@@ -71,6 +94,8 @@ def read_generators(path: str | Path) -> tuple[list[np.ndarray], dict]:
         text = p.read_text()
     except OSError as e:
         raise InputError(f"cannot read generator file ({e.strerror})", where) from None
+    except UnicodeDecodeError:
+        raise InputError("cannot read generator file (not UTF-8 text: give a JSON or TOML file)", where) from None
     try:
         if p.suffix.lower() == ".toml":
             from ..config import toml_loads
@@ -230,6 +255,8 @@ class HyperbolicSpace(Space):
 
 def _keys(mats: np.ndarray) -> list[bytes]:
     """Hashable keys of matrices (n, 4, 4), rounded relative to their largest entry."""
+    if len(mats) == 0:
+        return []
     scale = np.maximum(1.0, np.abs(mats).reshape(len(mats), -1).max(axis=1))
     q = np.rint(mats.reshape(len(mats), -1) / scale[:, None] * 1e4).astype(np.int64)
     return [row.tobytes() for row in q]
