@@ -26,26 +26,30 @@ l < 300), working N_side 128 (pixel 0.46 deg, two pixels per FWHM), no l-range c
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
+from .errors import InputError, note
 
 UNSEEN = -1.6375e30
 ORDERINGS = ("RING", "NESTED")
+ORDERING_FROM = "ordering (a key of [[maps]] or [mask] in a run config, --ordering for topology search)"
 
 
 @dataclass(frozen=True)
 class SkyMap:
-    """A HEALPix map in RING order; ``observed`` is False on UNSEEN/NaN/missing pixels."""
+    """A HEALPix map in RING order; ``observed`` is False on UNSEEN/NaN/missing pixels.
+    ``partial`` is True for an explicit partial-sky file (pixels outside it are unobserved)."""
 
     values: np.ndarray
     observed: np.ndarray
     nside: int
     source: str = ""
     header: dict = field(default_factory=dict)
+    partial: bool = False
 
     @property
     def npix(self) -> int:
@@ -60,12 +64,27 @@ def _nside_of(npix: int, where: str) -> int:
     import healpy as hp
 
     if npix < 12 or not hp.isnpixok(npix):
-        raise InputError(f"{npix} pixels is not a HEALPix map (12 N_side^2)", where)
+        raise InputError(f"{npix} pixels is not a HEALPix map (12 N_side^2 pixels, N_side a power of two) and the "
+                         f"file has no explicit pixel index (INDXSCHM = 'EXPLICIT' with a PIXEL column)", where)
     return int(hp.npix2nside(npix))
 
 
+def check_values(sky: SkyMap, what: str = "map") -> None:
+    """InputError when no pixel is observed (all UNSEEN/NaN), or, for a map (not a mask), when the
+    observed pixels have zero variance (a constant map carries no circles)."""
+    if not sky.observed.any():
+        raise InputError(f"every pixel of the {what} is UNSEEN or NaN (all-masked {what}: nothing observed)",
+                         sky.source)
+    if what == "map":
+        v = sky.values[sky.observed]
+        if np.ptp(v) <= 1e-12 * np.max(np.abs(v)):
+            raise InputError(f"the map is constant ({v[0]:.6g} on all {v.size} observed pixels: zero variance)",
+                             sky.source)
+
+
 def as_skymap(values, *, nest: bool = False, source: str = "array") -> SkyMap:
-    """A :class:`SkyMap` from an in-memory full-sky array (``nest`` gives its ordering)."""
+    """A :class:`SkyMap` from an in-memory full-sky array (``nest`` gives its ordering; any
+    byte order and float precision, converted to native float64)."""
     import healpy as hp
 
     v = np.asarray(values, dtype=np.float64).ravel()
@@ -77,65 +96,133 @@ def as_skymap(values, *, nest: bool = False, source: str = "array") -> SkyMap:
     return SkyMap(v, observed, nside, source)
 
 
-def read_healpix(path: str | Path, *, field: int = 0, ordering: str | None = None, what: str = "map") -> SkyMap:
-    """Read column ``field`` of the first binary table of a HEALPix FITS file (RING order out).
+def _norm_ordering(value, where: str) -> str:
+    o = str(value).strip().upper()
+    o = {"NEST": "NESTED"}.get(o, o)
+    if o not in ORDERINGS:
+        raise InputError(f"ordering must be RING or NESTED, got {value!r}", where)
+    return o
 
-    ``ordering`` ("RING"/"NESTED") is used when the header has no ORDERING key; when both are
-    present they must agree.
+
+_GZIP_MAGIC = b"\x1f\x8b"
+
+
+def _check_fits_bytes(p: Path, what: str, where: str) -> None:
+    """Fail fast on an empty, non-FITS or gzip-corrupt file. A FITS file starts with the card
+    ``SIMPLE  =`` (FITS standard 4.0, sec. 4.4.1.1); a gzip stream with 1f 8b (RFC 1952)."""
+    import gzip
+    import zlib
+
+    with open(p, "rb") as fh:
+        head = fh.read(2880)
+    if not head:
+        raise InputError(f"{what} file is empty", where)
+    if head[:2] == _GZIP_MAGIC:
+        try:
+            with gzip.open(p, "rb") as fh:
+                head = fh.read(2880)
+                while fh.read(1 << 24):  # decompress to the end: a damaged or cut stream fails here
+                    pass
+        except (OSError, EOFError, zlib.error) as e:
+            raise InputError(f"{what} file is not a valid gzip file ({e})", where) from None
+        if not head:
+            raise InputError(f"{what} file is empty once decompressed", where)
+    if not head.startswith(b"SIMPLE  ="):
+        raise InputError("not a FITS file (it does not start with a SIMPLE card)", where)
+
+
+def _select_column(cols: list, fld, what: str, where: str) -> str:
+    """Column name for ``fld``: None (the first), an index or a name (case-insensitive)."""
+    listing = ", ".join(cols) if cols else "none"
+    if fld is None:
+        fld = 0
+    if isinstance(fld, str) and fld.strip().lstrip("-").isdigit():
+        fld = int(fld)
+    if isinstance(fld, bool) or not isinstance(fld, (int, np.integer, str)):
+        raise InputError(f"field must be a column index or name, got {fld!r}; the columns are {listing}", where)
+    if isinstance(fld, str):
+        match = [c for c in cols if c.upper() == fld.strip().upper()]
+        if not match:
+            raise InputError(f"field {fld!r} is not a column of this {what}; the columns are {listing}", where)
+        return match[0]
+    if not 0 <= int(fld) < len(cols):
+        raise InputError(f"field {int(fld)} does not exist: the {what} has {len(cols)} column(s) ({listing}), "
+                         f"numbered from 0", where)
+    return cols[int(fld)]
+
+
+def read_healpix(path: str | Path, *, field: int | str | None = None, ordering: str | None = None,
+                 what: str = "map", ordering_from: str = ORDERING_FROM) -> SkyMap:
+    """Read one column of the first binary table of a HEALPix FITS file (RING order out).
+
+    ``field``: column index or name; None or 0 is the first (temperature) column, and a note says
+    which column was used when there are several. ``ordering`` ("RING"/"NESTED") is used when the
+    header has no ORDERING key; when both are present they must agree; ``ordering_from`` names
+    where the user gives it (e.g. ``"--ordering"``), for the error messages. Plain or gzipped
+    FITS; any numeric column type (FITS data are big-endian; converted to native float64).
+    A map (not a mask) that is all UNSEEN/NaN or constant is refused (:func:`check_values`).
     """
+    import warnings
+
     import healpy as hp
     from astropy.io import fits
+    from astropy.io.fits.verify import VerifyError
 
     where = str(path)
     p = Path(path)
     if not p.is_file():
         raise InputError(f"{what} file not found", where)
     if ordering is not None:
-        ordering = str(ordering).upper()
-        if ordering == "NEST":
-            ordering = "NESTED"
-        if ordering not in ORDERINGS:
-            raise InputError(f"ordering must be RING or NESTED, got {ordering!r}", "[search] ordering")
-    try:
-        with fits.open(p, memmap=False) as hdul:
-            table = next((h for h in hdul if isinstance(h, fits.BinTableHDU)), None)
-            if table is None:
-                raise InputError(f"not a HEALPix {what}: no binary table extension", where)
-            header = dict(table.header)
-            names = list(table.columns.names)
-            data = table.data
-            indx = str(header.get("INDXSCHM", "IMPLICIT")).strip().upper()
-            if indx == "EXPLICIT":
-                cols = [n for n in names if n.upper() != "PIXEL"]
+        ordering = _norm_ordering(ordering, ordering_from)
+    _check_fits_bytes(p, what, where)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            with fits.open(p, memmap=False) as hdul:
+                table = next((h for h in hdul if isinstance(h, fits.BinTableHDU)), None)
+                if table is None:
+                    _raise_damaged(caught, what, where, failed=True)
+                    raise InputError(f"not a HEALPix {what}: no binary table extension", where)
+                header = dict(table.header)
+                names = list(table.columns.names)
+                data = table.data
+                _raise_damaged(caught, what, where)
+                indx = str(header.get("INDXSCHM", "IMPLICIT")).strip().upper()
+                if indx not in ("IMPLICIT", "EXPLICIT"):
+                    raise InputError(f"header INDXSCHM = {indx!r} is neither IMPLICIT nor EXPLICIT", where)
                 pix_name = next((n for n in names if n.upper() == "PIXEL"), None)
-                if pix_name is None:
-                    raise InputError(f"partial-sky {what} without a PIXEL column", where)
-                pixels = np.asarray(data[pix_name], dtype=np.int64).ravel()
-            else:
-                cols = names
-                pixels = None
-            if field >= len(cols):
-                raise InputError(f"{what} has {len(cols)} column(s), field {field} requested", where)
-            column = np.asarray(data[cols[field]], dtype=np.float64).ravel()
-    except InputError:
-        raise
-    except (OSError, ValueError, TypeError, KeyError, IndexError) as e:
-        raise InputError(f"cannot read {what} as FITS ({type(e).__name__}: {e})", where) from None
+                if indx == "EXPLICIT":
+                    if pix_name is None:
+                        raise InputError(f"partial-sky {what} (INDXSCHM = 'EXPLICIT') without a PIXEL column", where)
+                    cols = [n for n in names if n != pix_name]
+                    pixels = np.asarray(data[pix_name], dtype=np.int64).ravel()
+                else:
+                    cols = names
+                    pixels = None
+                col_name = _select_column(cols, field, what, where)
+                column = np.asarray(data[col_name], dtype=np.float64).ravel()
+                _raise_damaged(caught, what, where)
+        except InputError:
+            raise
+        except VerifyError as e:
+            raise InputError(f"damaged FITS header ({' '.join(str(e).split())})", where) from None
+        except (OSError, EOFError, ValueError, TypeError, KeyError, IndexError) as e:
+            _raise_damaged(caught, what, where, failed=True)
+            raise InputError(f"cannot read {what} as FITS ({type(e).__name__}: {e})", where) from None
     head_order = header.get("ORDERING")
     if head_order is not None:
         head_order = str(head_order).strip().upper()
-        if head_order == "NEST":
-            head_order = "NESTED"
+        head_order = {"NEST": "NESTED"}.get(head_order, head_order)
         if head_order not in ORDERINGS:
-            raise InputError(f"header ORDERING = {head_order!r} is neither RING nor NESTED", where)
+            raise InputError(f"header ORDERING = {header.get('ORDERING')!r} is neither RING nor NESTED", where)
         if ordering is not None and ordering != head_order:
-            raise InputError(f"header says ORDERING = {head_order} but {ordering} was given", where)
+            raise InputError(f"header says ORDERING = {head_order} but {ordering} was given ({ordering_from})", where)
         order = head_order
     elif ordering is not None:
         order = ordering
     else:
-        raise InputError("header has no ORDERING key (RING or NESTED); give the ordering explicitly "
-                         "([search] ordering)", where)
+        raise InputError(f"header has no ORDERING key; give the pixel ordering, RING or NESTED, with {ordering_from}",
+                         where)
     if pixels is not None:
         if "NSIDE" not in header:
             raise InputError(f"partial-sky {what} without NSIDE in the header", where)
@@ -145,19 +232,68 @@ def read_healpix(path: str | Path, *, field: int = 0, ordering: str | None = Non
         npix = 12 * nside * nside
         if pixels.size != column.size or pixels.min(initial=0) < 0 or pixels.max(initial=0) >= npix:
             raise InputError(f"partial-sky {what}: PIXEL column does not fit NSIDE = {nside}", where)
+        if np.unique(pixels).size != pixels.size:
+            raise InputError(f"partial-sky {what}: the PIXEL column lists a pixel twice", where)
         full = np.full(npix, UNSEEN)
+        if order == "NESTED":
+            pixels = hp.nest2ring(nside, pixels)
         full[pixels] = column
         column = full
     else:
         nside = _nside_of(column.size, where)
         if "NSIDE" in header and int(header["NSIDE"]) != nside:
             raise InputError(f"header NSIDE = {header['NSIDE']} but the table holds {column.size} pixels", where)
-    if order == "NESTED":
-        column = hp.reorder(column, n2r=True)
+        if order == "NESTED":
+            column = hp.reorder(column, n2r=True)
     observed = ~_is_unseen(column)
     values = np.where(observed, column, 0.0)
     keep = {k: header[k] for k in ("ORDERING", "NSIDE", "COORDSYS", "TUNIT1", "TTYPE1") if k in header}
-    return SkyMap(values, observed, nside, where, keep)
+    keep["COLUMN"] = col_name
+    sky = SkyMap(values, observed, nside, where, keep, partial=pixels is not None)
+    check_values(sky, what)
+    if len(cols) > 1 and (field is None or (isinstance(field, (int, np.integer)) and int(field) == 0)):
+        note(f"{where} has {len(cols)} columns ({', '.join(cols)}); using the first, {col_name}")
+    if pixels is not None:
+        note(f"{where} is partial-sky: {100 * observed.mean():.1f}% of the sky observed, the rest masked")
+    return sky
+
+
+def _raise_damaged(caught, what: str, where: str, failed: bool = False) -> None:
+    """Turn astropy's warnings about a cut file into one InputError; when the read ``failed``,
+    its warnings about headers too (a readable file with an odd header card is accepted)."""
+    for w in caught:
+        text = " ".join(str(w.message).split())
+        if "truncated" in text.lower():
+            raise InputError(f"{what} file is truncated ({text})", where)
+    for w in caught if failed else ():
+        text = re.sub(r"\s*\(note:[^)]*\)", "", " ".join(str(w.message).split()))  # astropy's aside on indexing
+        if "header" in text.lower() or "verif" in type(w.message).__name__.lower():
+            raise InputError(f"damaged or truncated FITS {what} file ({text[:240]})", where)
+
+
+def sky_fraction(sky: SkyMap | None, mask: SkyMap | None, threshold: float = 0.5) -> float:
+    """Fraction of the whole sky kept: mask weight (regraded to the map's N_side) times "observed"
+    >= ``threshold``; the mask alone (at its own N_side) when ``sky`` is None."""
+    if sky is None:
+        if mask is None:
+            return 1.0
+        return float(np.mean(np.where(mask.observed, mask.values, 0.0) >= threshold))
+    return float(np.mean(mask_weights(mask, sky) >= threshold))
+
+
+def check_sky_fraction(sky: SkyMap | None, mask: SkyMap | None, min_fraction: float, *,
+                       threshold: float = 0.5, setting: str = "min_sky_fraction") -> float:
+    """The kept fraction (:func:`sky_fraction`), or InputError naming it and the minimum when
+    it is below ``min_fraction`` (``setting`` names where the minimum is set)."""
+    kept = sky_fraction(sky, mask, threshold)
+    if kept < float(min_fraction):
+        who = mask.source if mask is not None else sky.source
+        what = "the mask keeps" if mask is not None else "the map observes"
+        if mask is not None and sky is not None and sky.partial:
+            what = "map and mask together keep"
+        raise InputError(f"{what} {100 * kept:.1f}% of the sky, less than the minimum sky fraction "
+                         f"{float(min_fraction):g} ({setting})", who)
+    return kept
 
 
 def regrade_weights(weights: np.ndarray, nside_out: int) -> np.ndarray:
@@ -176,12 +312,17 @@ def mask_weights(mask: SkyMap | None, sky: SkyMap) -> np.ndarray:
     """Weights in [0, 1] on the map's pixels: the mask regraded, times "observed".
 
     Raises InputError when the mask does not cover the map's observed pixels, when it keeps
-    mostly sky that the map does not have (different coverage), or when nothing is left.
+    mostly sky that a full-sky map does not have (different coverage), or when nothing is left.
+    A partial-sky map (explicit pixel index) is expected to miss most of the mask's sky. A mask
+    of another N_side is regraded, with a note.
     """
     observed = sky.observed.astype(np.float64)
     if mask is None:
         w = observed
     else:
+        if mask.nside != sky.nside:
+            note(f"mask {mask.source} has N_side {mask.nside}, the map {sky.nside}: the mask is regraded to "
+                 f"N_side {sky.nside}")
         mv = np.where(mask.observed, mask.values, 0.0)
         if np.any(mv < -1e-6) or np.any(mv > 1.0 + 1e-6):
             raise InputError(f"mask weights must lie in [0, 1] (found {mv.min():.3g} .. {mv.max():.3g})", mask.source)
@@ -193,7 +334,7 @@ def mask_weights(mask: SkyMap | None, sky: SkyMap) -> np.ndarray:
             raise InputError(f"map and mask have different sky coverage: the mask has no value on "
                              f"{100 * frac:.1f}% of the map's observed pixels", mask.source)
         kept = mw > 0
-        if kept.any() and np.mean(~sky.observed[kept]) > 0.5:
+        if not sky.partial and kept.any() and np.mean(~sky.observed[kept]) > 0.5:
             raise InputError("map and mask have different sky coverage: most pixels the mask keeps are "
                              "unobserved in the map", mask.source)
         w = mw * observed
@@ -320,6 +461,7 @@ def prepare_map(sky: SkyMap, mask: SkyMap | None = None, *, nside_work: int = 12
         raise InputError(f"must be a power of two, got {nside_work}", "--nside-work")
     if fwhm_deg < 0 or not np.isfinite(fwhm_deg):
         raise InputError(f"must be a non-negative number of degrees, got {fwhm_deg}", "--fwhm")
+    check_values(sky, "map")
     w = mask_weights(mask, sky)
     kept_in = w >= mask_threshold
     if not kept_in.any():

@@ -8,11 +8,18 @@ from pathlib import Path
 NAME = "search"
 HELP = "search a HEALPix map for matched circles with the S statistic"
 EXAMPLE = "topology search map.fits --mask mask.fits --mode all-pairs --radii 10:90:1 --json"
+MIN_SKY_FRACTION = 0.2  # as [mask] min_sky_fraction of `topology run`
 
 
 def add_arguments(p):
     p.add_argument("map", help="HEALPix FITS map (RING or NESTED from the header)")
     p.add_argument("--mask", metavar="MASK.fits", help="mask (0/1 or apodised weights, any N_side)")
+    p.add_argument("--field", metavar="COLUMN", help="column of a multi-column map: index from 0 or name "
+                                                     "(default the first, temperature)")
+    p.add_argument("--ordering", metavar="RING|NESTED",
+                   help="pixel ordering of files whose header has no ORDERING key")
+    p.add_argument("--min-sky-fraction", type=float, metavar="F", default=MIN_SKY_FRACTION,
+                   help=f"refuse a map and mask that keep less of the sky than this (default {MIN_SKY_FRACTION:g})")
     p.add_argument("--mode", choices=["antipodal", "all-pairs", "targeted"], help="search mode (default antipodal)")
     p.add_argument("--radii", metavar="START:STOP:STEP", help="circle radii in degrees, both ends included (default 5:90:1)")
     p.add_argument("--fwhm", type=float, metavar="DEG", help="Gaussian smoothing FWHM in degrees (default 1)")
@@ -21,7 +28,7 @@ def add_arguments(p):
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--plot", metavar="FILE", help="draw S_max against radius and the best pairs (PNG or PDF)")
     p.add_argument("--resume", action="store_true", help="skip radii finished by an interrupted run")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--quiet", action="store_true", help="no progress bar and no notes")
     p.add_argument("--config", metavar="CONFIG", help="TOML config: [search] settings; [space], [cosmology], "
                                                       "[observer] for --mode targeted")
 
@@ -57,12 +64,58 @@ def settings_for(args, cfg):
     if "l_range" in sec and len(sec["l_range"]) != 2:
         raise InputError("needs [l_min, l_max]", "[search] l_range")
     return settings_from(sec, mode=args.mode, radii=parse_radii(args.radii) if args.radii else None,
-                         fwhm_deg=args.fwhm, nside_work=args.nside_work, m_max=args.m_max)
+                         fwhm_deg=args.fwhm, nside_work=args.nside_work, m_max=args.m_max,
+                         ordering=getattr(args, "ordering", None))
+
+
+def read_inputs(args, settings):
+    """Map and mask as SkyMaps, checked (readable, ordering, column, not constant, enough sky)
+    before any work; notes on stderr say what was done to them."""
+    from ..errors import InputError
+    from ..maps import check_sky_fraction, read_healpix
+
+    if not 0 <= args.min_sky_fraction < 1:
+        raise InputError(f"must lie in [0, 1), got {args.min_sky_fraction:g}", "--min-sky-fraction")
+    hint = "--ordering (or [search] ordering in the config)"
+    sky = read_healpix(args.map, field=args.field, ordering=settings.ordering, what="map", ordering_from=hint)
+    mask = read_healpix(args.mask, ordering=settings.ordering, what="mask", ordering_from=hint) if args.mask else None
+    check_sky_fraction(sky, mask, args.min_sky_fraction, threshold=settings.mask_threshold,
+                       setting="--min-sky-fraction")
+    return sky, mask
+
+
+def search_read(args, settings, sky, mask, scenario):
+    """``search.engine.search_files`` on maps already read (the column ``--field`` included),
+    with the same file checkpoint (fingerprint of the settings and the files)."""
+    from ..search.checkpoint import FileCheckpoint, fingerprint
+    from ..search.engine import default_checkpoint_path, search_sky
+
+    ident = {}
+    for name, p in (("map", args.map), ("mask", args.mask)):
+        if p:
+            st_ = Path(p).stat()
+            ident[name] = [str(Path(p).resolve()), st_.st_size, st_.st_mtime_ns]
+    if args.field is not None:
+        ident["field"] = sky.header.get("COLUMN")
+    if scenario is not None:
+        ident["scenario"] = repr((scenario.space.describe(), scenario.chi, scenario.observer.point.tolist()))
+    fp = fingerprint(settings.as_dict(), ident)
+    store = FileCheckpoint(default_checkpoint_path(args.map, fp), fp, resume=args.resume)
+    return search_sky(sky, mask, settings, scenario=scenario, checkpoint=store,
+                      show_progress=False if args.quiet else None, map_name=str(args.map))
 
 
 def run(args):
+    from ..errors import quiet_notes
+
+    with quiet_notes(args.quiet):
+        return _run(args)
+
+
+def _run(args):
     from ..config import load_config
-    from ..search.engine import search_files, validate
+    from ..errors import held_notes
+    from ..search.engine import validate
     from ._common import atomic_write, check_writable, print_json
 
     cfg = load_config(args.config) if args.config else None
@@ -77,8 +130,9 @@ def run(args):
         scenario = scenario_from_config(cfg)
     if args.plot:
         check_writable(args.plot, "plot")
-    out = search_files(args.map, args.mask, settings, scenario=scenario, resume=args.resume,
-                       show_progress=False if args.quiet else None)
+    with held_notes():  # a refused input is one line, without the notes read before it
+        sky, mask = read_inputs(args, settings)
+    out = search_read(args, settings, sky, mask, scenario)
     out = _clean(out)
     if args.plot:
         from ..search.plot import plot_search
