@@ -130,6 +130,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "mask_threshold": Key(NUMBER, 0.5, "apodised masks: pixels with weight >= this count as kept", _positive),
         "orientation_nside": Key((int,), 4, "targeted: N_side of the coarse orientation grid (z axis directions)", _power_of_two),
         "positions": Key((list,), None, "targeted: observer positions to scan (default: [observer] position)"),
+        "targets": Key((list,), None, "topology run, targeted mode: spaces to test, tables in the [space] format "
+                                     "(optionally with an observer position), e.g. [{family = \"lens\", p = 8, q = 1}]"),
     },
 }
 

@@ -7,8 +7,8 @@ Stages (each a set of independent tasks, see :mod:`topology.execution`):
    configured search;
 2. ``null/<i>``: isotropic skies with the same spectrum, beam, noise, mask and filtering,
    searched with identical settings; their S_max per radius calibrate the thresholds
-   (:mod:`topology.significance`: per radius and over the whole radius range, min-p
-   look-elsewhere correction) and the candidates' p-values;
+   (:mod:`topology.significance`: per radius and over the whole radius range, standardised-
+   maximum look-elsewhere correction) and the candidates' p-values;
 3. ``inj/<radius>/<j>``: multiply connected skies with circles of known radius (default: a cubic
    torus E1 of side 2 chi_rec cos(alpha), randomly oriented, which has three back-to-back pairs
    of radius alpha, with alpha drawn uniformly within half a search step of the nominal radius),
@@ -54,7 +54,7 @@ CAUTION = (
     "orientations as configured; thresholds come from {n_null} isotropic Gaussian skies ({terms} "
     "temperature terms, CAMB spectrum or the shipped table) with the configured beam, white noise "
     "and mask, searched with identical settings; the false-alarm probability {false_alarm} holds over "
-    "the whole radius range (min-p look-elsewhere correction) with the binomial error of {n_null} "
+    "the whole radius range (standardised-maximum look-elsewhere correction) with the binomial error of {n_null} "
     "skies; alpha_min is where the recovery of injected {injection} circles reaches {level:.0%}. "
     "The injected and null skies contain only the listed temperature terms, no foregrounds and no "
     "correlated noise. Bounds assume the listed background cosmology. Any claim in a paper needs "
@@ -89,6 +89,7 @@ class RunPlan:
     out_dir: Path
     config_hash: str
     execution: dict = field(default_factory=dict)
+    targets: list = field(default_factory=list)  # targeted mode: the spaces tested (see topology.targeted)
 
     @property
     def cosmology(self) -> Cosmology:
@@ -155,13 +156,15 @@ def _radii(text: str, where: str) -> np.ndarray:
 def _check_files(maps: list[MapSpec], mask: dict) -> None:
     """Read every FITS map and the mask once before any work, so that a bad file stops the run
     before an output folder exists (the tasks read them again where they run)."""
-    from .maps import read_healpix
+    from .maps import mask_weights, read_healpix
 
-    for m in maps:
-        if m.path:
-            read_healpix(m.path, field=m.field, ordering=m.ordering, what="map")
+    skies = [read_healpix(m.path, field=m.field, ordering=m.ordering, what="map",
+                          ordering_from=f"ordering in [[maps]] #{i + 1}")
+             for i, m in enumerate(maps) if m.path]
     if "path" in mask:
-        _mask_map(mask, 0)
+        mk = _mask_map(mask, 0)
+        for sky in skies:
+            mask_weights(mk, sky)  # coverage of each map; a note when the mask is regraded
     elif mask.get("galactic_b_deg") is not None:
         kept = 1.0 - math.sin(math.radians(float(mask["galactic_b_deg"])))  # sky fraction with |b| >= b0
         if kept < float(mask["min_sky_fraction"]):
@@ -195,18 +198,36 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
     if set(terms) - {"sw", "doppler", "isw"} or "sw" not in terms:
         raise InputError(f"must be ['sw'] or ['sw', 'doppler', 'isw'], got {list(terms)}", "[instrument] terms")
     inst["terms"] = terms
+    if inst["lmax"] is not None:
+        hint = _nside_hint(SimpleNamespace(instrument=inst, maps=maps))
+        if inst["lmax"] > 3 * hint - 1:
+            raise InputError(f"must be <= 3 nside - 1 = {3 * hint - 1} for the N_side {hint} of null and injected "
+                             f"skies, got {inst['lmax']}", "[instrument] lmax")
 
     sec = cfg.section("search")
+    targets = sec.pop("targets", None)
     if sec.get("mode", "antipodal") == "targeted":
-        raise InputError("the targeted search is not yet available inside `topology run`; use `topology search`",
-                         "[search] mode")
+        from . import targeted
+
+        targets = targeted.check_targets(targets, cfg.section("cosmology"), cfg.base_dir)
+    elif targets:
+        raise InputError("targets are searched only with mode = \"targeted\"", "[search] targets")
+    else:
+        targets = []
     if "l_weights" in sec:
         p = Path(_resolve(cfg.base_dir, sec["l_weights"]))
         try:
             sec["l_weights"] = tuple(np.loadtxt(p, ndmin=1).tolist())
         except (OSError, ValueError) as e:
             raise InputError(f"cannot read l-weights ({e})", "[search] l_weights") from None
-    settings = validate_search(settings_from(sec))
+    try:
+        settings = validate_search(settings_from(sec))
+    except InputError as e:  # the engine names command-line flags; a run config has keys
+        w = e.where or ""
+        if w.startswith("--"):
+            key = {"fwhm": "fwhm_deg"}.get(w[2:], w[2:].replace("-", "_"))
+            raise InputError(e.reason, f"[search] {key}") from None
+        raise
     radii = np.array(settings.radii_deg, dtype=float)
 
     sg = {k: cfg.get("significance", k) for k in ("n_null", "false_alarm", "efficiency_level", "seed",
@@ -223,7 +244,13 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
 
     sg["injection_family"] = injection.injection_spec(sg["injection_family"])
     nside_sim = int(inst["nside"] or 64)
-    injection.check(sg["injection_family"], cosmo, inj, int(inst["lmax"] or min(2 * nside_sim, 3 * nside_sim - 1)))
+    lmax_sim = int(inst["lmax"] or min(2 * nside_sim, 3 * nside_sim - 1))
+    if targets:
+        from . import targeted
+
+        targeted.check_injectable(targets, cfg.section("cosmology"), cfg.base_dir, lmax_sim)
+    else:
+        injection.check(sg["injection_family"], cosmo, inj, lmax_sim)
     if sg["radius_tolerance_deg"] is None:
         sg["radius_tolerance_deg"] = float(np.min(np.diff(radii))) if radii.size > 1 else 1.0
 
@@ -245,7 +272,8 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
     out = Path(out_dir) if out_dir is not None else Path(cfg.get("output", "dir"))
     return RunPlan(sections=cfg.sections, base_dir=str(cfg.base_dir), maps=maps, mask=mask, instrument=inst,
                    search=settings.as_dict(), significance=sg, bounds=bsec, radii_deg=radii,
-                   injection_radii_deg=inj, out_dir=out, config_hash=config_hash(cfg.sections), execution=ex)
+                   injection_radii_deg=inj, out_dir=out, config_hash=config_hash(cfg.sections), execution=ex,
+                   targets=targets)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -265,7 +293,8 @@ def _mask_map(mask: dict, nside: int):
     key = ("mask", json.dumps(mask, sort_keys=True, default=str), nside)
     if key not in _CACHE:
         if "path" in mask:
-            m = read_healpix(mask["path"], ordering=mask.get("ordering"), what="mask")
+            m = read_healpix(mask["path"], ordering=mask.get("ordering"), what="mask",
+                             ordering_from="ordering in [mask]")
         elif mask.get("galactic_b_deg") is not None:
             from .skies.instrument import galactic_mask
 
@@ -316,6 +345,14 @@ def _sim_settings(plan_d: dict, nside_hint: int) -> tuple[int, int]:
     return nside, lmax
 
 
+def _search_data(values, plan_d: dict, source: str) -> dict:
+    if plan_d.get("targets"):
+        from .targeted import data_result
+
+        return data_result(values, plan_d, source)
+    return _search(values, plan_d, source)
+
+
 def task_data(plan_d: dict, name: str) -> dict:
     """Search one data map; returns the search result (JSON-able)."""
     spec = next(m for m in plan_d["maps"] if m["name"] == name)
@@ -323,13 +360,16 @@ def task_data(plan_d: dict, name: str) -> dict:
         from .maps import read_healpix
 
         sky = read_healpix(spec["path"], field=spec["field"], ordering=spec["ordering"], what="map")
-        res = _search(sky, plan_d, spec["path"])
+        res = _search_data(sky, plan_d, spec["path"])
         res["nside"] = int(sky.nside)
         return res
     from .skies import synthesize
 
     inline = spec["inline"]
     nside, lmax = _sim_settings(plan_d, 64)
+    own = inline.get("sky", {})
+    if "nside" in own and "lmax" not in own and not plan_d["instrument"]["lmax"]:
+        lmax = min(2 * own["nside"], 3 * own["nside"] - 1)
     inst = plan_d["instrument"]
     sky_sec = {"nside": nside, "lmax": lmax, "fwhm_deg": inst["fwhm_deg"], "noise_uk": inst["noise_uk"],
                "terms": list(inst["terms"]), **inline.get("sky", {})}
@@ -338,7 +378,7 @@ def task_data(plan_d: dict, name: str) -> dict:
     cfg = config_from_dict(sections, f"map {name}")
     cfg = Config(cfg.sections, Path(plan_d["base_dir"]) / "inline.toml")
     synth = synthesize(cfg)
-    res = _search(synth.map, plan_d, f"inline sky {name}")
+    res = _search_data(synth.map, plan_d, f"inline sky {name}")
     res["nside"] = nside
     res["predicted"] = [p.as_dict() for p in synth.pairs]
     res["map_values"] = synth.map.astype(np.float32)
@@ -407,7 +447,7 @@ def _plan_dict(plan: RunPlan, nside_hint: int) -> dict:
         "sections": plan.sections, "base_dir": plan.base_dir,
         "maps": [m.__dict__ for m in plan.maps], "mask": plan.mask, "instrument": plan.instrument,
         "search": plan.search, "significance": plan.significance, "radii_deg": plan.radii_deg.tolist(),
-        "nside_hint": nside_hint,
+        "nside_hint": nside_hint, "targets": plan.targets,
         "radius_step_deg": float(np.min(np.diff(plan.radii_deg))) if plan.radii_deg.size > 1 else 0.0,
     }
 
@@ -435,6 +475,10 @@ def _nside_hint(plan: RunPlan) -> int:
 
 def build_tasks(plan: RunPlan) -> list[Task]:
     pd = _plan_dict(plan, _nside_hint(plan))
+    if plan.targets:
+        from .targeted import build_tasks as targeted_tasks
+
+        return targeted_tasks(plan, pd)
     tasks = [Task(f"data/{m.name}", task_data, {"plan_d": pd, "name": m.name}) for m in plan.maps]
     n_null = int(plan.significance["n_null"])
     tasks += [Task(f"null/{i:05d}", task_null, {"plan_d": pd, "index": i, "task_id": f"null/{i:05d}"})
@@ -481,6 +525,10 @@ def analyse(plan: RunPlan, store) -> dict:
     """Thresholds, p-values, efficiency, alpha_min and bounds from the stored task results."""
     from .bounds import bound_summary
 
+    if plan.targets:
+        from .targeted import analyse as analyse_targets
+
+        return analyse_targets(plan, store)
     radii = plan.radii_deg
     n_null = int(plan.significance["n_null"])
     fa = float(plan.significance["false_alarm"])
@@ -596,6 +644,8 @@ def write_report(plan: RunPlan, analysis: dict, provenance: dict, staging: Path)
     from . import report
     from .bounds import bounds_table, write_latex
 
+    if plan.targets:
+        return _write_targeted_report(plan, analysis, provenance, staging)
     th, null = analysis["_thresholds"], analysis["_null"]
     radii = plan.radii_deg
     calib = analysis["calibration"]
@@ -633,27 +683,63 @@ def write_report(plan: RunPlan, analysis: dict, provenance: dict, staging: Path)
         name = m["name"]
         smax = np.array([np.nan if v is None else v for v in m["s_max"]])
         figures[f"{name}: S_max against radius"] = report.figure_smax(staging / f"smax_{name}", name, radii, smax, th, null)
-        values = analysis["_extra"][name]["map_values"]
-        if values is None and analysis["_extra"][name]["path"]:
-            from .maps import read_healpix
-
-            sk = read_healpix(analysis["_extra"][name]["path"],
-                              field=next(s.field for s in plan.maps if s.name == name),
-                              ordering=next(s.ordering for s in plan.maps if s.name == name))
-            values = np.where(sk.observed, sk.values, np.nan)
-        if values is not None:
-            shown = _candidate_objects([c for c in m["candidates"] if c["above_threshold"]] or m["candidates"][:1])
-            values = np.nan_to_num(np.asarray(values, float), nan=-1.6375e30)
-            mk = _mask_map(plan.mask, int(round(np.sqrt(values.size / 12))))
-            figures[f"{name}: sky with best candidate circles"] = report.figure_sky(
-                staging / f"sky_{name}", name, values, shown,
-                title_extra="(detected)" if m["detected"] else "(no detection)",
-                mask=None if mk is None else _regrade_mask(mk, values.size))
+        fig = _sky_figure(plan, analysis, m, staging)
+        if fig:
+            figures[f"{name}: sky with best candidate circles"] = fig
     figures["detection efficiency"] = report.figure_efficiency(
         staging / "efficiency", plan.injection_radii_deg, np.array(calib["efficiency"]),
         np.array(calib["efficiency_error"]), calib["efficiency_level"], calib["alpha_min_deg"],
         float(plan.significance["false_alarm"]))
 
+    (staging / "provenance.json").write_text(json.dumps(provenance, indent=1, default=_json_default))
+    report.write_index(staging, summary, tables, figures, summary["caution"])
+    (staging / "summary.json").write_text(json.dumps(summary, indent=1, default=_json_default, allow_nan=False))
+    return summary
+
+
+def _sky_figure(plan: RunPlan, analysis: dict, m: dict, staging: Path) -> list[str] | None:
+    """The map with its best (or above-threshold) candidate circles, or None without a map."""
+    from . import report
+
+    name = m["name"]
+    values = analysis["_extra"][name]["map_values"]
+    if values is None and analysis["_extra"][name]["path"]:
+        from .maps import read_healpix
+
+        sk = read_healpix(analysis["_extra"][name]["path"], field=next(s.field for s in plan.maps if s.name == name),
+                          ordering=next(s.ordering for s in plan.maps if s.name == name))
+        values = np.where(sk.observed, sk.values, np.nan)
+    if values is None:
+        return None
+    shown = _candidate_objects([c for c in m["candidates"] if c["above_threshold"]] or m["candidates"][:1])
+    values = np.nan_to_num(np.asarray(values, float), nan=-1.6375e30)
+    mk = _mask_map(plan.mask, int(round(np.sqrt(values.size / 12))))
+    return report.figure_sky(staging / f"sky_{name}", name, values, shown,
+                             title_extra="(detected)" if m["detected"] else "(no detection)",
+                             mask=None if mk is None else _regrade_mask(mk, values.size))
+
+
+def _write_targeted_report(plan: RunPlan, analysis: dict, provenance: dict, staging: Path) -> dict:
+    """The report of a targeted run (see :mod:`topology.targeted`): same files, per target."""
+    from . import report, targeted
+
+    summary = {"maps": analysis["maps"], "calibration": analysis["calibration"], "caution": caution_text(plan),
+               "provenance": provenance}
+    outcome, th_t, eff_t = targeted.tables(analysis, plan)
+    report.candidates_table(analysis["maps"]).write(staging / "candidates.ecsv", format="ascii.ecsv")
+    th_t.write(staging / "thresholds.ecsv", format="ascii.ecsv")
+    eff_t.write(staging / "efficiency.ecsv", format="ascii.ecsv")
+    outcome.write(staging / "bounds.ecsv", format="ascii.ecsv")
+    (staging / "bounds.tex").write_text(targeted.latex(outcome, plan))
+    tables = {"targets: detected, excluded or not": outcome, "thresholds per target": th_t,
+              "efficiency per target": eff_t, "candidates": report.candidates_table(analysis["maps"])}
+    figures = {}
+    for m in analysis["maps"]:
+        figures[f"{m['name']}: targeted statistic per target"] = targeted.figure_targets(
+            staging / f"targets_{m['name']}", m["name"], m, analysis)
+        fig = _sky_figure(plan, analysis, m, staging)
+        if fig:
+            figures[f"{m['name']}: sky with best candidate circles"] = fig
     (staging / "provenance.json").write_text(json.dumps(provenance, indent=1, default=_json_default))
     report.write_index(staging, summary, tables, figures, summary["caution"])
     (staging / "summary.json").write_text(json.dumps(summary, indent=1, default=_json_default, allow_nan=False))
@@ -671,6 +757,17 @@ def calib_fa(plan: RunPlan) -> str:
 
 
 def caution_text(plan: RunPlan) -> str:
+    if plan.targets:
+        from .targeted import target_name
+
+        text = CAUTION.format(n_null=plan.significance["n_null"], terms="+".join(plan.instrument["terms"]).upper(),
+                              false_alarm=calib_fa(plan), injection="target-space",
+                              level=float(plan.significance["efficiency_level"]))
+        return text.replace("over the whole radius range", "over all targets").replace(
+            "alpha_min is where the recovery of injected target-space circles reaches",
+            "a target is excluded when it is not detected and skies of that very space are recovered at") + (
+            " Targets tested: " + "; ".join(target_name(t) for t in plan.targets) + ". An exclusion holds for "
+            "these spaces at these sizes and observer positions only.")
     return CAUTION.format(n_null=plan.significance["n_null"], terms="+".join(plan.instrument["terms"]).upper(),
                           false_alarm=calib_fa(plan), injection=injection_name(plan),
                           level=float(plan.significance["efficiency_level"]))

@@ -60,20 +60,20 @@ def _smoother(n_radius: int, degree: int = 3) -> np.ndarray:
     return v @ np.linalg.pinv(v)
 
 
-def _standardise(null: np.ndarray):
-    P = _smoother(null.shape[1])
+def _standardise(null: np.ndarray, smooth: bool = True):
+    P = _smoother(null.shape[1]) if smooth else np.eye(null.shape[1])
     mean = null.mean(axis=0) @ P
     std = null.std(axis=0, ddof=1) @ P
     return mean, np.where(std > 0, std, 1e-12)
 
 
-def _loo_max_z(smax_null: np.ndarray) -> np.ndarray:
+def _loo_max_z(smax_null: np.ndarray, smooth: bool = True) -> np.ndarray:
     """Each null sky's largest standardised S_max over radius, z = (S - mean) / std with the
     (smoothed) mean and spread of the *other* N - 1 skies (leave-one-out, so that a sky does not
     calibrate itself)."""
     null = np.asarray(smax_null, dtype=float)
     n = null.shape[0]
-    P = _smoother(null.shape[1])
+    P = _smoother(null.shape[1]) if smooth else np.eye(null.shape[1])
     tot, tot2 = null.sum(axis=0), (null**2).sum(axis=0)
     mean = (tot[None, :] - null) / (n - 1)
     var = ((tot2[None, :] - null**2) - (n - 1) * mean**2) / (n - 2)
@@ -107,7 +107,7 @@ def _quantile(null: np.ndarray, level: float) -> np.ndarray:
     return np.quantile(null, 1.0 - level, axis=0, method="higher")
 
 
-def thresholds(radii_deg, smax_null: np.ndarray, false_alarm: float) -> Thresholds:
+def thresholds(radii_deg, smax_null: np.ndarray, false_alarm: float, *, smooth: bool = True) -> Thresholds:
     """Local and look-elsewhere-corrected thresholds from null S_max (n_null, n_radius).
 
     Whole range: each null sky's largest standardised S_max over radius, T = max_alpha z(alpha)
@@ -115,7 +115,8 @@ def thresholds(radii_deg, smax_null: np.ndarray, false_alarm: float) -> Threshol
     mean(alpha) + z_thr std(alpha). A sky exceeds the curve somewhere exactly when its T exceeds
     z_thr, so the whole-range false-alarm probability is p whatever the correlation between
     radii, with N >= 2/p - 1 skies (the standardised-maximum method for the look-elsewhere
-    effect; e.g. Gross & Vitells 2010 for the trials factor it replaces).
+    effect; e.g. Gross & Vitells 2010 for the trials factor it replaces). ``smooth = False``
+    uses the raw per-column mean and spread (columns that are not radii, e.g. targets).
     """
     null = np.asarray(smax_null, dtype=float)
     if null.ndim != 2 or null.shape[1] != len(radii_deg):
@@ -123,8 +124,8 @@ def thresholds(radii_deg, smax_null: np.ndarray, false_alarm: float) -> Threshol
     n = null.shape[0]
     check_null_count(n, false_alarm)
     local = _quantile(null, false_alarm)
-    mean, std = _standardise(null)
-    t = _loo_max_z(null)
+    mean, std = _standardise(null, smooth)
+    t = _loo_max_z(null, smooth)
     z_thr = float(np.quantile(t, 1.0 - false_alarm, method="higher"))
     whole = mean + z_thr * std
     above = float(np.mean(t > z_thr))
@@ -133,15 +134,15 @@ def thresholds(radii_deg, smax_null: np.ndarray, false_alarm: float) -> Threshol
                       mean, std, above, float(math.sqrt(max(above * (1 - above), 1e-300) / n)))
 
 
-def global_p_value(smax: np.ndarray, smax_null: np.ndarray) -> float:
+def global_p_value(smax: np.ndarray, smax_null: np.ndarray, *, smooth: bool = True) -> float:
     """Look-elsewhere p-value of an S_max curve (NaN or -inf radii ignored): the fraction of null
     skies whose largest standardised S_max is at least the data's, with the +1 correction."""
     null = np.asarray(smax_null, dtype=float)
-    mean, std = _standardise(null)
+    mean, std = _standardise(null, smooth)
     z = (np.asarray(smax, float) - mean) / std
     z = z[np.isfinite(z)]
     t_data = z.max() if z.size else -np.inf
-    t = _loo_max_z(null)
+    t = _loo_max_z(null, smooth)
     return float((1.0 + np.sum(t >= t_data)) / (1.0 + null.shape[0]))
 
 

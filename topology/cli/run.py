@@ -19,6 +19,13 @@ def add_arguments(p):
 
 
 def headline(m: dict) -> str:
+    if "targets" in m:
+        parts = []
+        for t in m["targets"]:
+            what = "DETECTED" if t["detected"] else ("excluded" if t["excluded"] else "not excluded")
+            parts.append(f"{t['target']} {what} (S_comb {t['S_combined']:.3f} vs threshold {t['threshold']:.3f}, "
+                         f"efficiency {t['efficiency']:.0%})")
+        return f"{m['name']}: " + "; ".join(parts)
     if m["detected"]:
         best = m["candidates"][0] if m["candidates"] else None
         what = (f"circles of radius {best['radius_deg']:.1f} deg, S = {best['S']:.3f}, global p = {best['p_value']:.3g}"
@@ -43,9 +50,15 @@ def run(args):
         from ..errors import InputError
 
         raise InputError(f"must be >= 1, got {args.workers}", "--workers")
+    from ..config import naming_file
+    from ..errors import held_notes, quiet_notes
+
     cfg = load_config(args.config)
-    plan = plan_from_config(cfg, args.out, engine=args.engine, workers=args.workers, scheduler=args.scheduler)
-    summary = run_plan(plan, force=args.force, resume=args.resume, show_progress=False if args.quiet else None)
+    with naming_file(cfg), quiet_notes(args.quiet):
+        with held_notes():  # a refused config is one line, without the notes of files read before
+            plan = plan_from_config(cfg, args.out, engine=args.engine, workers=args.workers,
+                                    scheduler=args.scheduler)
+        summary = run_plan(plan, force=args.force, resume=args.resume, show_progress=False if args.quiet else None)
     tasks = summary["provenance"]["tasks"]
     print(f"report: {plan.out_dir / 'index.html'} (summary.json, tables and figures beside it); "
           f"{tasks['computed']} tasks computed, {tasks['reused_from_store']} reused")

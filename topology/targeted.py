@@ -1,0 +1,314 @@
+"""Targeted searches inside ``topology run``: named spaces tested one by one.
+
+With ``[search] mode = "targeted"`` the run tests each space of ``[search] targets`` (tables in
+the ``[space]`` format, optionally with an observer ``position``; the background is the run's
+``[cosmology]``). For each target the statistic is the targeted search's combined value
+S_comb = (1/P) sum_p S_p, the mean S of the target's P predicted pairs at the best orientation
+of the space (and best observer position), see :class:`topology.search.modes.TargetedMode`.
+
+* Null calibration: every null sky is searched for every target; per target, the local
+  threshold is the (1 - p) quantile of the null S_comb and the look-elsewhere threshold over the
+  targets is mean + z_thr std with z_thr from each null sky's largest standardised S_comb over
+  the targets (the standardised-maximum method of :mod:`topology.significance`, without the
+  smoothing across radius, which has no meaning across targets).
+* Sensitivity: ``[significance] n_injections`` skies of each target space itself (random
+  orientation, the configured observer position), observed like the data and searched for
+  that target: its efficiency is the fraction above its threshold.
+* Outcome per map and target: detected (S_comb above the threshold), or excluded (not detected
+  and the efficiency at least ``efficiency_level``), or not excluded. No alpha_min is derived in
+  this mode: a radius scan (antipodal or all-pairs) does that.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .errors import InputError
+
+WHERE = "[search] targets"
+_SCENARIOS: dict = {}
+
+
+def check_targets(targets, cosmo, base_dir) -> list[dict]:
+    """Validate the targets at plan time; returns them as plain dicts."""
+    if not targets:
+        raise InputError("the targeted search needs at least one target, e.g. "
+                         "targets = [{family = \"lens\", p = 8, q = 1}]", WHERE)
+    out = []
+    for i, t in enumerate(targets):
+        where = f"{WHERE} #{i + 1}"
+        if not isinstance(t, dict) or "family" not in t:
+            raise InputError("each target is a table like {family = \"lens\", p = 8, q = 1}", where)
+        try:
+            _scenario_for(dict(t), cosmo, base_dir)
+        except InputError as e:
+            raise InputError(e.reason, f"{where} ({e.where or 'space'})") from None
+        out.append(dict(t))
+    return out
+
+
+def _scenario_for(target: dict, cosmo_section, base_dir):
+    """The Scenario of one target with the run's cosmology (cached per process)."""
+    import json
+
+    from .config import Config, config_from_dict
+    from .scenario import scenario_from_config
+
+    key = json.dumps([target, cosmo_section, str(base_dir)], sort_keys=True, default=str)
+    if key not in _SCENARIOS:
+        space = {k: v for k, v in target.items() if k not in ("position",)}
+        sections = {"space": space}
+        if cosmo_section:
+            sections["cosmology"] = dict(cosmo_section)
+        if "position" in target:
+            sections["observer"] = {"position": target["position"]}
+        cfg = config_from_dict(sections, WHERE)
+        from pathlib import Path
+
+        cfg = Config(cfg.sections, Path(base_dir) / "targets.toml")
+        _SCENARIOS[key] = scenario_from_config(cfg)
+    return _SCENARIOS[key]
+
+
+def target_name(target: dict) -> str:
+    args = ", ".join(f"{k}={v}" for k, v in target.items() if k != "family")
+    return f"{target['family']}({args})" if args else target["family"]
+
+
+def search_targets(values, plan_d: dict, source: str) -> dict:
+    """Search one sky for every target: {"s_comb": (n_targets,), "results": [search results]}."""
+    from .maps import as_skymap
+    from .pipeline import _mask_map
+    from .search.engine import SearchSettings, search_sky
+
+    settings = SearchSettings(**{k: (tuple(v) if isinstance(v, list) else v) for k, v in plan_d["search"].items()})
+    sky = values if hasattr(values, "observed") else as_skymap(values, source=source)
+    mask = _mask_map(plan_d["mask"], sky.nside)
+    cosmo = plan_d["sections"].get("cosmology", {})
+    s_comb, results = [], []
+    for t in plan_d["targets"]:
+        sc = _scenario_for(t, cosmo, plan_d["base_dir"])
+        res = search_sky(sky, mask, settings, scenario=sc, show_progress=False, map_name=source)
+        v = res.get("targeted", {}).get("S_combined")
+        s_comb.append(-1.0 if v is None or not np.isfinite(v) else float(v))
+        results.append(res)
+    return {"s_comb": np.array(s_comb), "results": results}
+
+
+def task_null(plan_d: dict, index: int, task_id: str) -> dict:
+    from .pipeline import _int_seed, _sim_settings
+    from .scenario import cosmology_from_config
+    from .config import config_from_dict
+    from .skies.instrument import observe
+    from .skies.isotropic import isotropic_sky
+
+    nside, lmax = _sim_settings(plan_d, plan_d["nside_hint"])
+    seed = _int_seed(plan_d["significance"]["seed"], task_id)
+    cosmo = cosmology_from_config(config_from_dict({"cosmology": plan_d["sections"].get("cosmology", {})}))
+    inst = plan_d["instrument"]
+    sky = isotropic_sky(cosmo, lmax=lmax, terms=tuple(inst["terms"]), seed=seed)
+    m = observe(sky, nside=nside, lmax=lmax, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"], seed=seed)
+    out = search_targets(m, plan_d, task_id)
+    return {"s_comb": out["s_comb"], "seed": seed}
+
+
+def task_injection(plan_d: dict, target: int, index: int, task_id: str) -> dict:
+    """A sky of target space ``target`` itself (random orientation), searched for that target."""
+    from . import geometry as geo
+    from .execution import task_seed
+    from .pipeline import _int_seed, _sim_settings, random_rotation
+    from .skies.instrument import observe
+
+    nside, lmax = _sim_settings(plan_d, plan_d["nside_hint"])
+    seed = _int_seed(plan_d["significance"]["seed"], task_id)
+    rng = np.random.default_rng(task_seed(plan_d["significance"]["seed"], task_id + "/geometry"))
+    sc = _scenario_for(plan_d["targets"][target], plan_d["sections"].get("cosmology", {}), plan_d["base_dir"])
+    obs = geo.Observer.make(sc.space.geometry, sc.observer.point[:3] if sc.space.geometry == "flat" else sc.observer.point,
+                            geo.euler_zyz(*random_rotation(rng)))
+    inst = plan_d["instrument"]
+    terms = tuple(inst["terms"])
+    if sc.space.geometry == "flat":
+        from .skies.flat import flat_sky
+
+        sky = flat_sky(sc.space, obs, sc.cosmology, lmax=lmax, nside=nside, method="auto", terms=terms, seed=seed)
+    elif sc.space.geometry == "spherical":
+        from .skies.spherical import spherical_sky
+
+        sky = spherical_sky(sc.space, obs, sc.cosmology, lmax=lmax, nside=nside, terms=terms, seed=seed)
+    else:
+        raise InputError("no synthetic skies for hyperbolic targets yet, so their efficiency cannot be measured",
+                         f"{WHERE} #{target + 1}")
+    m = observe(sky, nside=nside, lmax=lmax, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"], seed=seed)
+    one = dict(plan_d, targets=[plan_d["targets"][target]])
+    out = search_targets(m, one, task_id)
+    return {"s_comb": float(out["s_comb"][0]), "seed": seed}
+
+
+def check_injectable(targets: list[dict], cosmo_section, base_dir, lmax: int) -> None:
+    """Plan-time: every target can be synthesised (flat compact or spherical within kmax)."""
+    from .skies.spherical import KMAX_LIMIT
+
+    for i, t in enumerate(targets):
+        sc = _scenario_for(t, cosmo_section, base_dir)
+        where = f"{WHERE} #{i + 1}"
+        if sc.space.geometry == "hyperbolic":
+            raise InputError("no synthetic skies for hyperbolic targets yet, so their efficiency cannot be "
+                             "measured; test hyperbolic spaces with a radius scan instead", where)
+        if sc.space.geometry == "flat" and not getattr(sc.space, "compact", True):
+            raise InputError(f"{sc.space.family} is not compact: target a compact family", where)
+        if sc.space.geometry == "spherical" and math.ceil(2 * lmax / sc.chi) > KMAX_LIMIT:
+            raise InputError(f"a {sc.space.family} sky at chi_rec/R_c = {sc.chi:.3f} and lmax {lmax} needs S^3 modes "
+                             f"up to k = {math.ceil(2 * lmax / sc.chi)} > {KMAX_LIMIT}; lower [instrument] lmax to "
+                             f"{int(KMAX_LIMIT * sc.chi / 2)}", where)
+
+
+def build_tasks(plan, pd: dict) -> list:
+    from .execution import Task
+    from .pipeline import task_data
+
+    tasks = [Task(f"data/{m.name}", task_data, {"plan_d": pd, "name": m.name}) for m in plan.maps]
+    tasks += [Task(f"null/{i:05d}", task_null, {"plan_d": pd, "index": i, "task_id": f"null/{i:05d}"})
+              for i in range(int(plan.significance["n_null"]))]
+    for k in range(len(plan.targets)):
+        for j in range(int(plan.significance["n_injections"])):
+            tid = f"inj/target{k}/{j:04d}"
+            tasks.append(Task(tid, task_injection, {"plan_d": pd, "target": k, "index": j, "task_id": tid}))
+    return tasks
+
+
+def analyse(plan, store) -> dict:
+    """Per map and target: S_comb, thresholds, p-values, efficiency, detected / excluded."""
+    from . import significance as sig
+
+    targets = plan.targets
+    names = [target_name(t) for t in targets]
+    n_null = int(plan.significance["n_null"])
+    fa = float(plan.significance["false_alarm"])
+    level = float(plan.significance["efficiency_level"])
+    null = np.array([store.get(f"null/{i:05d}")["s_comb"] for i in range(n_null)], dtype=float).reshape(n_null, -1)
+    th = sig.thresholds(np.arange(len(targets)), null, fa, smooth=False)
+    n_inj = int(plan.significance["n_injections"])
+    inj = np.array([[store.get(f"inj/target{k}/{j:04d}")["s_comb"] for k in range(len(targets))]
+                    for j in range(n_inj)], dtype=float)
+    eff, eff_err = sig.efficiency(inj > th.whole_range[None, :])
+
+    maps_out, extra = [], {}
+    for spec in plan.maps:
+        res = store.get(f"data/{spec.name}")
+        s = np.asarray(res["s_comb"], float)
+        is_detected = bool(np.any(s > th.whole_range))
+        p_local = sig.local_p_values(s[None, :], null)[0]
+        rows, cands = [], []
+        for k, name in enumerate(names):
+            detected_k = bool(s[k] > th.whole_range[k])
+            p_k = sig.global_p_value(np.where(np.arange(len(targets)) == k, s, -np.inf), null, smooth=False)
+            rows.append({"target": name, "family": targets[k]["family"], "S_combined": float(s[k]),
+                         "threshold": float(th.whole_range[k]), "threshold_local": float(th.local[k]),
+                         "p_value": p_k, "p_value_local": float(p_local[k]), "detected": detected_k,
+                         "efficiency": float(eff[k]), "efficiency_error": float(eff_err[k]),
+                         "excluded": bool(not detected_k and eff[k] >= level),
+                         "best_euler_deg": res["targets"][k].get("best_euler_deg"),
+                         "best_position": res["targets"][k].get("best_position")})
+            for c in res["candidates"][k][:3]:
+                cands.append({kk: c[kk] for kk in ("center_a", "center_b", "radius_deg", "twist_deg", "orientation", "S")}
+                             | {"target": name, "p_value": p_k, "p_value_local": float(p_local[k]),
+                                "above_threshold": detected_k})
+        cands.sort(key=lambda c: (not c["above_threshold"], c["p_value"], -(c["S"] if np.isfinite(c["S"]) else -9)))
+        maps_out.append({
+            "name": spec.name, "source": spec.path or "inline synthetic sky", "detected": is_detected,
+            "candidates": cands, "false_alarm": fa, "n_null": n_null, "alpha_min_deg": None,
+            "global_p_value": sig.global_p_value(s, null, smooth=False), "targets": rows, "bounds": None,
+            "predicted": res.get("predicted", []),
+            "note": "targeted search: each target space is detected, excluded (not detected with efficiency >= "
+                    f"{level:.0%}) or not excluded; no alpha_min in this mode",
+        })
+        extra[spec.name] = {"map_values": res.get("map_values"), "path": spec.path, "nside": res.get("nside")}
+    calib = {"targets": names, "threshold_whole_range": th.whole_range.tolist(), "threshold_local": th.local.tolist(),
+             "z_threshold": th.z_threshold, "measured_false_alarm": th.measured_false_alarm,
+             "measured_false_alarm_error": th.measured_false_alarm_error, "efficiency": eff.tolist(),
+             "efficiency_error": eff_err.tolist(), "n_injections": n_inj, "efficiency_level": level,
+             "alpha_min_deg": None}
+    return {"maps": maps_out, "calibration": calib, "_thresholds": th, "_null": null, "_extra": extra,
+            "_injected": inj}
+
+
+def data_result(values, plan_d: dict, source: str) -> dict:
+    """The stored result of a data map's targeted search (JSON-able, per target)."""
+    out = search_targets(values, plan_d, source)
+    return {"s_comb": out["s_comb"], "targets": [r.get("targeted", {}) for r in out["results"]],
+            "candidates": [r["candidates"] for r in out["results"]]}
+
+
+# ---------------------------------------------------------------------------------------------
+# report parts
+# ---------------------------------------------------------------------------------------------
+def tables(analysis: dict, plan):
+    from astropy.table import Table
+
+    rows = []
+    for m in analysis["maps"]:
+        for r in m["targets"]:
+            rows.append((m["name"], r["target"], r["S_combined"], r["threshold"], r["p_value"], r["efficiency"],
+                         r["efficiency_error"], "detected" if r["detected"] else ("excluded" if r["excluded"] else
+                                                                               "not excluded")))
+    names = ("map", "target", "S_combined", "S_threshold", "p_value", "efficiency", "efficiency_error", "outcome")
+    t = Table(rows=rows, names=names, dtype=("U64", "U128", float, float, float, float, float, "U16"))
+    t.meta.update(false_alarm=float(plan.significance["false_alarm"]), n_null=int(plan.significance["n_null"]),
+                  efficiency_level=float(plan.significance["efficiency_level"]),
+                  n_injections_per_target=int(plan.significance["n_injections"]))
+    th, null = analysis["_thresholds"], analysis["_null"]
+    tt = Table()
+    tt["target"] = analysis["calibration"]["targets"]
+    tt["S_thr_whole_range"] = th.whole_range
+    tt["S_thr_local"] = th.local
+    tt["null_mean"] = null.mean(axis=0)
+    tt["null_std"] = null.std(axis=0, ddof=1)
+    tt.meta.update(false_alarm=th.false_alarm, n_null=th.n_null, z_threshold=th.z_threshold,
+                   measured_false_alarm=th.measured_false_alarm)
+    et = Table()
+    et["target"] = analysis["calibration"]["targets"]
+    et["efficiency"] = analysis["calibration"]["efficiency"]
+    et["efficiency_error"] = analysis["calibration"]["efficiency_error"]
+    et.meta.update(n_injections_per_target=int(plan.significance["n_injections"]),
+                   efficiency_level=float(plan.significance["efficiency_level"]))
+    return t, tt, et
+
+
+def latex(t, plan) -> str:
+    """The target outcomes as a LaTeX table with the statistic and levels in its caption."""
+    lines = [r"\begin{table}", r"\centering",
+             r"\caption{Targeted matched-circle tests. $S_{\rm comb}$ is the mean m-weighted S statistic "
+             r"(Cornish, Spergel \& Starkman 2004) of the predicted pairs at the best orientation; "
+             rf"thresholds at false-alarm probability {float(plan.significance['false_alarm']):g} over all targets, "
+             rf"from {int(plan.significance['n_null'])} isotropic skies; efficiency from "
+             rf"{int(plan.significance['n_injections'])} skies of each space; a space is excluded when it is not "
+             rf"detected and the efficiency is at least {float(plan.significance['efficiency_level']):.0%}.}}",
+             r"\begin{tabular}{llrrrrl}", r"\hline",
+             r"map & space & $S_{\rm comb}$ & $S_{\rm thr}$ & $p$ & efficiency & outcome \\", r"\hline"]
+    for row in t:
+        target = str(row["target"]).replace("_", r"\_")
+        lines.append(f"{row['map']} & {target} & {row['S_combined']:.3f} & {row['S_threshold']:.3f} & "
+                     f"{row['p_value']:.3g} & {row['efficiency']:.2f} & {row['outcome']} \\\\")
+    lines += [r"\hline", r"\end{tabular}", r"\end{table}", ""]
+    return "\n".join(lines)
+
+
+def figure_targets(base, name: str, m: dict, analysis: dict) -> list[str]:
+    """S_comb of the map per target over the null spread and the threshold."""
+    from .plots import _mpl
+    from .report import _save
+
+    plt = _mpl()
+    null, th = analysis["_null"], analysis["_thresholds"]
+    x = np.arange(null.shape[1])
+    fig, ax = plt.subplots(figsize=(7, 4))
+    ax.boxplot([null[:, k] for k in x], positions=x, widths=0.5, showfliers=True)
+    ax.plot(x, th.whole_range, "r_", markersize=30, mew=2, label=f"threshold (false alarm {th.false_alarm:g})")
+    ax.plot(x, [r["S_combined"] for r in m["targets"]], "k*", markersize=12, label=name)
+    ax.set_xticks(x, analysis["calibration"]["targets"], rotation=20, fontsize=7)
+    ax.set_ylabel("S_comb (mean S of the predicted pairs)")
+    ax.legend(fontsize=8, loc="lower right")
+    ax.set_title(f"{name}: targeted statistic against {th.n_null} null skies", fontsize=10)
+    return _save(fig, base)
