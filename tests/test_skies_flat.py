@@ -4,6 +4,7 @@ grid against eigenmode method, determinism and bad input."""
 import healpy as hp
 import numpy as np
 import pytest
+import scipy.fft
 from scipy.signal import fftconvolve
 from scipy.special import spherical_jn
 
@@ -77,17 +78,32 @@ def test_twisted_phases_remove_the_odd_axial_modes_of_E2():
     assert np.all(np.abs(c[even]) > 0)
 
 
-def test_torus_fast_path_equals_the_general_mode_list():
-    # the dense E1 grid path and the mode list give the same amplitudes (internal consistency)
-    space = build_space({"family": "E1", "lengths": [1.6, 1.4, 1.2]})
-    A = space.lattice
-    D = np.linalg.inv(A).T
-    n, _, c = flat.invariant_coefficients(space, COSMO, 5, 20.0)
-    m = flat.index_bounds(A, 20.0)
-    z = flat.unit_normals_half(5, m, D, 20.0)
-    sig = flat._sw_sigma_box(D, m, 20.0, COSMO, space.covering_cell_volume)
-    box = -(z * sig)[n[:, 0] + m[0], n[:, 1] + m[1], n[:, 2]]
-    assert np.abs(box - c).max() < 1e-5 * np.abs(c).max()
+@pytest.mark.parametrize("lengths,angles", [
+    ([1.6, 1.4, 1.2], [90.0, 90.0, 90.0]),    # sigma by the float32 power law
+    ([1.5, 1.5, 1.5], [90.0, 90.0, 90.0]),    # cubic: sigma from the table over |n|^2
+    ([1.0, 1.0, 2.0], [90.0, 90.0, 90.0]),    # |k|^2 = g (4 n1^2 + 4 n2^2 + n3^2): table
+    ([1.3, 1.4, 1.5], [80.0, 95.0, 70.0])])   # skew cell: cross terms, power law
+def test_torus_fast_path_equals_the_general_mode_list(lengths, angles):
+    # the dense E1 grid spectrum (block by block, sigma from a table or a float32 power) holds
+    # the same c_n as the mode list of the eigenmode method (internal consistency, float32)
+    space = build_space({"family": "E1", "lengths": lengths, "angles": angles})
+    kc = 70.0    # index bounds 11-19: several blocks of 16 per axis, on both sides of n = 0
+    shape = flat.grid_shape(space, kc, 1.2)
+    dense = flat.dense_torus_spectrum(space, COSMO, 5, kc, shape)
+    ref = flat.mode_list_spectrum(space, COSMO, 5, kc, shape)
+    assert np.count_nonzero(ref) > 5000
+    assert np.array_equal(dense != 0, ref != 0)
+    assert np.abs(dense - ref).max() < 1e-5 * np.abs(ref).max()
+
+
+def test_band_limited_fft_equals_the_full_inverse_fft():
+    # the pruned in-place transform skips only rows and planes that are zero
+    space = build_space({"family": "E6", "lengths": [0.8, 0.9, 0.7]})
+    shape = flat.grid_shape(space, 25.0, 1.2)
+    spec = flat.mode_list_spectrum(space, COSMO, 3, 25.0, shape)
+    ref = scipy.fft.irfftn(spec, s=shape, norm="forward")
+    got = flat.band_limited_irfft(spec.copy(), shape, flat.index_bounds(space.lattice, 25.0))
+    assert np.abs(got - ref).max() < 1e-5 * np.abs(ref).max()
 
 
 # ---------------------------------------------------------------------------------------------

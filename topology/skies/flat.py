@@ -61,12 +61,20 @@ Methods:
   ~1% of the map against the eigenmode sky (error power 0.3% of C_l at l = kchi_max, 4e-5 at
   kchi_max / 2: the aliases land mostly above the band), 0.1% at 2, 0.02% at 3 (tests);
   spline_order 2 (quadratic, deconvolved by sinc^3) samples ~2x faster with ~2.5% rms.
-  Memory: the complex64 half spectrum and the float32 grid (~8 bytes x N1 N2 N3 together)
-  plus float32 weights of the half ball's box (E1) or the mode list (twisted families); E1 of
-  side 1.6 chi_rec at N_side 256, l_max 512: grid 320^3, peak resident memory ~0.57 GB (float32
-  throughout the grid: the interpolation error, ~1e-2, dwarfs float32 rounding, ~1e-7).
-  Returns a map-type Sky at ``nside`` (the field
-  sampled at the pixel centres, no pixel window).
+  How it is made fast (the arithmetic is that of the exact transform): the torus E1 writes
+  -sigma z / B^ block by block straight into the rfft half spectrum
+  (:func:`dense_torus_spectrum`; sigma from a table over |n|^2-like integers for commensurate
+  lattices, else a float32 power law), twisted families from the mode list
+  (:func:`mode_list_spectrum`); the inverse FFT runs in place and skips the rows and planes
+  outside the ball's index box (:func:`band_limited_irfft`: the n2 transform on 2 m1 + 1 of N1
+  rows, both complex transforms on m3 + 1 of N3/2 + 1 planes); the pixels are sampled in
+  NESTED order (neighbouring pixels share grid cells in cache) with coordinates reduced to the
+  cell, then put in RING order. The grid sky equals the unpruned transform's to float32
+  rounding (~1e-6 of the map rms). Memory: the complex64 half spectrum and the float32 grid
+  (~8 bytes x N1 N2 N3 together); E1 of side 1.6 chi_rec at N_side 256, l_max 512: grid
+  320^3, peak resident memory ~0.43 GB (float32 throughout the grid: the interpolation error,
+  ~1e-2, dwarfs float32 rounding, ~1e-7). Speed: benchmarks/flat_sky_speed.py. Returns a
+  map-type Sky at ``nside`` (the field sampled at the pixel centres, no pixel window).
 
 ISW for these skies comes only with the CAMB transfer (above); the grid method has none.
 """
@@ -141,10 +149,15 @@ def _k_squared(D: np.ndarray, n1, n2, n3):
 # ---------------------------------------------------------------------------------------------
 # amplitudes
 # ---------------------------------------------------------------------------------------------
+def _block_gaussians(seed: int, block) -> np.ndarray:
+    """(2, BLOCK, BLOCK, BLOCK) float32 standard normals of one block (real, imaginary parts)."""
+    ss = np.random.SeedSequence(int(seed), spawn_key=(STREAMS["signal"],) + tuple(int(b) + _OFFSET for b in block))
+    return np.random.Generator(np.random.PCG64(ss)).standard_normal((2, BLOCK, BLOCK, BLOCK), dtype=np.float32)
+
+
 def _block_normals(seed: int, block: tuple[int, int, int]) -> np.ndarray:
     """(BLOCK, BLOCK, BLOCK) complex64 unit normals (<|z|^2> = 1) of one block of indices."""
-    ss = np.random.SeedSequence(int(seed), spawn_key=(STREAMS["signal"],) + tuple(int(b) + _OFFSET for b in block))
-    g = np.random.Generator(np.random.PCG64(ss)).standard_normal((2, BLOCK, BLOCK, BLOCK), dtype=np.float32)
+    g = _block_gaussians(seed, block)
     z = np.empty((BLOCK, BLOCK, BLOCK), dtype=np.complex64)
     z.real = g[0]
     z.imag = g[1]
@@ -172,19 +185,15 @@ def _blocks(m: np.ndarray, D: np.ndarray | None, kchi_max: float | None) -> list
     lam = None
     if D is not None and kchi_max is not None:
         lam = float(np.linalg.eigvalsh(4.0 * np.pi**2 * (D @ D.T)).min())
-    jobs = []
-    for b1 in range(blo[0], bhi[0] + 1):
-        for b2 in range(blo[1], bhi[1] + 1):
-            for b3 in range(blo[2], bhi[2] + 1):
-                b = np.array([b1, b2, b3])
-                s = np.maximum(b * BLOCK, lo)
-                e = np.minimum(b * BLOCK + BLOCK - 1, hi)
-                if lam is not None:
-                    near = np.clip(0, s, e)  # the box point nearest the origin
-                    if lam * float(near @ near) > kchi_max**2 * (1 + 1e-9):
-                        continue
-                jobs.append((b, s, e))
-    return jobs
+    axes = [np.arange(blo[d], bhi[d] + 1) for d in range(3)]
+    b = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, 3)   # C order: b1, b2, b3
+    st = np.maximum(b * BLOCK, lo)
+    en = np.minimum(b * BLOCK + BLOCK - 1, hi)
+    if lam is not None:
+        near = np.clip(0, st, en)  # the box point nearest the origin
+        keep = lam * np.einsum("ij,ij->i", near, near).astype(float) <= kchi_max**2 * (1 + 1e-9)
+        b, st, en = b[keep], st[keep], en[keep]
+    return list(zip(b, st, en))
 
 
 def _fill_blocks(seed: int, jobs: list, out: np.ndarray, offset, workers: int | None) -> None:
@@ -232,27 +241,6 @@ def unit_normals_half(seed: int, m: np.ndarray, D: np.ndarray | None = None, kch
     i2 = np.arange(-m[1], m[1] + 1)
     _hermitian_plane(out[:, :, 0], i1, i2, slice(None, None, -1), slice(None, None, -1))
     return out
-
-
-def unit_normals_fft(seed: int, m: np.ndarray, shape, D: np.ndarray | None = None, kchi_max: float | None = None,
-                     workers: int | None = None) -> np.ndarray:
-    """The normals of :func:`unit_normals_half` written straight into the half spectrum of an
-    rfft grid of ``shape`` (complex64 (N1, N2, N3//2 + 1), index n mod N); zero elsewhere."""
-    m = np.asarray(m, dtype=np.int64)
-    N1, N2, N3 = shape
-    spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
-    jobs = _blocks(m, D, kchi_max)
-    # a block never straddles n = 0, so its rows land contiguously at n mod N
-    groups = {}
-    for b, s, e in jobs:
-        off = (N1 if s[0] < 0 else 0, N2 if s[1] < 0 else 0, 0)
-        groups.setdefault(off, []).append((b, s, e))
-    for off, part in groups.items():
-        _fill_blocks(seed, part, spec, off, workers)
-    n1 = np.where(np.arange(N1) <= N1 // 2, np.arange(N1), np.arange(N1) - N1)
-    n2 = np.where(np.arange(N2) <= N2 // 2, np.arange(N2), np.arange(N2) - N2)
-    _hermitian_plane(spec[:, :, 0], n1, n2, (-np.arange(N1)) % N1, (-np.arange(N2)) % N2)
-    return spec
 
 
 def unit_normals_full(seed: int, m: np.ndarray, D: np.ndarray | None = None, kchi_max: float | None = None,
@@ -421,32 +409,155 @@ def _bspline_deconv(n: np.ndarray, N: int, order: int = 3) -> np.ndarray:
     return (1.0 / np.sinc(np.asarray(n, dtype=float) / N) ** (order + 1)).astype(np.float32)
 
 
-def _sw_sigma_box(D, m, kchi_max, cosmology, volume):
-    """mode_sigma on the half box n1 in [-m1, m1], n2 in [-m2, m2], n3 in [0, m3] (float32).
-
-    The same power law as :func:`mode_sigma` written as C (k^2)^((n_s - 4) / 4) with
-    C = (T/5) sqrt(2 pi^2 A_s / V) (chi_rec k_pivot)^((1 - n_s) / 2); zero outside the ball.
-    """
-    f32 = np.float32
-    i1 = np.arange(-m[0], m[0] + 1, dtype=f32)[:, None, None]
-    i2 = np.arange(-m[1], m[1] + 1, dtype=f32)[None, :, None]
-    i3 = np.arange(0, m[2] + 1, dtype=f32)[None, None, :]
-    G = (4.0 * np.pi**2 * (D @ D.T)).astype(f32)
-    k2 = (G[0, 0] * i1 * i1 + 2 * G[0, 1] * i1 * i2 + G[1, 1] * i2 * i2)  # (.., .., 1)
-    if G[0, 2] == 0 and G[1, 2] == 0:
-        k2 = k2 + G[2, 2] * i3 * i3
-    else:
-        k2 = k2 + (2 * G[0, 2] * i1 + 2 * G[1, 2] * i2) * i3
-        k2 += G[2, 2] * i3 * i3
+def _sw_constant(cosmology, volume: float) -> float:
+    """C of sigma(k) = C (k^2)^((n_s - 4) / 4), k in 1/chi_rec: the power law of :func:`mode_sigma`,
+    C = (T/5) sqrt(2 pi^2 A_s / V) (chi_rec k_pivot)^((1 - n_s) / 2)."""
     t_uk = cosmology.t_cmb * 1e6
-    C = (t_uk / 5.0) * math.sqrt(2.0 * np.pi**2 * A_S / volume) * (cosmology.chi_rec_mpc * K_PIVOT) ** ((1.0 - N_S) / 2)
-    outside = k2 > f32(kchi_max**2 * (1 + 1e-6))
-    k2[m[0], m[1], 0] = 1.0
-    sig = np.power(k2, f32((N_S - 4.0) / 4.0))
-    sig *= f32(C)
-    sig[outside] = 0.0
-    sig[m[0], m[1], 0] = 0.0
-    return sig
+    return (t_uk / 5.0) * math.sqrt(2.0 * np.pi**2 * A_S / volume) * (cosmology.chi_rec_mpc * K_PIVOT) ** ((1.0 - N_S) / 2)
+
+
+def _integer_form(G: np.ndarray, m, max_table: int = 1 << 22):
+    """(g, S, s_box) with G = g S, S a small integer matrix (commensurate lattices: every cubic
+    torus, sides in ratio sqrt of integers...), so that |k|^2 = g (n S n^T) is an integer
+    multiple of g and sigma a table over s = n S n^T <= s_box (a bound over the index box);
+    None if G has no such form or the table would exceed ``max_table`` entries."""
+    g0 = float(np.min(np.diag(G)))
+    mf = np.asarray(m, dtype=float)
+    for q in range(1, 25):
+        S = G * (q / g0)
+        Si = np.rint(S)
+        if np.abs(S - Si).max() <= 1e-9 * np.abs(S).max():
+            s_box = float(mf @ np.abs(Si) @ mf)
+            if s_box + 1 > max_table:
+                return None
+            return g0 / q, Si.astype(np.int64), int(s_box)
+    return None
+
+
+def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, workers: int | None = None,
+                         order: int = 3) -> np.ndarray:
+    """Half spectrum (complex64 (N1, N2, N3//2 + 1), index n mod N) of the torus E1 for the grid:
+    -sigma(k) z_n / B^(n) with B^ the B-spline transform, zero outside 0 < |k| <= kchi_max
+    (the ball of :func:`half_ball_modes`).
+
+    Block by block: each block's normals (:func:`_block_gaussians`, the stream of the
+    eigenmode method) are scaled by sigma and written once into the spectrum; no box-sized
+    temporaries. sigma is the power law of :func:`_sw_constant`, taken from a table over
+    s = n S n^T when |k|^2 = g s with S an integer matrix (:func:`_integer_form`), else by a
+    float32 power. Blocks run on ``workers`` threads (the generator and numpy's loops release
+    the GIL). z_n equals the eigenmode method's up to float32 rounding (the factor 1/sqrt 2 is
+    folded into sigma).
+    """
+    A = space.lattice
+    D = np.linalg.inv(A).T
+    m = index_bounds(A, kchi_max)
+    N1, N2, N3 = shape
+    spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
+    sf = spec.view(np.float32).reshape(N1, N2, N3 // 2 + 1, 2)   # [..., 0] real, [..., 1] imaginary
+    G = 4.0 * np.pi**2 * (D @ D.T)
+    idx = [np.arange(-m[0], m[0] + 1), np.arange(-m[1], m[1] + 1), np.arange(0, m[2] + 1)]
+    base = [int(m[0]), int(m[1]), 0]                  # index n -> position n + base in the tables
+    scale = -_sw_constant(cosmology, space.covering_cell_volume) * math.sqrt(0.5)
+    dec = [_bspline_deconv(idx[0], N1, order), _bspline_deconv(idx[1], N2, order),
+           _bspline_deconv(idx[2], N3, order)]
+    lim = kchi_max**2 * (1 + 1e-12)
+    power = (N_S - 4.0) / 4.0
+    form = _integer_form(G, m)
+    if form is not None:
+        g, S, s_box = form
+        table = np.zeros(s_box + 1)
+        sv = np.arange(1, s_box + 1, dtype=float)
+        table[1:] = np.where(g * sv <= lim, scale * (g * sv) ** power, 0.0)
+        table = table.astype(np.float32)
+        diag = [(S[d, d] * idx[d] ** 2).astype(np.int32) for d in range(3)]
+        cross = [(a, c, int(2 * S[a, c])) for a, c in ((0, 1), (0, 2), (1, 2)) if S[a, c] != 0]
+    else:
+        quad = [G[d, d] * idx[d].astype(float) ** 2 for d in range(3)]
+        cross = [(a, c, 2.0 * G[a, c]) for a, c in ((0, 1), (0, 2), (1, 2)) if G[a, c] != 0]
+        dec[0] = dec[0] * np.float32(scale)
+    sizes = (N1, N2)
+
+    def bcast(arr, d, t):
+        shp = [1, 1, 1]
+        shp[d] = -1
+        return arr[t[d]].reshape(shp)
+
+    def one(b, s, e):
+        z = _block_gaussians(seed, b)
+        o = b * BLOCK
+        sub = tuple(slice(s[d] - o[d], e[d] - o[d] + 1) for d in range(3))
+        t = [slice(s[d] + base[d], e[d] + base[d] + 1) for d in range(3)]
+        origin = s[0] <= 0 <= e[0] and s[1] <= 0 <= e[1] and s[2] == 0
+        if form is not None:
+            sq = bcast(diag[0], 0, t) + bcast(diag[1], 1, t) + bcast(diag[2], 2, t)
+            for a_, c_, w_ in cross:
+                sq = sq + w_ * bcast(idx[a_], a_, t).astype(np.int32) * bcast(idx[c_], c_, t).astype(np.int32)
+            sig = table.take(sq)                      # s = 0 (the origin) -> 0
+        else:
+            k2 = bcast(quad[0], 0, t) + bcast(quad[1], 1, t) + bcast(quad[2], 2, t)
+            for a_, c_, w_ in cross:
+                k2 = k2 + w_ * bcast(idx[a_], a_, t) * bcast(idx[c_], c_, t)
+            if origin:
+                k2[-s[0], -s[1], 0] = np.inf
+            k2[k2 > lim] = np.inf                     # inf^power = 0 (power < 0)
+            sig = k2.astype(np.float32)
+            np.power(sig, np.float32(power), out=sig)
+        sig *= bcast(dec[0], 0, t)
+        sig *= bcast(dec[1], 1, t) * bcast(dec[2], 2, t)
+        # a block never straddles n = 0, so it lands contiguously at n mod N
+        dst = tuple(slice(s[d] % sizes[d], s[d] % sizes[d] + e[d] - s[d] + 1) for d in range(2)) + \
+            (slice(s[2], e[2] + 1),)
+        np.multiply(z[0][sub], sig, out=sf[dst + (0,)])
+        np.multiply(z[1][sub], sig, out=sf[dst + (1,)])
+
+    jobs = _blocks(m, D, kchi_max)
+    nt = min(_threads(workers), max(1, len(jobs) // 8))
+    if nt > 1:
+        with ThreadPoolExecutor(nt) as ex:
+            list(ex.map(lambda part: [one(*j) for j in part], [jobs[i::nt] for i in range(nt)]))
+    else:
+        for j in jobs:
+            one(*j)
+    n1 = np.where(np.arange(N1) <= N1 // 2, np.arange(N1), np.arange(N1) - N1)
+    n2 = np.where(np.arange(N2) <= N2 // 2, np.arange(N2), np.arange(N2) - N2)
+    _hermitian_plane(spec[:, :, 0], n1, n2, (-np.arange(N1)) % N1, (-np.arange(N2)) % N2)
+    return spec
+
+
+def mode_list_spectrum(space, cosmology, seed: int, kchi_max: float, shape, workers: int | None = None,
+                       order: int = 3) -> np.ndarray:
+    """The half spectrum of :func:`dense_torus_spectrum` for any family, from the invariant mode
+    list c_q of :func:`invariant_coefficients` (divided by the B-spline transform)."""
+    N1, N2, N3 = shape
+    spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
+    n, _, c = invariant_coefficients(space, cosmology, seed, kchi_max, workers)
+    c = c * (_bspline_deconv(n[:, 0], N1, order) * _bspline_deconv(n[:, 1], N2, order)
+             * _bspline_deconv(n[:, 2], N3, order))
+    spec[n[:, 0] % N1, n[:, 1] % N2, n[:, 2]] = c
+    z0 = n[:, 2] == 0
+    spec[(-n[z0, 0]) % N1, (-n[z0, 1]) % N2, 0] = np.conj(c[z0])
+    return spec
+
+
+def band_limited_irfft(spec: np.ndarray, shape, m, workers: int | None = None) -> np.ndarray:
+    """scipy.fft.irfftn(spec, s=shape, norm="forward") for a spectrum that vanishes outside
+    |n_d| <= m_d, in place and pruned: the n2 transform runs only on the rows |n1| <= m1 and
+    both complex transforms only on the planes n3 <= m3 (the others are zero and stay zero);
+    then the real transform along axis 3. ``spec`` is overwritten."""
+    N1, N2, N3 = shape
+    w = _threads(workers)
+    h = int(m[2]) + 1
+    if 2 * int(m[0]) + 1 < N1:
+        rows = [slice(0, int(m[0]) + 1)] + ([slice(N1 - int(m[0]), N1)] if m[0] > 0 else [])
+    else:
+        rows = [slice(None)]
+    for axis, parts in ((1, rows), (0, [slice(None)])):
+        for r in parts:
+            v = spec[r, :, :h]
+            out = scipy.fft.ifft(v, axis=axis, norm="forward", workers=w, overwrite_x=True)
+            if not np.shares_memory(out, spec):   # scipy chose not to work in place
+                v[...] = out
+    return scipy.fft.irfft(spec, n=N3, axis=2, norm="forward", workers=w, overwrite_x=True)
 
 
 def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float = 1.2,
@@ -460,54 +571,60 @@ def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float =
     if float(np.prod(shape, dtype=float)) > MAX_GRID_CELLS:
         raise InputError(f"the grid method would need {shape} cells (> {MAX_GRID_CELLS:.0e}); lower lmax or "
                          "enlarge the space", "[sky] lmax")
-    N1, N2, N3 = shape
-    group = point_group(space)
-    A = space.lattice
-    D = np.linalg.inv(A).T
-    if len(group) == 1:
-        # dense fast path for the torus E1: c = -sigma z written by quadrants of the spectrum
-        m = index_bounds(A, kchi_max)
-        spec = unit_normals_fft(seed, m, shape, D, kchi_max, workers)
-        sig = _sw_sigma_box(D, m, kchi_max, cosmology, space.covering_cell_volume)
-        sig *= -_bspline_deconv(np.arange(-m[0], m[0] + 1), N1, order)[:, None, None]
-        d23 = (_bspline_deconv(np.arange(-m[1], m[1] + 1), N2, order)[:, None]
-               * _bspline_deconv(np.arange(0, m[2] + 1), N3, order)[None, :])
-        sig *= d23[None, :, :]
-        for src1, dst1 in ((slice(m[0], None), slice(0, m[0] + 1)), (slice(0, m[0]), slice(N1 - m[0], N1))):
-            for src2, dst2 in ((slice(m[1], None), slice(0, m[1] + 1)), (slice(0, m[1]), slice(N2 - m[1], N2))):
-                spec[dst1, dst2, : m[2] + 1] *= sig[src1, src2, :]
-        del sig
+    if len(space.cosets) == 1:
+        spec = dense_torus_spectrum(space, cosmology, seed, kchi_max, shape, workers, order)
     else:
-        spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
-        n, _, c = invariant_coefficients(space, cosmology, seed, kchi_max, workers)
-        c = c * (_bspline_deconv(n[:, 0], N1, order) * _bspline_deconv(n[:, 1], N2, order)
-                 * _bspline_deconv(n[:, 2], N3, order))
-        spec[n[:, 0] % N1, n[:, 1] % N2, n[:, 2]] = c
-        z0 = n[:, 2] == 0
-        spec[(-n[z0, 0]) % N1, (-n[z0, 1]) % N2, 0] = np.conj(c[z0])
-    return scipy.fft.irfftn(spec, s=shape, norm="forward", workers=_threads(workers), overwrite_x=True)
+        spec = mode_list_spectrum(space, cosmology, seed, kchi_max, shape, workers, order)
+    return band_limited_irfft(spec, shape, index_bounds(space.lattice, kchi_max), workers)
 
 
 def sample_grid(grid: np.ndarray, space, points: np.ndarray, workers: int | None = None,
                 order: int = 3) -> np.ndarray:
-    """Cubic B-spline interpolation (periodic) of ``grid`` at points (M, 3) in chi_rec, float64.
-
-    Points are split over threads (scipy.ndimage releases the GIL).
-    """
+    """Cubic B-spline interpolation (periodic) of ``grid`` at points (M, 3) in chi_rec, float64."""
     u = points @ np.linalg.inv(space.lattice)        # lattice (fractional) coordinates
     coords = np.ascontiguousarray((u * np.asarray(grid.shape, dtype=float)).T)
-    nt = min(_threads(workers), max(1, coords.shape[1] // 50000))
+    return sample_grid_coords(grid, coords, workers, order)
+
+
+def sphere_grid_coords(space, shape, x_obs: np.ndarray, frame: np.ndarray, nside: int,
+                       nest: bool = False) -> np.ndarray:
+    """Grid coordinates (3, npix) of the pixel centres x_obs + F n on the unit (chi_rec) sphere,
+    j_d = N_d (A^-T (x_obs + F n))_d reduced to [0, N_d) (one (3, 3) x (3, npix) product),
+    in RING or (``nest``) NESTED pixel order."""
+    import healpy as hp
+
+    v = np.array(hp.pix2vec(nside, np.arange(12 * nside * nside), nest=nest))   # (3, npix)
+    N = np.asarray(shape, dtype=float)[:, None]
+    W = N * np.linalg.inv(space.lattice).T
+    coords = (W @ frame) @ v
+    coords += (W @ x_obs)[:, None]
+    # reduce to [0, N] (periodic anyway; ndimage wraps far coordinates more slowly)
+    coords -= np.floor(coords * (1.0 / N)) * N
+    return coords
+
+
+def sample_grid_coords(grid: np.ndarray, coords: np.ndarray, workers: int | None = None,
+                       order: int = 3) -> np.ndarray:
+    """B-spline interpolation (periodic, no prefilter) of ``grid`` at grid coordinates (3, M).
+
+    Points are split over threads (scipy.ndimage releases the GIL), each writing its part of
+    the float64 output.
+    """
+    M = coords.shape[1]
+    out = np.empty(M, dtype=np.float64)
+    nt = min(_threads(workers), max(1, M // 50000))
 
     def run(sl):
-        return ndimage.map_coordinates(grid, coords[:, sl], order=order, mode="grid-wrap", prefilter=False,
-                                       output=np.float64)
+        ndimage.map_coordinates(grid, coords[:, sl], order=order, mode="grid-wrap", prefilter=False,
+                                output=out[sl])
 
     if nt == 1:
-        return run(slice(None))
-    edges = np.linspace(0, coords.shape[1], nt + 1).astype(int)
-    with ThreadPoolExecutor(nt) as ex:
-        parts = list(ex.map(run, [slice(a, b) for a, b in zip(edges[:-1], edges[1:])]))
-    return np.concatenate(parts)
+        run(slice(None))
+    else:
+        edges = np.linspace(0, M, nt + 1).astype(int)
+        with ThreadPoolExecutor(nt) as ex:
+            list(ex.map(run, [slice(a, b) for a, b in zip(edges[:-1], edges[1:])]))
+    return out
 
 
 # ---------------------------------------------------------------------------------------------
@@ -603,12 +720,16 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
         alm = plane_wave_alm(k_sky, coef, 1.0, lmax, radial)
         meta.update(method="eigenmode", n_modes=int(2 * len(n)), transfer="camb" if full else "sachs-wolfe")
         return Sky(lmax=lmax, alm=alm, nside=nside, terms=terms, meta=meta)
+    grid = torus_grid(space, cosmology, seed, kchi, oversample, workers, spline_order)
+    # sampled in NESTED order (neighbouring pixels, neighbouring grid cells: fewer cache misses
+    # than RING order), then put in RING order
     import healpy as hp
 
-    grid = torus_grid(space, cosmology, seed, kchi, oversample, workers, spline_order)
-    npix = 12 * nside * nside
-    vec = np.column_stack(hp.pix2vec(nside, np.arange(npix)))
-    pts = x_obs[None, :] + vec @ F.T
-    sky = sample_grid(grid, space, pts, workers, spline_order)
-    meta.update(method="grid", grid=list(grid.shape), oversample=float(oversample), spline_order=int(spline_order))
+    vals = sample_grid_coords(grid, sphere_grid_coords(space, grid.shape, x_obs, F, nside, nest=True), workers,
+                              spline_order)
+    shape = list(grid.shape)
+    del grid
+    sky = np.empty_like(vals)
+    sky[hp.nest2ring(nside, np.arange(vals.size))] = vals
+    meta.update(method="grid", grid=shape, oversample=float(oversample), spline_order=int(spline_order))
     return Sky(lmax=lmax, map=sky, nside=nside, terms=terms, meta=meta)
