@@ -385,7 +385,9 @@ def task_data(plan_d: dict, name: str) -> dict:
     return res
 
 
-def task_null(plan_d: dict, index: int, task_id: str) -> dict:
+def null_map(plan_d: dict, task_id: str) -> tuple[np.ndarray, int]:
+    """The observed isotropic sky of null task ``task_id`` and its seed (same spectrum, beam and
+    noise as the data; seed from the run seed and the task id)."""
     from .scenario import cosmology_from_config
     from .skies.instrument import observe
     from .skies.isotropic import isotropic_sky
@@ -395,7 +397,11 @@ def task_null(plan_d: dict, index: int, task_id: str) -> dict:
     cosmo = cosmology_from_config(config_from_dict({"cosmology": plan_d["sections"].get("cosmology", {})}))
     inst = plan_d["instrument"]
     sky = isotropic_sky(cosmo, lmax=lmax, terms=tuple(inst["terms"]), seed=seed)
-    m = observe(sky, nside=nside, lmax=lmax, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"], seed=seed)
+    return observe(sky, nside=nside, lmax=lmax, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"], seed=seed), seed
+
+
+def task_null(plan_d: dict, index: int, task_id: str) -> dict:
+    m, seed = null_map(plan_d, task_id)
     res = _search(m, plan_d, task_id)
     return {"s_max": _smax_by_radius(res, np.asarray(plan_d["radii_deg"])), "seed": seed,
             "elapsed_s": res["elapsed_s"]}

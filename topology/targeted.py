@@ -98,20 +98,10 @@ def search_targets(values, plan_d: dict, source: str) -> dict:
 
 
 def task_null(plan_d: dict, index: int, task_id: str) -> dict:
-    from .pipeline import _int_seed, _sim_settings
-    from .scenario import cosmology_from_config
-    from .config import config_from_dict
-    from .skies.instrument import observe
-    from .skies.isotropic import isotropic_sky
+    from .pipeline import null_map
 
-    nside, lmax = _sim_settings(plan_d, plan_d["nside_hint"])
-    seed = _int_seed(plan_d["significance"]["seed"], task_id)
-    cosmo = cosmology_from_config(config_from_dict({"cosmology": plan_d["sections"].get("cosmology", {})}))
-    inst = plan_d["instrument"]
-    sky = isotropic_sky(cosmo, lmax=lmax, terms=tuple(inst["terms"]), seed=seed)
-    m = observe(sky, nside=nside, lmax=lmax, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"], seed=seed)
-    out = search_targets(m, plan_d, task_id)
-    return {"s_comb": out["s_comb"], "seed": seed}
+    m, seed = null_map(plan_d, task_id)
+    return {"s_comb": search_targets(m, plan_d, task_id)["s_comb"], "seed": seed}
 
 
 def task_injection(plan_d: dict, target: int, index: int, task_id: str) -> dict:
