@@ -272,9 +272,9 @@ def test_grid_is_deterministic():
 # ---------------------------------------------------------------------------------------------
 def test_bad_input_raises_input_error():
     e1 = build_space({"family": "E1", "lengths": [1.6, 1.6, 1.6]})
-    slab = build_space({"family": "E11", "lengths": [1.0, 1.2]})
-    with pytest.raises(InputError, match="compact"):
-        flat_sky(slab, OBSERVER, COSMO, lmax=10, method="eigenmode", seed=0)
+    lens = build_space({"family": "lens", "p": 8, "q": 3})
+    with pytest.raises(InputError, match="flat space"):
+        flat_sky(lens, OBSERVER, COSMO, lmax=10, method="eigenmode", seed=0)
     with pytest.raises(InputError, match="eigenmode"):
         flat_sky(e1, OBSERVER, COSMO, lmax=1500, nside=1024, method="eigenmode", seed=0)
     with pytest.raises(InputError, match="terms"):

@@ -1,4 +1,4 @@
-"""Skies of flat multiply connected spaces E^3 / Gamma (compact families E1-E10).
+"""Skies of flat multiply connected spaces E^3 / Gamma (compact E1-E10, non-compact E11-E17).
 
 The field. Let Lambda (rows of ``space.lattice``, units of chi_rec) be the translation lattice
 and g = (R_g, t_g) the coset representatives of Gamma / Lambda (``space.cosets``). A field on
@@ -76,6 +76,21 @@ Methods:
   ~1e-2, dwarfs float32 rounding, ~1e-7). Speed: benchmarks/flat_sky_speed.py. Returns a
   map-type Sky at ``nside`` (the field sampled at the pixel centres, no pixel window).
 
+Non-compact families E11-E17 (chimneys: one open direction, slabs: two). Their spectrum is
+continuous along the open directions. The sky is that of :func:`compact_cover`: each open
+direction e_d is identified with a period L_d (default FREE_LENGTH = 6 chi_rec, three
+last-scattering diameters, longer when the observer is far from a mirror or axis of the group),
+which turns the group into a subgroup of a compact one (E11, E16 -> E1; E12 -> E2;
+E13, E14, E17 -> E7; E15 -> E9: every family embeds) and discretises the open directions' wave
+numbers to k_d = 2 pi n / L_d. L_d keeps every image of the observer added by the period at
+least FREE_CLEARANCE = 2.5 chi_rec away, so the cover has exactly the space's circle pairs.
+Discretisation error of the expected SW spectrum against the continuous limit (sum over the
+slab's k_z of the integral over k_perp; tests/test_skies_noncompact.py): slab of thickness 1.4
+chi_rec with L = 6: -0.6% at l = 2, < 1e-4 from l = 3 on (L = 4: -2%, L = 12: -0.1% at
+l = 2). Cost: the cover's volume sets the mode count, e.g. at lmax = kchi_max = 64 (the
+eigenmode range of "auto") a slab of thickness 1.4 has 2.2e5 modes (~10 s), a chimney of
+section 1.5 x 1.6 has 6.4e4 (~3 s); the grid of a slab at lmax 128 is 300 x 300 x 72 cells.
+
 ISW for these skies comes only with the CAMB transfer (above); the grid method has none.
 """
 
@@ -97,6 +112,9 @@ from .spectra import A_S, K_PIVOT, N_S, primordial_power
 BLOCK = 16                 # side of a block of lattice indices drawn from one SeedSequence
 _OFFSET = 1 << 20          # shifts block indices to non-negative spawn keys
 COMPACT_FAMILIES = ("E1", "E2", "E3", "E4", "E5", "E6", "E7", "E8", "E9", "E10")
+NONCOMPACT_FAMILIES = ("E11", "E12", "E13", "E14", "E15", "E16", "E17")
+FREE_LENGTH = 6.0          # chi_rec: default period of the open directions of E11-E17
+FREE_CLEARANCE = 2.5       # chi_rec: no image added by that period within 2 chi_rec + 0.5
 MAX_EIGEN_WORK = 2.0e9     # eigenmode guard: (modes in the half ball) x (a_lm with m >= 0)
 MAX_GRID_CELLS = 2.0e9     # grid guard: cells of the FFT grid
 MODE_BLOCK = 8192          # modes per block of the eigenmode sum
@@ -108,13 +126,66 @@ AUTO_LMAX = 64             # method "auto": eigenmode up to this lmax, grid abov
 # the space: lattice, dual basis, point group on lattice indices
 # ---------------------------------------------------------------------------------------------
 def check_space(space) -> None:
-    """InputError unless ``space`` is a compact flat space this generator supports."""
+    """InputError unless ``space`` is a flat space this generator supports (E1-E17)."""
     if getattr(space, "geometry", None) != "flat":
         raise InputError(f"flat skies need a flat space, got {getattr(space, 'geometry', None)!r}", "[space] family")
-    if not getattr(space, "compact", False) or space.family not in COMPACT_FAMILIES:
-        raise InputError(f"flat multiply connected skies support the compact families E1-E10, not {space.family} "
-                         "(a non-compact family has a continuous spectrum along its open directions; "
-                         "approximate it by a compact family with a long period)", "[space] family")
+    fam = getattr(space, "family", None)
+    if getattr(space, "compact", False):
+        if fam not in COMPACT_FAMILIES:
+            raise InputError(f"flat multiply connected skies support E1-E17, not {fam}", "[space] family")
+    elif fam not in NONCOMPACT_FAMILIES:
+        raise InputError(f"flat multiply connected skies support E1-E17, not {fam}", "[space] family")
+
+
+def compact_cover(space, observer, free_length: float | None = None):
+    """(cover, axes, lengths): the non-compact ``space`` (E11-E17) with each open direction
+    e_d identified with a period L_d, a compact flat space whose field is that of ``space``
+    with a discrete spectrum k_d = 2 pi n / L_d along the open directions.
+
+    The open directions are the coordinate axes orthogonal to the lattice (``axes``); the
+    cover's lattice is the space's plus L_d e_d, its cosets are the space's (each R_g maps
+    e_d to +-e_d, so the lattice is preserved; :func:`point_group` checks it). The added
+    elements T(sum n_d L_d e_d) g (n != 0) move the observer x along e_d by
+    n_d L_d + ((R_g - 1) x + t_g).e_d, so L_d = max(free_length, FREE_CLEARANCE + max_g
+    |((R_g - 1) x + t_g).e_d|) keeps every added image of the observer at least
+    FREE_CLEARANCE (2 chi_rec + 0.5) away: the cover has exactly the space's circle pairs
+    (checked here by counting the images within FREE_CLEARANCE). ``free_length`` defaults
+    to FREE_LENGTH.
+    """
+    from ..spaces.euclidean import FlatSpace
+
+    L0 = FREE_LENGTH if free_length is None else float(free_length)
+    if not np.isfinite(L0) or L0 <= 0:
+        raise InputError(f"the period of the open directions must be positive, got {free_length}", "free_length")
+    lat = np.atleast_2d(space.lattice)
+    scale = float(np.abs(lat).max())
+    axes = [d for d in range(3) if np.all(np.abs(lat[:, d]) <= 1e-12 * scale)]
+    if len(axes) + lat.shape[0] != 3:
+        raise InputError(f"{space.family}: its open directions are not coordinate axes, so they cannot be given a "
+                         "period; no sky for it", "[space] family")
+    x = np.asarray(observer.point[:3], dtype=float)
+    lengths = []
+    rows = [lat]
+    for d in axes:
+        reach = max(abs(float(((R - np.eye(3)) @ x + t)[d])) for R, t in space.cosets)
+        L = max(L0, FREE_CLEARANCE + reach)
+        lengths.append(L)
+        e = np.zeros(3)
+        e[d] = L
+        rows.append(e[None, :])
+    cover = FlatSpace(space.family, np.vstack(rows), space.cosets, dict(space.params),
+                      orientable=space.orientable, homogeneous=space.homogeneous)
+    try:
+        point_group(cover)
+    except InputError:
+        raise InputError(f"{space.family}: its group does not embed in a compact flat group by a period along "
+                         "its open directions; no sky for it", "[space] family") from None
+    own = len(space.elements_within(observer, FREE_CLEARANCE))
+    got = len(cover.elements_within(observer, FREE_CLEARANCE))
+    if got != own:   # cannot happen with the lengths above; a guard against extra circles
+        raise InputError(f"{space.family}: the periodic cover would add {got - own} images of the observer within "
+                         f"{FREE_CLEARANCE} chi_rec", "[observer] position")
+    return cover, axes, lengths
 
 
 def point_group(space) -> list[tuple[np.ndarray, np.ndarray]]:
@@ -671,8 +742,8 @@ def _check_inputs(lmax, nside, method, terms, kchi_max, oversample):
 
 def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None, method: str = "auto",
              terms=("sw",), seed: int = 0, kchi_max: float | None = None, oversample: float = 1.2,
-             spline_order: int = 3, workers: int | None = None) -> Sky:
-    """SW sky of a compact flat space E1-E10 seen by ``observer`` (microK, see the module doc).
+             spline_order: int = 3, workers: int | None = None, free_length: float | None = None) -> Sky:
+    """Sky of a flat space E1-E17 seen by ``observer`` (microK, see the module doc).
 
     space: topology.spaces.euclidean.FlatSpace (lengths in chi_rec); observer: flat Observer
     (position in chi_rec; sky direction n points along frame[:3] @ n); cosmology: T_cmb,
@@ -680,7 +751,9 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
     (l <= lmax), "grid" -> map Sky at nside, "auto" -> eigenmode for lmax <= 64 or for the CAMB
     terms, else grid. Grid only: oversample (grid cells per shortest half-wavelength),
     spline_order 3 (cubic B-spline, 64 taps) or 2 (quadratic, 27 taps: ~2x faster sampling,
-    ~2x the error); workers: threads for the FFT, the normals and the sampling.
+    ~2x the error); workers: threads for the FFT, the normals and the sampling. Non-compact
+    families E11-E17: the sky of :func:`compact_cover` (open directions given the period
+    ``free_length``, default FREE_LENGTH = 6 chi_rec; meta "free_axes", "free_length").
     """
     if spline_order not in (2, 3):
         raise InputError(f"spline_order must be 2 or 3, got {spline_order!r}", "[sky] method")
@@ -688,6 +761,11 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
     check_space(space)
     if observer.geometry != "flat":
         raise InputError(f"a flat space needs a flat observer, got {observer.geometry!r}", "[observer] position")
+    given = space
+    free = None
+    if not space.compact:
+        space, axes, lengths = compact_cover(space, observer, free_length)
+        free = ("".join("xyz"[d] for d in axes), lengths)
     full = terms != ("sw",)
     if method == "auto":
         method = "eigenmode" if (lmax <= AUTO_LMAX or full) else "grid"
@@ -698,8 +776,10 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
         raise InputError("the grid method needs nside", "[sky] nside")
     x_obs = np.asarray(observer.point[:3], dtype=float)
     F = np.asarray(observer.frame[:3, :], dtype=float)  # columns: sky axes in space coordinates
-    meta = {"family": space.family, "params": dict(space.params), "seed": int(seed), "kchi_max": kchi,
+    meta = {"family": given.family, "params": dict(given.params), "seed": int(seed), "kchi_max": kchi,
             "observer": x_obs.tolist(), "terms": list(terms)}
+    if free is not None:   # the open directions' period (the discretisation of their spectrum)
+        meta.update(free_axes=free[0], free_length=",".join(f"{L:g}" for L in free[1]))
     if method == "eigenmode":
         work = eigenmode_work(space, lmax, kchi)
         if work > MAX_EIGEN_WORK:
