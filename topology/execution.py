@@ -67,28 +67,36 @@ class SerialEngine:
 
 
 class LocalEngine:
-    """Process pool (spawned workers, one BLAS thread each)."""
+    """Process pool (spawned workers, one BLAS thread each), kept between :meth:`run` calls
+    until :meth:`close` (so a second batch does not pay the workers' start-up again)."""
 
     name = "local"
 
     def __init__(self, workers: int | None = None):
         self.workers = workers or default_workers()
+        self._pool = None
+
+    def _get_pool(self) -> ProcessPoolExecutor:
+        if self._pool is None:
+            saved = {k: os.environ.get(k) for k in _THREAD_VARS}
+            for k in _THREAD_VARS:
+                os.environ[k] = "1"
+            try:
+                self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=get_context("spawn"))
+            finally:
+                for k, v in saved.items():
+                    if v is None:
+                        os.environ.pop(k, None)
+                    else:
+                        os.environ[k] = v
+        return self._pool
 
     def run(self, tasks: Iterable[Task]) -> Iterator[tuple[str, object]]:
         tasks = list(tasks)
         if not tasks:
             return
-        saved = {k: os.environ.get(k) for k in _THREAD_VARS}
-        for k in _THREAD_VARS:
-            os.environ[k] = "1"
-        try:
-            pool = ProcessPoolExecutor(max_workers=min(self.workers, len(tasks)), mp_context=get_context("spawn"))
-        finally:
-            for k, v in saved.items():
-                if v is None:
-                    os.environ.pop(k, None)
-                else:
-                    os.environ[k] = v
+        pool = self._get_pool()
+        ok = False
         try:
             pending = {pool.submit(_call, t.fn, t.kwargs): t.id for t in tasks}
             while pending:
@@ -96,11 +104,15 @@ class LocalEngine:
                 for fut in done:
                     tid = pending.pop(fut)
                     yield tid, fut.result()
+            ok = True
         finally:
-            pool.shutdown(wait=True, cancel_futures=True)
+            if not ok:  # an error, an interrupt or an abandoned generator: stop the workers now
+                self.close()
 
     def close(self):
-        pass
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
 
 
 class DaskEngine:
