@@ -90,3 +90,29 @@ def test_store_survives_sigkill(tmp_path):
 def test_unknown_engine_is_input_error():
     with pytest.raises(InputError, match="unknown engine"):
         make_engine("mpi")
+
+
+def _stop_at_two(x):
+    """A task whose run records a stop signal without raising: what is left when the interpreter
+    drops a KeyboardInterrupt raised inside a finaliser (the Python docs' 'Exception ignored in')."""
+    from topology.errors import request_stop
+
+    if x == 2:
+        request_stop(signal.SIGINT)
+    return x * x
+
+
+def test_recorded_stop_ends_the_run_at_the_next_task(tmp_path):
+    from topology.errors import clear_stop
+    from topology.execution import SerialEngine
+    from topology.pipeline import run_tasks
+
+    store = TaskStore(tmp_path / "store", "h", resume=False)
+    tasks = [Task(f"t{i}", _stop_at_two, {"x": i}) for i in range(5)]
+    try:
+        with pytest.raises(KeyboardInterrupt):
+            run_tasks(tasks, store, SerialEngine(), show_progress=False)
+    finally:
+        clear_stop()
+    assert store.finished() == {"t0", "t1", "t2"}  # the task that saw the signal is kept, none after
+    assert run_tasks(tasks, store, SerialEngine(), show_progress=False)["computed"] == 2

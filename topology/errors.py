@@ -29,6 +29,25 @@ class InputError(ValueError):
 # notes: one line on stderr about something done to the user's input (not an error)
 # ---------------------------------------------------------------------------------------------
 _NOTES = {"quiet": 0, "seen": set(), "held": []}
+_STOP = {"signum": None}
+
+
+def request_stop(signum: int) -> None:
+    """Record that a stop signal (SIGINT, SIGTERM) arrived; see :func:`raise_if_stopped`."""
+    _STOP["signum"] = signum
+
+
+def clear_stop() -> None:
+    """Forget a recorded stop (a new command in the same process starts afresh)."""
+    _STOP["signum"] = None
+
+
+def raise_if_stopped() -> None:
+    """Raise KeyboardInterrupt if a stop signal arrived. The signal handler raises too, but a
+    KeyboardInterrupt raised while the interpreter runs a finaliser (``__del__``, a weakref
+    callback) is printed and dropped; long loops call this at each step so the stop is certain."""
+    if _STOP["signum"] is not None:
+        raise KeyboardInterrupt
 
 
 def note(message: str) -> None:

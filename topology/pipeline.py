@@ -42,7 +42,7 @@ from . import __version__
 from . import significance as sig
 from .config import Config, config_from_dict, validate
 from .cosmology import Cosmology
-from .errors import InputError
+from .errors import InputError, raise_if_stopped
 from .execution import Task, make_engine, task_seed
 from .store import MemoryStore, TaskStore, config_hash
 
@@ -512,6 +512,7 @@ def run_tasks(tasks: list[Task], store, engine, show_progress: bool | None = Non
             store.put(tid, result)
             computed += 1
             bar.update(1)
+            raise_if_stopped()
     finally:
         bar.close()
     return {"computed": computed, "reused": len(tasks) - len(todo), "elapsed_s": time.perf_counter() - t0}

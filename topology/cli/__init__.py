@@ -10,7 +10,7 @@ import argparse
 import sys
 
 from .. import __version__
-from ..errors import InputError
+from ..errors import InputError, clear_stop, raise_if_stopped
 from . import bound, keys, predict
 
 COMMANDS = [predict, bound, keys]
@@ -58,14 +58,20 @@ def _commands():
 
 def _terminate_as_interrupt() -> None:
     """SIGTERM (a batch system's stop) unwinds like Ctrl-C: partial outputs are removed and the
-    run store stays valid for --resume."""
+    run store stays valid for --resume. Both signals are also recorded, so that a stop whose
+    KeyboardInterrupt the interpreter dropped (raised inside a finaliser) still ends the run at
+    the next task (errors.raise_if_stopped)."""
     import signal
 
+    from ..errors import request_stop
+
     def handler(signum, frame):
+        request_stop(signum)
         raise KeyboardInterrupt
 
     try:
-        signal.signal(signal.SIGTERM, handler)
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            signal.signal(sig, handler)
     except ValueError:  # not the main thread (e.g. called from a notebook worker thread)
         pass
 
@@ -99,6 +105,7 @@ def _one_line_warnings(command: str) -> None:
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    clear_stop()
     _terminate_as_interrupt()
     _one_line_warnings(getattr(args, "command", None) or "")
     if not getattr(args, "_run", None):
@@ -106,6 +113,7 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     try:
         code = int(args._run(args) or 0)
+        raise_if_stopped()
         for line in _WARNINGS:
             print(line, file=sys.stderr)
         return code

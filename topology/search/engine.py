@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputError
+from ..errors import InputError, raise_if_stopped
 from . import modes as _modes
 from .checkpoint import FileCheckpoint, MemoryCheckpoint, fingerprint
 from .progress import progress
@@ -155,6 +155,7 @@ def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenar
             results[key] = res
             store.save(key, res)
             bar.update(1)
+            raise_if_stopped()
     finally:
         bar.close()
     summary = mode.summarise(ctx, results)
