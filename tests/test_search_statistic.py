@@ -134,3 +134,19 @@ def test_best_twist_switches_to_masked_variant():
     circ = CircleSet(np.zeros((2, 3)), 0.5, np.zeros((2, N)), kept, A)
     s, _ = st.best_twist(circ, circ, [0, 1], [0, 1], min_overlap=0.1)
     assert s[0, 0] == pytest.approx(1.0) and s[1, 0] == pytest.approx(1.0)  # a circle with itself
+
+
+@pytest.mark.parametrize("d_full", [30, 60, 200])
+def test_rank_score_is_the_full_circle_s_of_equal_chance_probability(d_full):
+    # check: (1 + S) / 2 ~ Beta(d/2, d/2) for independent circles of d equal-variance modes
+    # (common practice); the masked score of S over a fraction f (d = f d_full modes) should be
+    # the full-circle S with the same exact tail probability (scipy.special.betainc)
+    from scipy.optimize import brentq
+    from scipy.special import betainc
+
+    for f, s in ((0.3, 0.95), (0.4, 0.974), (0.64, 0.9), (0.5, 0.5), (0.3, 0.99), (0.8, -0.6)):
+        d = f * d_full
+        p = betainc(d / 2, d / 2, (1 - abs(s)) / 2)
+        want = np.sign(s) * brentq(lambda x: betainc(d_full / 2, d_full / 2, (1 - x) / 2) - p, 0.0, 1 - 1e-12)
+        assert st.rank_score(np.array([s]), np.array([f]))[0] == pytest.approx(want, abs=0.01)
+    assert st.rank_score(np.array([0.7, -np.inf]), np.array([1.0, 0.5])).tolist() == [pytest.approx(0.7), -np.inf]

@@ -5,7 +5,7 @@ positions for ``targeted``), runs one task at a time (so the engine can checkpoi
 them) and summarises the task results. Task results are plain JSON-able dicts.
 
 Hierarchical scheme (antipodal and all-pairs). Centre grids are HEALPix grids of N_side c_0,
-2 c_0, 4 c_0, ... up to the first whose pixel size is below FWHM / 2 (or the working N_side).
+2 c_0, 4 c_0, ... up to the first whose pixel size is below FWHM / 4 (at most 4 N_side_work).
 Level l is searched on the map smoothed to FWHM_l = max(FWHM, kappa * step_l) (kappa =
 ``level_smoothing``, default 1.2): a centre that is off by up to half a grid step moves the
 circle by about as much, and smoothing to that scale keeps the true pair's S high enough to
@@ -14,14 +14,39 @@ BLAS kernel; antipodal: c with -c); the best ``n_keep`` pairs per radius and ori
 the next level, where every combination of the finer-grid centres within one coarse step of
 each centre is evaluated with the exact S (sub-grid twist), and so on.
 
-What the refinement can miss (tests/test_search_modes.py shows both): (1) a pair whose coarse
-S is not among the ``n_keep`` best at its radius (weak or strongly masked circles on a noisy
-map, or many strong decoys); (2) pairs whose centres are closer than ``min_separation_deg``
-(excluded: neighbouring circles overlap and correlate trivially); (3) on a masked map the coarse
-kernel uses the cut circles as sampled (masked arcs hold the smoothed zero-filled sky), whose S
-is lowered by roughly the fraction that is jointly kept, and the refinement ranks the exact
-masked S by S sqrt(f) (f: jointly kept fraction; the null variance of S grows as 1/f), so a cut
-pair loses to full-circle decoys of S above S_true sqrt(f).
+Ranking. Pairs with a cut circle are compared with the exact masked S over the samples both
+circles keep (a fraction f) and ranked by the full-circle S of the same chance probability,
+S_eq = sqrt(1 - (1 - S^2)^f) (statistic.rank_score: one null spread for every f, and a match
+on a cut circle scores what its chance probability allows); for full circles S_eq = S. Each
+level keeps the best pairs per orientation after dropping the side lobes of better ones (both
+centres within 2 FWHM, at least a coarse step: S falls slowly with centre offsets, and
+unsuppressed side lobes of a strong pair took the places of weaker true pairs). All-pairs on a
+masked map: the BLAS kernel (harmonic S of the cut circles as sampled, lowered by roughly the
+jointly kept fraction) only filters: its best POOL_SHARE of all pairs are evaluated with the
+exact masked S and ranked by S_eq before the ``n_keep`` best go on.
+
+What the refinement can miss (tests/test_search_modes.py and tests/test_search_skies.py show
+them):
+
+(1) A pair whose coarse score is not among the ``n_keep`` best distinct pairs at its radius.
+Two losses lower a true pair's S on the coarse level: the smoothing on the sphere mixes in sky
+off the circle, which does not match (E2 39.7 deg pair of the masked, noisy SW sky of
+tests/test_search_skies.py at its exact centres: S 0.90 at 2.2 deg FWHM, 0.82 at 4.4 deg), and
+the nearest grid centres are off by up to half a step (best of the 3x3 neighbouring grid pairs:
+S 0.74 on N_side 32 at 2.2 deg, 0.70 on N_side 16 at 4.4 deg). With 63% of its points jointly
+kept this scores S_eq 0.58, while the 64 best chance pairs of the N_side 16 grid score
+0.68-0.77 (a few modes at that smoothing; over 40-70% of a circle they reach S 0.8-0.9). It is
+not found with n_keep 1024 (38 s for two radii) nor with an N_side 32 coarse grid (106 s);
+injected into the coarse candidates it is found (S 0.911, against 0.85 for the best chance
+pair). On those skies E3 62.7 (33% jointly kept), E7 62.2 and 22.2 (41-43%) and E2 39.7 (64%)
+are missed in this way; E3 62.7 is found with n_keep 256 or level_smoothing 0.9.
+(2) Pairs whose centres are closer than ``min_separation_deg`` (excluded: neighbouring circles
+overlap and correlate trivially).
+(3) Pairs with fewer than ``min_overlap`` of the samples jointly kept at the matching phases:
+their masked S is not defined (e.g. two circles 56% unmasked each but 11% jointly); lowering
+min_overlap to 0.05 lets chance matches over short arcs (S ~ 0.99) win instead.
+The antipodal mode has no such coarse limit in these tests: every antipodal pair with more
+than half of each circle unmasked and at least min_overlap jointly kept is found.
 """
 
 from __future__ import annotations
@@ -228,19 +253,28 @@ class _Hierarchical(Mode):
             if sel.size == 0:
                 continue
             # distinct reported pairs: no two within 2 FWHM (or a coarse step) of each other
-            reach = max(2.0 * np.radians(s.fwhm_deg), levels[0].step)
+            reach = self.peak_reach(ctx)
             order = list(sel[distinct(ca[sel], cb[sel], self._rank[sel], s.n_report, reach)])
             cs = sel[self._cut[sel]]  # and the best cut pairs by S
             order += [i for i in cs[distinct(ca[cs], cb[cs], s_val[cs], s.n_report, reach)] if i not in order]
             name = st.ORIENTATION_NAME[o]
-            s_max[name] = float(s_val[order[0]])
+            # S_max: the ranking score of the best pair, the full-circle S of the same chance
+            # probability (its S for full circles): a short overlap of high S then does not set the
+            # radius's statistic above what its chance probability allows
+            s_max[name] = float(self._rank[order[0]])
             for i in order:
                 cands.append(_candidate(ca[i], cb[i], radius, twist[i], st.ORIENTATION_SIGN[o], s_val[i], final_level))
+                cands[-1]["overlap"] = float(self._overlap[i])
+                cands[-1]["S_eq"] = float(self._rank[i])
                 if i == order[0]:
                     best[name] = cands[-1]  # the pair that defines S_max (best by the ranking score)
         cands.sort(key=lambda c: -c["S"])
         return {"radius_deg": key, "candidates": cands, "s_max": s_max, "best": best, "work": work,
                 "skipped_circles": skipped, "levels": info}
+
+    def peak_reach(self, ctx) -> float:
+        """Width (rad) of one peak in centre space: 2 FWHM, at least a coarse grid step."""
+        return max(2.0 * np.radians(ctx.settings.fwhm_deg), self.levels(ctx)[0].step)
 
     # -- refinement ----------------------------------------------------------------------------
     def neighbours(self, nside: int, vec: np.ndarray, radius: float) -> np.ndarray:
@@ -303,19 +337,23 @@ class _Hierarchical(Mode):
         r = np.arange(ia.size)
         s_val = sv[r, po]
         twist = tw[r, po]
-        rank = s_val * np.sqrt(fr[r, po])  # S sqrt(f): cut and full circles on one scale
+        rank = st.rank_score(s_val, fr[r, po])  # S_eq: cut and full circles on one scale
         _add(work, ia.size, 8 * (m_cut + 1), m_cut)
-        # keep the n_keep best per orientation
+        # keep the n_keep best per orientation; a candidate whose centres both lie within the peak
+        # width of a better one's is a side lobe of that peak (S falls slowly with centre offsets on
+        # a smooth sky) and would otherwise take the place of a weaker, distinct pair
         keep = []
         cutp = fr[r, po] < 1.0
+        near = self.peak_reach(ctx)
         for o in (st.SAME, st.OPPOSITE):
             sel = np.flatnonzero(po == o)
-            keep.append(sel[distinct(centers[ia[sel]], centers[ib[sel]], rank[sel], n_keep, lv.step)])
-            sel = sel[cutp[sel]]  # quota for cut pairs, ranked by their own S
-            keep.append(sel[distinct(centers[ia[sel]], centers[ib[sel]], s_val[sel], max(1, n_keep // 2), lv.step)])
+            keep.append(sel[distinct(centers[ia[sel]], centers[ib[sel]], rank[sel], n_keep, near)])
+            sel = sel[cutp[sel]]  # quota for cut pairs
+            keep.append(sel[distinct(centers[ia[sel]], centers[ib[sel]], rank[sel], max(1, n_keep // 2), near)])
         keep = np.unique(np.concatenate(keep))
         self._cut = cutp[keep]
         self._rank = rank[keep]
+        self._overlap = fr[r, po][keep]
         return (centers[ia[keep]], centers[ib[keep]], po[keep], s_val[keep], twist[keep], m_cut,
                 int((~valid).sum()))
 
@@ -357,13 +395,13 @@ class AntipodalMode(_Hierarchical):
         anti = hp.vec2pix(nside, *(-circ.centers.T))
         first = np.flatnonzero(np.arange(n) < anti)
         first = first[valid[first] & valid[anti[first]]]
-        sv, _ = st.best_twist(circ, circ, first, anti[first], m_cut, s.min_overlap)
+        sv, _, fr = st.best_twist(circ, circ, first, anti[first], m_cut, s.min_overlap, with_overlap=True)
         _add(work, first.size, 8 * (m_cut + 1), m_cut)
         ia, orient = [], []
         reach = hp.nside2resol(nside)
         c = circ.centers[first]
         for o in (st.SAME, st.OPPOSITE):
-            order = distinct(c, -c, sv[:, o], s.n_keep, reach)
+            order = distinct(c, -c, st.rank_score(sv[:, o], fr[:, o]), s.n_keep, reach)
             ia.append(first[order])
             orient.append(np.full(order.size, o))
         ia = np.concatenate(ia)
@@ -376,26 +414,47 @@ class AllPairsMode(_Hierarchical):
     name = "all-pairs"
 
     def coarse(self, ctx, circ, valid, m_cut, work):
-        s = ctx.settings
+        """Unmasked: the ``n_pool * n_keep`` best pairs of the BLAS kernel, then the ``n_keep``
+        best distinct ones. With cut circles the kernel's S (harmonic, over circles as sampled) is
+        only a filter: its best POOL_SHARE of all pairs (at least ``n_pool * n_keep``; plus as
+        many pairs with a cut circle) are evaluated with the exact masked S and ranked by
+        S_eq = sqrt(1 - (1 - S^2)^f) (statistic.rank_score) before the ``n_keep`` best distinct ones go on."""
         import healpy as hp
 
+        s = ctx.settings
         a = st.weighted(circ.coeffs, m_cut)
         cut = ~circ.full
+        masked = bool(cut[valid].any())
+        n_valid = int(valid.sum())
+        pool = s.n_pool * s.n_keep
+        if masked:
+            pool = max(pool, int(POOL_SHARE * n_valid * (n_valid - 1) / 2))
         ia, ib, orient, sv = allpairs_top(a, circ.centers, valid, twist_count(m_cut, s.twist_oversample),
-                                          s.n_pool * s.n_keep, np.radians(s.min_separation_deg),
+                                          pool, np.radians(s.min_separation_deg),
                                           s.kernel_mem_mb * (1 << 20), work, m_cut,
-                                          cut=cut if cut.any() else None)
+                                          cut=cut if masked else None)
         reach = hp.nside2resol(hp.npix2nside(len(circ)))
         keep = []
-        pc = cut[ia] | cut[ib]
-        for o in (st.SAME, st.OPPOSITE):
-            sel = np.flatnonzero(orient == o)
-            keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], sv[sel], s.n_keep, reach)])
-            sel = sel[pc[sel]]  # quota for pairs with a cut circle
-            keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], sv[sel], s.n_keep // 2, reach)])
+        if masked:
+            combo = np.unique(np.stack([ia, ib, orient], axis=1), axis=0)
+            ia, ib, orient = combo[:, 0], combo[:, 1], combo[:, 2]
+            sx, _, fx = st.best_twist(circ, circ, ia, ib, m_cut, s.min_overlap, with_overlap=True, orient=orient)
+            r = np.arange(ia.size)
+            score = st.rank_score(sx[r, orient], fx[r, orient])
+            _add(work, ia.size, 8 * (m_cut + 1), m_cut)
+            for o in (st.SAME, st.OPPOSITE):
+                sel = np.flatnonzero(orient == o)
+                keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], score[sel], s.n_keep, reach)])
+        else:
+            for o in (st.SAME, st.OPPOSITE):
+                sel = np.flatnonzero(orient == o)
+                keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], sv[sel], s.n_keep, reach)])
         keep = np.unique(np.concatenate(keep))
         combo = np.unique(np.stack([ia[keep], ib[keep], orient[keep]], axis=1), axis=0)
         return combo[:, 0], combo[:, 1], combo[:, 2]
+
+
+POOL_SHARE = 1.0 / 256  # all-pairs on a masked map: share of the pairs re-evaluated exactly at level 0
 
 
 def twist_count(m_cut: int, oversample: float) -> int:

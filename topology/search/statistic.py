@@ -21,8 +21,11 @@ f(phi) = sum_{m=1}^{M} 2 sqrt(m) Re(T_m e^{i m phi}) (Parseval):
 
 Masked variant: the same sums restricted to the samples that both circles keep, w_A,k
 w_B,k+j, for each shift j of the sample grid; the three sums are circular correlations,
-computed with FFTs. Sub-grid twists: Newton steps on the trigonometric polynomial (unmasked),
-a parabola through three shifts (masked).
+computed with FFTs of each circle's masked products (once per circle, then one product and
+inverse FFT per pair). Sub-grid twists: Newton steps on the trigonometric polynomial
+(unmasked), a parabola through three shifts (masked). Pairs are ranked by the full-circle S
+of the same chance probability, sqrt(1 - (1 - S^2)^f) for a jointly kept fraction f
+(:func:`rank_score`), which puts cut and full circles on one null scale.
 
 All-pairs kernel: for a block of circles the weighted coefficients are rotated by every twist
 tau_j = 2 pi j / N_tau, x_jm = a_m e^{-i m tau_j}, written as real rows [Re x, Im x], and
@@ -138,10 +141,63 @@ def best_twist_harmonic(ta: np.ndarray, tb: np.ndarray, m_cut: int | None = None
     return s_out, t_out
 
 
-def _corr(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Circular correlations c_j = sum_k x_k y_{k+j} of real rows (k, N) with FFTs."""
-    n = x.shape[1]
-    return np.fft.irfft(np.conj(np.fft.rfft(x, axis=1)) * np.fft.rfft(y, axis=1), n=n, axis=1)
+def rank_score(s: np.ndarray, f: np.ndarray) -> np.ndarray:
+    """Ranking score of a pair whose S is taken over a jointly kept fraction f of the samples: the
+    full-circle S with the same chance probability, S_eq = sign(S) sqrt(1 - (1 - S^2)^f)
+    (-inf stays -inf; S_eq = S for full circles).
+
+    Why: for independent circles whose weighted modes are d independent Gaussian numbers of one
+    variance, u = (x + y) / sqrt 2 and v = (x - y) / sqrt 2 are independent and
+    S = (|u|^2 - |v|^2) / (|u|^2 + |v|^2), so (1 + S) / 2 ~ Beta(d/2, d/2) (common practice), whose
+    tail is P(S' > S) ~ (1 - S^2)^(d/2) up to factors polynomial in d. The modes over an overlap
+    number d ~ f d_full, so equal tails give 1 - S_eq^2 = (1 - S^2)^f: within 0.01 of the exact
+    Beta equal-tail value for d_full = 30..200 (tests/test_search_statistic.py). Near S = 0,
+    S_eq ~ S sqrt(f): one null spread for cut and full circles (tests/test_search_modes.py); a
+    short overlap with S near 1 scores what its chance probability allows (S = 0.95 over 30% of the
+    circle ranks as a full circle of S = 0.71), neither capped at sqrt(f) nor over-credited as by a
+    Gaussian approximation of artanh(S), whose tails are too light for few modes."""
+    s = np.asarray(s, dtype=float)
+    f = np.clip(np.asarray(f, dtype=float), 0.0, 1.0)
+    fin = np.isfinite(s)
+    x = np.clip(np.where(fin, s, 0.0), -1.0, 1.0)
+    eq = np.sign(x) * np.sqrt(np.maximum(1.0 - (1.0 - x * x) ** f, 0.0))
+    return np.where(fin, eq, -np.inf)
+
+
+def masked_spectra(f: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Real FFTs (n, N/2 + 1) of g = w f, h = w f^2 and w for filtered circles f and kept flags w
+    (n, N): the sums of the masked S are circular correlations of these, so each circle's spectra
+    are computed once however many pairs use it."""
+    w = np.asarray(w, dtype=float)
+    g = w * f
+    return np.fft.rfft(g, axis=1), np.fft.rfft(g * f, axis=1), np.fft.rfft(w, axis=1)
+
+
+def masked_sums(spec_a, spec_b, n: int, opposite=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """For row-aligned spectra (:func:`masked_spectra`) and every shift j of the N-sample grid:
+    num_j = sum_k g_A,k g_B,k+j, den_j = sum_k (h_A,k w_B,k+j + w_A,k h_B,k+j), over_j = sum_k w_A,k w_B,k+j
+    (k, N) each, c_j = sum_k x_k y_k+j = irfft(conj(X) Y)_j. ``opposite`` (k,) bool: B is the
+    reversed circle (sample k at phi = -phi_k), whose spectra are the conjugates (real samples)."""
+    ga, ha, wa = (np.conj(x) for x in spec_a)
+    gb, hb, wb = spec_b
+    if opposite is not None:
+        op = np.asarray(opposite, dtype=bool)
+        if op.all():
+            gb, hb, wb = np.conj(gb), np.conj(hb), np.conj(wb)
+        elif op.any():
+            op = op[:, None]
+            gb, hb, wb = (np.where(op, np.conj(x), x) for x in (gb, hb, wb))
+    num = np.fft.irfft(ga * gb, n=n, axis=1)
+    den = np.fft.irfft(ha * wb + wa * hb, n=n, axis=1)
+    over = np.fft.irfft(wa * wb, n=n, axis=1)
+    return num, den, over
+
+
+def _masked_grid(num, den, over, n, min_overlap):
+    ok = (over >= min_overlap * n - 1e-6) & (den > 1e-300)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        grid = np.where(ok, 2.0 * num / np.where(ok, den, 1.0), -np.inf)
+    return grid, np.clip(over / n, 0.0, 1.0)
 
 
 def masked_s_grid(fa: np.ndarray, wa: np.ndarray, fb: np.ndarray, wb: np.ndarray,
@@ -149,18 +205,10 @@ def masked_s_grid(fa: np.ndarray, wa: np.ndarray, fb: np.ndarray, wb: np.ndarray
     """Masked real-space S_j = 2 sum_k W f_A,k f_B,k+j / sum_k W (f_A,k^2 + f_B,k+j^2), W = w_A,k w_B,k+j,
     for every shift j (tau_j = 2 pi j / N) of rows (k, N); -inf where the jointly kept samples are
     fewer than ``min_overlap`` N. ``with_overlap`` also returns the jointly kept fraction (k, N)."""
-    wa = wa.astype(float)
-    wb = wb.astype(float)
-    ga, gb = wa * fa, wb * fb
-    num = _corr(ga, gb)
-    den = _corr(ga * fa, wb) + _corr(wa, gb * fb)
-    over = _corr(wa, wb)
     n = fa.shape[1]
-    ok = (over >= min_overlap * n - 1e-6) & (den > 1e-300)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        grid = np.where(ok, 2.0 * num / np.where(ok, den, 1.0), -np.inf)
+    grid, frac = _masked_grid(*masked_sums(masked_spectra(fa, wa), masked_spectra(fb, wb), n), n, min_overlap)
     if with_overlap:
-        return grid, np.clip(over / n, 0.0, 1.0)
+        return grid, frac
     return grid
 
 
@@ -182,33 +230,55 @@ def _parabola_peak(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return j + d, val
 
 
-def best_twist_masked(fa, wa, fb, wb, min_overlap: float = 0.25):
-    """Masked S, both orientations: S (k, 2), contract twist (k, 2), jointly kept fraction f (k, 2).
+def _masked_best(spec_a, spec_b, n: int, opposite: np.ndarray, min_overlap: float):
+    """S, contract twist and jointly kept fraction (k,) at the shift of highest rank score, each row
+    in its own orientation (``opposite`` (k,) bool)."""
+    grid, frac = _masked_grid(*masked_sums(spec_a, spec_b, n, opposite), n, min_overlap)
+    k = grid.shape[0]
+    r = np.arange(k)
+    j = np.argmax(rank_score(grid, frac), axis=1)
+    sm, s0, sp = grid[r, (j - 1) % n], grid[r, j], grid[r, (j + 1) % n]
+    d, val = _parabola_peak(np.stack([sm, s0, sp], axis=1))
+    tau = 2.0 * np.pi * (j + (d - 1)) / n
+    s = np.where(np.isfinite(val), val, -np.inf)
+    return s, np.where(opposite, -tau, tau) % (2.0 * np.pi), frac[r, j]
 
-    The shift chosen maximises S sqrt(f), not S: under the null the variance of S grows as 1/f
-    (fewer modes), so S sqrt(f) compares cut and full circles on one scale, and a short overlap
-    cannot win by chance alone. The S reported is the S at that shift (parabola-refined).
+
+def best_twist_masked(fa, wa, fb, wb, min_overlap: float = 0.25, orient: np.ndarray | None = None):
+    """Masked S of row-aligned filtered circles: S (k, 2), contract twist (k, 2), jointly kept
+    fraction f (k, 2), both orientations (or only ``orient[i]`` per row; the other entries are -inf,
+    0, 0).
+
+    The shift chosen maximises the rank score sqrt(1 - (1 - S^2)^f) (:func:`rank_score`), not S:
+    under the null the spread of S grows as f falls (fewer modes), so a short overlap cannot win by
+    chance alone. The S reported is the S at that shift (parabola-refined over the neighbouring shifts).
     """
     n = fa.shape[1]
-    rev = (-np.arange(n)) % n  # reversed circle: sample k at phi = -phi_k
-    k = fa.shape[0]
-    s_out = np.zeros((k, 2))
+    spec_a, spec_b = masked_spectra(fa, wa), masked_spectra(fb, wb)
+    return _masked_rows(spec_a, spec_b, n, min_overlap, orient)
+
+
+def _masked_rows(spec_a, spec_b, n, min_overlap, orient):
+    k = spec_a[0].shape[0]
+    s_out = np.full((k, 2), -np.inf)
     t_out = np.zeros((k, 2))
     f_out = np.zeros((k, 2))
-    r = np.arange(k)
-    for o, (f, w) in ((SAME, (fb, wb)), (OPPOSITE, (fb[:, rev], wb[:, rev]))):
-        grid, frac = masked_s_grid(fa, wa, f, w, min_overlap, with_overlap=True)
-        fin = np.isfinite(grid)
-        score = np.where(fin, np.where(fin, grid, 0.0) * np.sqrt(frac), -np.inf)
-        j = np.argmax(score, axis=1)
-        sm, s0, sp = grid[r, (j - 1) % n], grid[r, j], grid[r, (j + 1) % n]
-        d, val = _parabola_peak(np.stack([sm, s0, sp], axis=1))
-        shift = j + (d - 1)
-        tau = 2.0 * np.pi * shift / n
-        s_out[:, o] = np.where(np.isfinite(val), val, -np.inf)
-        f_out[:, o] = frac[r, j]
-        t_out[:, o] = (tau if o == SAME else -tau) % (2.0 * np.pi)
+    if orient is None:
+        for o in (SAME, OPPOSITE):
+            s_out[:, o], t_out[:, o], f_out[:, o] = _masked_best(spec_a, spec_b, n, np.full(k, o == OPPOSITE),
+                                                                 min_overlap)
+    else:
+        o = np.asarray(orient, dtype=int)
+        for oo in (SAME, OPPOSITE):  # one orientation per call: no per-row conjugation
+            rows = np.flatnonzero(o == oo)
+            if rows.size:
+                s_out[rows, oo], t_out[rows, oo], f_out[rows, oo] = _masked_best(
+                    _take(spec_a, rows), _take(spec_b, rows), n, np.full(rows.size, oo == OPPOSITE), min_overlap)
     return s_out, t_out, f_out
+
+
+def _take(spec, idx):
+    return tuple(x[idx] for x in spec)
 
 
 def best_twist(circ_a, circ_b, ia: np.ndarray, ib: np.ndarray, m_cut: int | None = None,
@@ -216,27 +286,41 @@ def best_twist(circ_a, circ_b, ia: np.ndarray, ib: np.ndarray, m_cut: int | None
                orient: np.ndarray | None = None):
     """S and contract twist (k, 2) for pairs (circ_a[ia[i]], circ_b[ib[i]]): the exact harmonic
     maximum when both circles are fully kept, the masked real-space variant otherwise
-    (``with_overlap`` adds the jointly kept fraction, 1 for full circles)."""
+    (``with_overlap`` adds the jointly kept fraction, 1 for full circles). With ``orient`` only
+    that orientation per pair is evaluated (the other entries are -inf)."""
     ia = np.asarray(ia, dtype=int)
     ib = np.asarray(ib, dtype=int)
-    s = np.zeros((ia.size, 2))
+    oo_all = None if orient is None else np.asarray(orient, dtype=int)
+    s = np.full((ia.size, 2), -np.inf) if orient is not None else np.zeros((ia.size, 2))
     t = np.zeros((ia.size, 2))
     f = np.ones((ia.size, 2))
     full = circ_a.full[ia] & circ_b.full[ib]
+    cut = np.flatnonzero(~full)
+    if cut.size:
+        # spectra of each cut pair's circles, once per circle
+        n = circ_a.n_phi
+        same_set = circ_a is circ_b
+        ua, inv = np.unique(np.concatenate([ia[cut], ib[cut]]) if same_set else ia[cut], return_inverse=True)
+        spec_a = masked_spectra(filtered_circles(circ_a.coeffs[ua], n, m_cut), circ_a.kept[ua])
+        if same_set:
+            inv_a, inv_b, spec_b = inv[: cut.size], inv[cut.size :], spec_a
+        else:
+            ub, inv_b = np.unique(ib[cut], return_inverse=True)
+            inv_a = inv
+            spec_b = masked_spectra(filtered_circles(circ_b.coeffs[ub], n, m_cut), circ_b.kept[ub])
     for i0 in range(0, ia.size, block):
         sl = slice(i0, i0 + block)
         xa, xb, fu = ia[sl], ib[sl], full[sl]
         idx = np.arange(i0, i0 + xa.size)
         if fu.any():
-            oo = None if orient is None else np.asarray(orient)[sl][fu]
+            oo = None if oo_all is None else oo_all[sl][fu]
             s[idx[fu]], t[idx[fu]] = best_twist_harmonic(circ_a.coeffs[xa[fu]], circ_b.coeffs[xb[fu]], m_cut,
                                                          orient=oo)
-        if (~fu).any():
-            n = circ_a.n_phi
-            fa = filtered_circles(circ_a.coeffs[xa[~fu]], n, m_cut)
-            fb = filtered_circles(circ_b.coeffs[xb[~fu]], n, m_cut)
-            s[idx[~fu]], t[idx[~fu]], f[idx[~fu]] = best_twist_masked(fa, circ_a.kept[xa[~fu]], fb,
-                                                                      circ_b.kept[xb[~fu]], min_overlap)
+    for c0 in range(0, cut.size, block):
+        rows = cut[c0 : c0 + block]
+        sa, sb = _take(spec_a, inv_a[c0 : c0 + block]), _take(spec_b, inv_b[c0 : c0 + block])
+        oo = None if oo_all is None else oo_all[rows]
+        s[rows], t[rows], f[rows] = _masked_rows(sa, sb, circ_a.n_phi, min_overlap, oo)
     if with_overlap:
         return s, t, f
     return s, t
