@@ -253,6 +253,7 @@ RUN_CASES = [
     (sub(RUN, "galactic_b_deg", "galactic_b"), ["demo.toml: [mask] galactic_b", "'galactic_b_deg'"]),
     (sub(RUN, 'engine = "serial"', 'engin = "serial"'), ["demo.toml: [execution] engin", "'engine'"]),
     (sub(RUN, "p_max = 6", "pmax = 6"), ["demo.toml: [bounds] pmax", "'p_max'"]),
+    (sub(RUN, "p_max = 6", "p_max = 1"), ["demo.toml: [bounds] p_max", "at least 2"]),
     (sub(RUN, 'name = "torus"', 'name = "torus"\npth = "m.fits"'), ["demo.toml: [maps] pth", "did you mean 'path'"]),
     # inline space / observer / sky tables of a [[maps]] entry
     (sub(RUN, "lengths = [1.6", "lenghts = [1.6"), ["demo.toml: [[maps]] #1: [space] lenghts", "'lengths'"]),

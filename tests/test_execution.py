@@ -116,3 +116,15 @@ def test_recorded_stop_ends_the_run_at_the_next_task(tmp_path):
         clear_stop()
     assert store.finished() == {"t0", "t1", "t2"}  # the task that saw the signal is kept, none after
     assert run_tasks(tasks, store, SerialEngine(), show_progress=False)["computed"] == 2
+
+
+def test_whole_temporary_file_is_not_a_finished_task(tmp_path):
+    # a kill between writing a task's temporary file and renaming it leaves a whole pickle under
+    # a dot name; resuming must not count that task as finished (its final file is missing)
+    import pickle
+
+    st = TaskStore(tmp_path / "store", "h", resume=False)
+    st.put("t0", {"i": 0})
+    (tmp_path / "store" / "tasks" / ".t1.abc123.pkl").write_bytes(pickle.dumps({"id": "t1", "result": {"i": 1}}))
+    again = TaskStore(tmp_path / "store", "h", resume=True)
+    assert again.finished() == {"t0"} and again.get("t0") == {"i": 0}

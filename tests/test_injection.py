@@ -5,7 +5,6 @@ import math
 import numpy as np
 import pytest
 
-from topology import geometry as geo
 from topology import injection
 from topology.circles import predict_circles
 from topology.cosmology import Cosmology

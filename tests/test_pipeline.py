@@ -3,7 +3,6 @@ the false-alarm rate on fresh null skies, and bad input."""
 
 import json
 import os
-from pathlib import Path
 
 import numpy as np
 import pytest

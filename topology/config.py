@@ -13,7 +13,7 @@ from __future__ import annotations
 import difflib
 import math
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 try:  # Python >= 3.11
@@ -36,6 +36,10 @@ class Key:
 
 def _positive(v):
     return None if v > 0 else "must be positive"
+
+
+def _at_least_two(v):
+    return None if v >= 2 else "must be at least 2"
 
 
 def _non_negative(v):
@@ -179,8 +183,8 @@ SCHEMA.update({
     },
     "bounds": {
         "families": Key((list,), [], "family specs in the [space] format (plus optional position, orientation) to test"),
-        "p_max": Key((int,), 20, "lens spaces L(p, q) in the bound table up to this p", _positive),
-        "m_max": Key((int,), 10, "prism spaces D*_m in the bound table up to this m", _positive),
+        "p_max": Key((int,), 20, "lens spaces L(p, q) in the bound table up to this p", _at_least_two),
+        "m_max": Key((int,), 10, "prism spaces D*_m in the bound table up to this m", _at_least_two),
     },
     "output": {
         "dir": Key((str,), "report", "report folder (relative to the current folder)"),

@@ -49,9 +49,9 @@ def injection_spec(value) -> dict:
 
 
 def describe(spec: dict) -> str:
-    """A short name of the injected family for reports: 'cubic torus (E1)', 'E2(lengths=...)'."""
-    if spec.get("family") == "E1" and np.allclose(spec.get("lengths", [0, 1, 2]), spec.get("lengths", [1])[0]) \
-            and not spec.get("angles"):
+    """A short name of the injected family for reports: 'cubic-torus (E1)', 'E2(lengths=...)'."""
+    lengths = spec.get("lengths")
+    if spec.get("family") == "E1" and lengths and np.allclose(lengths, lengths[0]) and not spec.get("angles"):
         return "cubic-torus (E1)"
     args = ", ".join(f"{k}={v}" for k, v in spec.items() if k != "family")
     return f"{spec['family']}({args})" if args else spec["family"]
@@ -107,14 +107,11 @@ def check(spec: dict, cosmo, radii_deg, lmax: int) -> None:
     obs = geo.Observer.make(space.geometry, pos)
     d = _d_min(space, obs)
     if space.geometry == "spherical":
-        from .skies.spherical import KMAX_LIMIT
+        from .skies.spherical import check_default_kmax
 
         chi = math.atan(math.tan(d / 2.0) / math.cos(math.radians(float(min(radii_deg)))))
-        kmax = math.ceil(2 * lmax / chi)
-        if kmax > KMAX_LIMIT:
-            raise InputError(f"a {space.family} sky with circles of {min(radii_deg):g} deg (chi_rec/R_c = {chi:.3f}) "
-                             f"at lmax {lmax} needs S^3 modes up to k = {kmax} > {KMAX_LIMIT}; lower [instrument] "
-                             f"lmax to {int(KMAX_LIMIT * chi / 2)} or raise the smallest injection radius", WHERE)
+        check_default_kmax(lmax, chi, f"a {space.family} sky with circles of {min(radii_deg):g} deg (chi_rec/R_c = "
+                           f"{chi:.3f})", WHERE, " or raise the smallest injection radius")
 
 
 def scaled(spec: dict, alpha_deg: float, rng: np.random.Generator, cosmo):
@@ -128,9 +125,8 @@ def scaled(spec: dict, alpha_deg: float, rng: np.random.Generator, cosmo):
         d1 = _d_min(unit, geo.Observer.make("flat", pos))
         lam = 2.0 * math.cos(alpha) / d1
         sc = dict(spec)
-        for key in ("lengths",):
-            if key in sc:
-                sc[key] = [lam * float(v) for v in sc[key]]
+        if "lengths" in sc:
+            sc["lengths"] = [lam * float(v) for v in sc["lengths"]]
         space = build_space(sc)
         return space, geo.Observer.make("flat", lam * np.asarray(pos), rot), cosmo
     from .cosmology import omega_k_for_ratio

@@ -16,7 +16,7 @@ import numpy as np
 from astropy import units as u
 from astropy.table import Table
 
-from .plots import _mpl, draw_circles
+from .plots import _mpl
 
 
 # ---------------------------------------------------------------------------------------------

@@ -139,6 +139,8 @@ class TaskStore:
     def _scan(self) -> set[str]:
         found = set()
         for p in self.tasks.glob("*.pkl"):
+            if p.name.startswith("."):  # a temporary file of atomic_path (pathlib's glob matches
+                continue                # dot files): whole or not, its task did not finish
             try:
                 with open(p, "rb") as fh:
                     tid = pickle.load(fh)["id"]

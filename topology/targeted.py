@@ -21,7 +21,6 @@ of the space (and best observer position), see :class:`topology.search.modes.Tar
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 
@@ -138,7 +137,7 @@ def task_injection(plan_d: dict, target: int, index: int, task_id: str) -> dict:
 
 def check_injectable(targets: list[dict], cosmo_section, base_dir, lmax: int) -> None:
     """Plan-time: every target can be synthesised (flat compact or spherical within kmax)."""
-    from .skies.spherical import KMAX_LIMIT
+    from .skies.spherical import check_default_kmax
 
     for i, t in enumerate(targets):
         sc = _scenario_for(t, cosmo_section, base_dir)
@@ -148,10 +147,8 @@ def check_injectable(targets: list[dict], cosmo_section, base_dir, lmax: int) ->
                              "measured; test hyperbolic spaces with a radius scan instead", where)
         if sc.space.geometry == "flat" and not getattr(sc.space, "compact", True):
             raise InputError(f"{sc.space.family} is not compact: target a compact family", where)
-        if sc.space.geometry == "spherical" and math.ceil(2 * lmax / sc.chi) > KMAX_LIMIT:
-            raise InputError(f"a {sc.space.family} sky at chi_rec/R_c = {sc.chi:.3f} and lmax {lmax} needs S^3 modes "
-                             f"up to k = {math.ceil(2 * lmax / sc.chi)} > {KMAX_LIMIT}; lower [instrument] lmax to "
-                             f"{int(KMAX_LIMIT * sc.chi / 2)}", where)
+        if sc.space.geometry == "spherical":
+            check_default_kmax(lmax, sc.chi, f"a {sc.space.family} sky at chi_rec/R_c = {sc.chi:.3f}", where)
 
 
 def build_tasks(plan, pd: dict) -> list:

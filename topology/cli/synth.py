@@ -49,7 +49,6 @@ def _targets(args) -> list:
     from pathlib import Path
 
     from ..errors import InputError
-    from ..skies.io import mask_path
     from ._common import check_writable
 
     out = []

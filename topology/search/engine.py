@@ -8,7 +8,7 @@ Both return the JSON-able result of ``topology search --json``.
 from __future__ import annotations
 
 import time
-from dataclasses import asdict, dataclass, field, fields
+from dataclasses import asdict, dataclass, fields
 from pathlib import Path
 
 import numpy as np

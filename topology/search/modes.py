@@ -52,7 +52,7 @@ than half of each circle unmasked and at least min_overlap jointly kept is found
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -219,7 +219,6 @@ class _Hierarchical(Mode):
         levels = self.levels(ctx)
         work = _work()
         info = []
-        mask = ctx.mask
         # level 0 --------------------------------------------------------------------------
         lv = levels[0]
         centers = centre_grid(lv.nside)
@@ -290,7 +289,6 @@ class _Hierarchical(Mode):
         import healpy as hp
 
         s = ctx.settings
-        mask = ctx.mask
         reach = prev.step if prev is not None else 0.0
         pix_a, pix_b, ori = [], [], []
         for a, b, o in zip(ca, cb, orient):
@@ -477,7 +475,6 @@ def allpairs_top(a: np.ndarray, centers: np.ndarray, valid: np.ndarray, n_tau: i
     n = a.shape[0]
     norms = np.sum(np.abs(a) ** 2, axis=1).astype(np.float32)
     cols_all = st.column_matrix(a)  # (2M, 2n)
-    rows_all = None
     cos_min = math.cos(min_sep)
     lists = 4 if cut is not None else 2  # (same, opposite) all pairs, then (same, opposite) cut pairs
     best_s = [np.full(0, -np.inf, dtype=np.float32) for _ in range(lists)]

@@ -70,6 +70,16 @@ from .spectra import A_S, K_PIVOT, N_S, primordial_power
 #: highest harmonic degree accepted: the Wigner recursion keeps unitarity to 2e-10 at k = 150
 #: (1e-13 at k = 60, 4e-8 at k = 200, measured); cost ~ kmax^4, about 1 s at kmax = 60
 KMAX_LIMIT = 150
+
+
+def check_default_kmax(lmax: int, chi: float, what: str, where: str, advice: str = "") -> None:
+    """Plan-time: a sky of ``what`` to ``lmax`` at chi = chi_rec / R_c needs k up to
+    default_kmax(lmax, chi) = ceil(2 lmax / chi); one-line InputError naming the largest lmax
+    that fits when that exceeds KMAX_LIMIT (``advice`` adds another way out)."""
+    k = default_kmax(lmax, chi)
+    if k > KMAX_LIMIT:
+        raise InputError(f"{what} at lmax {lmax} needs S^3 modes up to k = {k} > {KMAX_LIMIT}; lower [instrument] "
+                         f"lmax to {int(KMAX_LIMIT * chi / 2)}{advice}", where)
 #: lowest physical degree: beta = k + 1 >= 3 (beta = 1, 2 are the constant and gauge modes)
 KMIN = 2
 #: Wigner entries per evaluation block (bounds memory: ~16 bytes x 6 x this)
