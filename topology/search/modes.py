@@ -433,6 +433,7 @@ class AllPairsMode(_Hierarchical):
                                           cut=cut if masked else None)
         reach = hp.nside2resol(hp.npix2nside(len(circ)))
         keep = []
+        score = sv
         if masked:
             combo = np.unique(np.stack([ia, ib, orient], axis=1), axis=0)
             ia, ib, orient = combo[:, 0], combo[:, 1], combo[:, 2]
@@ -440,13 +441,9 @@ class AllPairsMode(_Hierarchical):
             r = np.arange(ia.size)
             score = st.rank_score(sx[r, orient], fx[r, orient])
             _add(work, ia.size, 8 * (m_cut + 1), m_cut)
-            for o in (st.SAME, st.OPPOSITE):
-                sel = np.flatnonzero(orient == o)
-                keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], score[sel], s.n_keep, reach)])
-        else:
-            for o in (st.SAME, st.OPPOSITE):
-                sel = np.flatnonzero(orient == o)
-                keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], sv[sel], s.n_keep, reach)])
+        for o in (st.SAME, st.OPPOSITE):
+            sel = np.flatnonzero(orient == o)
+            keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], score[sel], s.n_keep, reach)])
         keep = np.unique(np.concatenate(keep))
         combo = np.unique(np.stack([ia[keep], ib[keep], orient[keep]], axis=1), axis=0)
         return combo[:, 0], combo[:, 1], combo[:, 2]

@@ -81,24 +81,16 @@ class CircleSet:
 
 
 def interpolate(map_ring: np.ndarray, mask: np.ndarray | None, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Bilinear values at unit vectors (k, 3) and whether all pixels used are kept.
-
-    One gather serves both: the table holds the map value (real part) and 1 for a masked pixel
-    (imaginary part), so the weighted sum of the imaginary parts is 0 exactly when every pixel
-    with a positive weight is kept."""
+    """Bilinear values at unit vectors (k, 3) and whether all pixels used are kept."""
     import healpy as hp
 
     nside = hp.npix2nside(map_ring.size)
     x, y, z = points[:, 0], points[:, 1], points[:, 2]
-    theta = np.arctan2(np.hypot(x, y), z)
-    lon = np.arctan2(y, x)
-    pix, wts = hp.get_interp_weights(nside, theta, lon)
+    pix, wts = hp.get_interp_weights(nside, np.arctan2(np.hypot(x, y), z), np.arctan2(y, x))
+    vals = np.einsum("ij,ij->j", wts, map_ring[pix])
     if mask is None:
-        vals = np.einsum("ij,ij->j", wts, map_ring[pix])
         return vals, np.ones(vals.shape, dtype=bool)
-    table = map_ring + 1j * (~np.asarray(mask, dtype=bool))
-    acc = np.einsum("ij,ij->j", wts, table[pix])
-    return acc.real, acc.imag <= 0.0
+    return vals, np.all(mask[pix] | (wts <= 0), axis=0)
 
 
 def sample_circles(map_ring: np.ndarray, centers: np.ndarray, radius: float, n_phi: int, m_max: int,

@@ -308,14 +308,11 @@ def best_twist(circ_a, circ_b, ia: np.ndarray, ib: np.ndarray, m_cut: int | None
             ub, inv_b = np.unique(ib[cut], return_inverse=True)
             inv_a = inv
             spec_b = masked_spectra(filtered_circles(circ_b.coeffs[ub], n, m_cut), circ_b.kept[ub])
-    for i0 in range(0, ia.size, block):
-        sl = slice(i0, i0 + block)
-        xa, xb, fu = ia[sl], ib[sl], full[sl]
-        idx = np.arange(i0, i0 + xa.size)
-        if fu.any():
-            oo = None if oo_all is None else oo_all[sl][fu]
-            s[idx[fu]], t[idx[fu]] = best_twist_harmonic(circ_a.coeffs[xa[fu]], circ_b.coeffs[xb[fu]], m_cut,
-                                                         orient=oo)
+    whole = np.flatnonzero(full)
+    for i0 in range(0, whole.size, block):
+        rows = whole[i0 : i0 + block]
+        oo = None if oo_all is None else oo_all[rows]
+        s[rows], t[rows] = best_twist_harmonic(circ_a.coeffs[ia[rows]], circ_b.coeffs[ib[rows]], m_cut, orient=oo)
     for c0 in range(0, cut.size, block):
         rows = cut[c0 : c0 + block]
         sa, sb = _take(spec_a, inv_a[c0 : c0 + block]), _take(spec_b, inv_b[c0 : c0 + block])
