@@ -134,3 +134,29 @@ def test_targeted_recovers_orientation(tmp_path, monkeypatch, capsys):
     for c in out["candidates"]:
         d, dt = min((match(c, p) for p in truth), key=lambda e: e[0])
         assert d < 1.0 and dt < 2.0 and c["orientation"] == "opposite"
+
+
+def test_search_files_reads_the_column_asked_for(tmp_path, monkeypatch):
+    # the Python API of files: the column given by name or index is the one searched (same result
+    # as the in-memory search of that column), the first column otherwise; the checkpoint of a
+    # finished search is removed, and its fingerprint depends on the column
+    from topology.maps import as_skymap
+    from topology.search import SearchSettings, search_files, search_sky
+    from topology.search.engine import file_checkpoint
+
+    monkeypatch.chdir(tmp_path)
+    first, second = isotropic_map(16, 5), isotropic_map(16, 3)
+    path = tmp_path / "two.fits"
+    hp.write_map(path, [first, second], column_names=["SKY_A", "SKY_B"], dtype=np.float64)
+    s = SearchSettings(mode="antipodal", radii_deg=(30.0,), nside_work=16, m_max=12, fwhm_deg=6.0, centre_nside=4)
+    want = search_sky(as_skymap(second), None, s)["s_max"]
+    got_name = search_files(path, None, s, field="SKY_B", show_progress=False)["s_max"]
+    got_index = search_files(path, None, s, field=1, show_progress=False)["s_max"]
+    got_default = search_files(path, None, s, show_progress=False)["s_max"]
+    key = [(e["orientation"], round(e["S_max"], 9)) for e in want]
+    assert [(e["orientation"], round(e["S_max"], 9)) for e in got_name] == key
+    assert [(e["orientation"], round(e["S_max"], 9)) for e in got_index] == key
+    assert [(e["orientation"], round(e["S_max"], 9)) for e in got_default] != key
+    assert not any(n.startswith(".topology-search") for n in _files(tmp_path))
+    fps = {file_checkpoint(path, None, s, column=c).path.name for c in (None, "SKY_A", "SKY_B")}
+    assert len(fps) == 3

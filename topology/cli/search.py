@@ -85,24 +85,12 @@ def read_inputs(args, settings):
 
 
 def search_read(args, settings, sky, mask, scenario):
-    """``search.engine.search_files`` on maps already read (the column ``--field`` included),
-    with the same file checkpoint (fingerprint of the settings and the files)."""
-    from ..search.checkpoint import FileCheckpoint, fingerprint
-    from ..search.engine import default_checkpoint_path, search_sky
+    """``search.engine.search_read`` on maps already read (the column ``--field`` included), with
+    the same file checkpoint as ``search_files``."""
+    from ..search.engine import search_read as engine_search_read
 
-    ident = {}
-    for name, p in (("map", args.map), ("mask", args.mask)):
-        if p:
-            st_ = Path(p).stat()
-            ident[name] = [str(Path(p).resolve()), st_.st_size, st_.st_mtime_ns]
-    if args.field is not None:
-        ident["field"] = sky.header.get("COLUMN")
-    if scenario is not None:
-        ident["scenario"] = repr((scenario.space.describe(), scenario.chi, scenario.observer.point.tolist()))
-    fp = fingerprint(settings.as_dict(), ident)
-    store = FileCheckpoint(default_checkpoint_path(args.map, fp), fp, resume=args.resume)
-    return search_sky(sky, mask, settings, scenario=scenario, checkpoint=store,
-                      show_progress=False if args.quiet else None, map_name=str(args.map))
+    return engine_search_read(sky, mask, args.map, args.mask, settings, field=args.field, scenario=scenario,
+                              resume=args.resume, show_progress=False if args.quiet else None)
 
 
 def run(args):

@@ -173,25 +173,46 @@ def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenar
     return out
 
 
-def search_files(map_path, mask_path=None, settings: SearchSettings | None = None, *, scenario=None,
-                 resume: bool = False, show_progress: bool | None = None, checkpoint_path=None) -> dict:
-    """Read map (and mask), then :func:`search_sky` with a file checkpoint after every task."""
-    from ..maps import read_healpix
-
-    s = validate(settings or SearchSettings())
-    sky = read_healpix(map_path, ordering=s.ordering, what="map")
-    mask = read_healpix(mask_path, ordering=s.ordering, what="mask") if mask_path else None
+def file_checkpoint(map_path, mask_path, settings: SearchSettings, *, scenario=None, column: str | None = None,
+                    resume: bool = False, checkpoint_path=None) -> FileCheckpoint:
+    """The checkpoint of a search of files: keyed by a fingerprint of the settings, the map and
+    mask files (path, size, modification time), the map column read and the scenario, so a resume
+    never mixes radii of another input."""
     ident = {}
     for name, p in (("map", map_path), ("mask", mask_path)):
         if p:
             st_ = Path(p).stat()
             ident[name] = [str(Path(p).resolve()), st_.st_size, st_.st_mtime_ns]
+    if column is not None:
+        ident["field"] = column
     if scenario is not None:
         ident["scenario"] = repr((scenario.space.describe(), scenario.chi, scenario.observer.point.tolist()))
-    fp = fingerprint(s.as_dict(), ident)
+    fp = fingerprint(settings.as_dict(), ident)
     path = Path(checkpoint_path) if checkpoint_path else default_checkpoint_path(map_path, fp)
-    store = FileCheckpoint(path, fp, resume=resume)
-    return search_sky(sky, mask, s, scenario=scenario, checkpoint=store, show_progress=show_progress,
+    return FileCheckpoint(path, fp, resume=resume)
+
+
+def search_files(map_path, mask_path=None, settings: SearchSettings | None = None, *, field=None, scenario=None,
+                 resume: bool = False, show_progress: bool | None = None, checkpoint_path=None) -> dict:
+    """Read map (column ``field``: index or name, default the first) and mask, then
+    :func:`search_sky` with a file checkpoint after every task (:func:`file_checkpoint`)."""
+    from ..maps import read_healpix
+
+    s = validate(settings or SearchSettings())
+    sky = read_healpix(map_path, field=field, ordering=s.ordering, what="map")
+    mask = read_healpix(mask_path, ordering=s.ordering, what="mask") if mask_path else None
+    return search_read(sky, mask, map_path, mask_path, s, field=field, scenario=scenario, resume=resume,
+                       show_progress=show_progress, checkpoint_path=checkpoint_path)
+
+
+def search_read(sky, mask, map_path, mask_path, settings: SearchSettings, *, field=None, scenario=None,
+                resume: bool = False, show_progress: bool | None = None, checkpoint_path=None) -> dict:
+    """:func:`search_sky` on maps already read from ``map_path`` (column ``field``) and
+    ``mask_path``, with their file checkpoint."""
+    column = sky.header.get("COLUMN") if field is not None else None
+    store = file_checkpoint(map_path, mask_path, settings, scenario=scenario, column=column, resume=resume,
+                            checkpoint_path=checkpoint_path)
+    return search_sky(sky, mask, settings, scenario=scenario, checkpoint=store, show_progress=show_progress,
                       map_name=str(map_path))
 
 
