@@ -39,7 +39,21 @@ kept this scores S_eq 0.58, while the 64 best chance pairs of the N_side 16 grid
 not found with n_keep 1024 (38 s for two radii) nor with an N_side 32 coarse grid (106 s);
 injected into the coarse candidates it is found (S 0.911, against 0.85 for the best chance
 pair). On those skies E3 62.7 (33% jointly kept), E7 62.2 and 22.2 (41-43%) and E2 39.7 (64%)
-are missed in this way; E3 62.7 is found with n_keep 256 or level_smoothing 0.9.
+are missed in this way; E3 62.7 is found with n_keep 256 or level_smoothing 0.9. All-pairs
+there finds 4 of the 8 non-antipodal pairs with more than half of each circle unmasked (both
+full-circle pairs, 2 of the 6 cut ones). The misses are a resolution limit, not a defect of the
+filter or the ranking (measured on E2 39.7 and E7 62.2):
+  - the exact masked S_eq of every one of the 3.2-3.6 million coarse pairs (what a perfect
+    filter would give) ranks the true pair's best grid pair 4215th and 3005th (raw ranks,
+    side lobes of chance peaks included);
+  - an N_side 32 coarse grid (2.2 deg, 47 s per radius against 1.5 s) still ranks E2 39.7
+    (S_eq 0.625) below its 64 best chance pairs (0.631-0.696), since its S_eq falls from 0.80
+    at the exact centres to 0.63 about 1 deg from them;
+  - level_smoothing 0.6 (2.2 deg on N_side 16) passes E2 39.7 and E3 62.7 on with margins of
+    0.02-0.04 in S_eq but loses E7 62.2, whose centres are 2.5-3.4 deg from the nearest grid
+    centres (S_eq 0.42 against 0.53 for the 64th chance pair);
+  - rotating the N_side 16 grid changes little: E3 62.7 is found on 3 of 4 rotated grids,
+    E2 39.7 and both E7 pairs on none.
 (2) Pairs whose centres are closer than ``min_separation_deg`` (excluded: neighbouring circles
 overlap and correlate trivially).
 (3) Pairs with fewer than ``min_overlap`` of the samples jointly kept at the matching phases:
