@@ -31,6 +31,33 @@ def _write_without_ordering(path, m):
     fits.HDUList([fits.PrimaryHDU(), hdu]).writeto(path)
 
 
+def test_gzipped_file_reads_like_the_plain_one_and_is_decompressed_once(tmp_path, monkeypatch):
+    # a .fits.gz map gives the same RING map as the plain file; the stream is decompressed once
+    # (the integrity check already reads it whole, and the FITS reader gets those bytes)
+    import gzip
+    import shutil
+
+    m = np.random.default_rng(4).standard_normal(hp.nside2npix(8))
+    plain = tmp_path / "m.fits"
+    hp.write_map(plain, m, nest=True, dtype=np.float64)
+    packed = tmp_path / "m.fits.gz"
+    with open(plain, "rb") as src, gzip.open(packed, "wb") as dst:
+        shutil.copyfileobj(src, dst)
+    streams = []
+    real_init = gzip.GzipFile.__init__
+
+    def counting_init(self, *args, **kwargs):
+        if "r" in str(kwargs.get("mode", args[1] if len(args) > 1 else "rb")):
+            streams.append(1)
+        real_init(self, *args, **kwargs)
+
+    monkeypatch.setattr(gzip.GzipFile, "__init__", counting_init)
+    a = read_healpix(plain)
+    b = read_healpix(packed)
+    assert len(streams) == 1
+    assert np.array_equal(a.values, b.values) and np.array_equal(b.values, hp.reorder(m, n2r=True))
+
+
 def test_missing_ordering_is_an_error_unless_given(tmp_path):
     m = _map()
     _write_without_ordering(tmp_path / "x.fits", m)

@@ -26,6 +26,7 @@ l < 300), working N_side 128 (pixel 0.46 deg, two pixels per FWHM), no l-range c
 
 from __future__ import annotations
 
+import io
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -107,9 +108,11 @@ def _norm_ordering(value, where: str) -> str:
 _GZIP_MAGIC = b"\x1f\x8b"
 
 
-def _check_fits_bytes(p: Path, what: str, where: str) -> None:
+def _check_fits_bytes(p: Path, what: str, where: str) -> bytes | None:
     """Fail fast on an empty, non-FITS or gzip-corrupt file. A FITS file starts with the card
-    ``SIMPLE  =`` (FITS standard 4.0, sec. 4.4.1.1); a gzip stream with 1f 8b (RFC 1952)."""
+    ``SIMPLE  =`` (FITS standard 4.0, sec. 4.4.1.1); a gzip stream with 1f 8b (RFC 1952).
+    Returns the decompressed bytes of a gzipped file (checking the stream means decompressing it
+    whole, so it is read once), None for a plain one."""
     import gzip
     import zlib
 
@@ -117,18 +120,19 @@ def _check_fits_bytes(p: Path, what: str, where: str) -> None:
         head = fh.read(2880)
     if not head:
         raise InputError(f"{what} file is empty", where)
+    data = None
     if head[:2] == _GZIP_MAGIC:
         try:
             with gzip.open(p, "rb") as fh:
-                head = fh.read(2880)
-                while fh.read(1 << 24):  # decompress to the end: a damaged or cut stream fails here
-                    pass
+                data = fh.read()  # decompress to the end: a damaged or cut stream fails here
         except (OSError, EOFError, zlib.error) as e:
             raise InputError(f"{what} file is not a valid gzip file ({e})", where) from None
+        head = data[:2880]
         if not head:
             raise InputError(f"{what} file is empty once decompressed", where)
     if not head.startswith(b"SIMPLE  ="):
         raise InputError("not a FITS file (it does not start with a SIMPLE card)", where)
+    return data
 
 
 def _select_column(cols: list, fld, what: str, where: str) -> str:
@@ -174,11 +178,11 @@ def read_healpix(path: str | Path, *, field: int | str | None = None, ordering: 
         raise InputError(f"{what} file not found", where)
     if ordering is not None:
         ordering = _norm_ordering(ordering, ordering_from)
-    _check_fits_bytes(p, what, where)
+    unpacked = _check_fits_bytes(p, what, where)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            with fits.open(p, memmap=False) as hdul:
+            with fits.open(p if unpacked is None else io.BytesIO(unpacked), memmap=False) as hdul:
                 table = next((h for h in hdul if isinstance(h, fits.BinTableHDU)), None)
                 if table is None:
                     _raise_damaged(caught, what, where, failed=True)
