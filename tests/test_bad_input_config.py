@@ -208,6 +208,7 @@ SPACE_CASES = [
     (sub(LENS, '"lens"', '"dodecahedron"'), ["demo.toml: [space] family", "did you mean 'dodecahedral'"]),
     (sub(E1, 'family = "E1"\n', ""), ["demo.toml: [space] family", "missing"]),
     (sub(LENS, "omega_k = -0.05", "omega_k = 0.0"), ["demo.toml: [cosmology] omega_k", "needs omega_k < 0"]),
+    ("[cosmology]\nomega_k = -0.02\n" + E1, ["demo.toml: [cosmology] omega_k", "flat family E1 needs omega_k = 0"]),
 ]
 
 

@@ -43,6 +43,9 @@ def cosmology_from_config(cfg: Config) -> Cosmology:
 def lss_radius(space: Space, cosmo: Cosmology) -> float:
     """chi in the space's units, after checking that the curvature signs agree."""
     if space.geometry == "flat":
+        if cosmo.omega_k != 0:
+            raise InputError(f"the flat family {space.family} needs omega_k = 0 (a flat space has no curvature), "
+                             f"got {cosmo.omega_k}", "[cosmology] omega_k")
         return 1.0
     want = "< 0" if space.geometry == "spherical" else "> 0"
     if cosmo.geometry != space.geometry:
