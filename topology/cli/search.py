@@ -84,15 +84,6 @@ def read_inputs(args, settings):
     return sky, mask
 
 
-def search_read(args, settings, sky, mask, scenario):
-    """``search.engine.search_read`` on maps already read (the column ``--field`` included), with
-    the same file checkpoint as ``search_files``."""
-    from ..search.engine import search_read as engine_search_read
-
-    return engine_search_read(sky, mask, args.map, args.mask, settings, field=args.field, scenario=scenario,
-                              resume=args.resume, show_progress=False if args.quiet else None)
-
-
 def run(args):
     from ..errors import quiet_notes
 
@@ -103,7 +94,7 @@ def run(args):
 def _run(args):
     from ..config import load_config
     from ..errors import held_notes
-    from ..search.engine import validate
+    from ..search.engine import search_read, validate
     from ._common import atomic_write, check_writable, print_json
 
     cfg = load_config(args.config) if args.config else None
@@ -120,7 +111,8 @@ def _run(args):
         check_writable(args.plot, "plot")
     with held_notes():  # a refused input is one line, without the notes read before it
         sky, mask = read_inputs(args, settings)
-    out = search_read(args, settings, sky, mask, scenario)
+    out = search_read(sky, mask, args.map, args.mask, settings, field=args.field, scenario=scenario,
+                      resume=args.resume, show_progress=False if args.quiet else None)
     out = _clean(out)
     if args.plot:
         from ..search.plot import plot_search
