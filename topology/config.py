@@ -248,7 +248,8 @@ def register_section(name: str, keys: dict[str, Key]) -> None:
 
 
 def toml_loads(text: str) -> dict:
-    return _toml.loads(text)
+    """TOML text to a dict; a leading UTF-8 byte-order mark (written by some editors) is dropped."""
+    return _toml.loads(text.removeprefix("\ufeff"))
 
 
 @dataclass
@@ -325,13 +326,13 @@ def load_config(path: str | Path) -> Config:
     """Read and validate a TOML config file."""
     p = Path(path)
     try:
-        text = p.read_text()
+        text = p.read_text(encoding="utf-8-sig")  # -sig: a byte-order mark is not part of the TOML
     except FileNotFoundError:
         raise InputError("config file not found", str(p)) from None
     except (OSError, UnicodeDecodeError) as e:
         raise InputError(f"cannot read config ({e})", str(p)) from None
     try:
-        data = _toml.loads(text)
+        data = toml_loads(text)
     except _toml.TOMLDecodeError as e:
         raise InputError(f"not valid TOML ({e})", str(p)) from None
     validate(data, str(p))

@@ -33,9 +33,13 @@ _THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 @dataclass(frozen=True)
 class Task:
+    """``fn(**kwargs)`` under the name ``id``; ``key`` fingerprints the inputs it reads (a stored
+    result counts as finished only for the same key, see :mod:`topology.store`)."""
+
     id: str
     fn: Callable
     kwargs: dict = field(default_factory=dict)
+    key: str = ""
 
 
 def task_seed(run_seed: int, task_id: str) -> np.random.SeedSequence:

@@ -32,7 +32,7 @@ import platform
 import re
 import shutil
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from types import SimpleNamespace
 
@@ -42,9 +42,9 @@ from . import __version__
 from . import significance as sig
 from .config import Config, config_from_dict, validate
 from .cosmology import Cosmology
-from .errors import InputError, raise_if_stopped
+from .errors import InputError, note, raise_if_stopped
 from .execution import Task, make_engine, task_seed
-from .store import MemoryStore, TaskStore, config_hash
+from .store import MemoryStore, TaskStore, config_hash, file_digest, fingerprint
 
 N_CANDIDATES = 10  # candidates per map in the summary and tables
 _NAME = re.compile(r"^[A-Za-z0-9_.-]{1,64}$")
@@ -90,6 +90,8 @@ class RunPlan:
     config_hash: str
     execution: dict = field(default_factory=dict)
     targets: list = field(default_factory=list)  # targeted mode: the spaces tested (see topology.targeted)
+    inputs: dict = field(default_factory=dict)  # {file: sha256 of its content} of every file the run reads
+    config_path: str | None = None
 
     @property
     def cosmology(self) -> Cosmology:
@@ -170,6 +172,43 @@ def _check_files(maps: list[MapSpec], mask: dict) -> None:
         if kept < float(mask["min_sky_fraction"]):
             raise InputError(f"the band |b| < {mask['galactic_b_deg']} deg leaves {kept:.1%} of the sky, less than "
                              f"min_sky_fraction = {mask['min_sky_fraction']}", "[mask] galactic_b_deg")
+
+
+def _space_tables(obj):
+    """Every table of a config (nested tables and arrays of tables included)."""
+    if isinstance(obj, dict):
+        yield obj
+        for v in obj.values():
+            yield from _space_tables(v)
+    elif isinstance(obj, list):
+        for v in obj:
+            yield from _space_tables(v)
+
+
+def input_files(cfg: Config, maps: list[MapSpec], mask: dict) -> list[str]:
+    """Every file a run reads, as absolute paths: the FITS maps, the mask, the l-weights, the
+    hit-count maps of inline skies, the generator files of hyperbolic spaces anywhere in the
+    config, and the spectrum table shipped in the package."""
+    from importlib import resources
+
+    from .skies.spectra import TABLE_NAME
+    from .spaces.hyperbolic import generators_path
+
+    files = [m.path for m in maps if m.path]
+    if "path" in mask:
+        files.append(mask["path"])
+    weights = cfg.sections.get("search", {}).get("l_weights")
+    if weights:
+        files.append(_resolve(cfg.base_dir, weights))
+    for m in maps:
+        hits = (m.inline or {}).get("sky", {}).get("hits")
+        if hits:
+            files.append(_resolve(cfg.base_dir, hits))
+    for table in _space_tables(cfg.sections):
+        if isinstance(table.get("generators"), str):
+            files.append(str(generators_path(table["generators"], cfg.base_dir).resolve()))
+    files.append(str(resources.files("topology").joinpath("data", TABLE_NAME)))
+    return sorted({f for f in files if Path(f).is_file()})
 
 
 def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: str | None = None,
@@ -270,10 +309,11 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
         raise InputError(f"unknown engine {ex['engine']!r}; choose serial, local or dask", "[execution] engine")
 
     out = Path(out_dir) if out_dir is not None else Path(cfg.get("output", "dir"))
+    inputs = {f: file_digest(f) for f in input_files(cfg, maps, mask)}
     return RunPlan(sections=cfg.sections, base_dir=str(cfg.base_dir), maps=maps, mask=mask, instrument=inst,
                    search=settings.as_dict(), significance=sg, bounds=bsec, radii_deg=radii,
                    injection_radii_deg=inj, out_dir=out, config_hash=config_hash(cfg.sections), execution=ex,
-                   targets=targets)
+                   targets=targets, inputs=inputs, config_path=str(cfg.path.resolve()) if cfg.path else None)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -479,13 +519,35 @@ def _nside_hint(plan: RunPlan) -> int:
     return 64
 
 
+def task_keys(plan: RunPlan, nside_hint: int) -> tuple[str, dict]:
+    """Keys of the inputs a task is computed from (:mod:`topology.store`): every task reads the
+    shared inputs (mask, weights, generators, spectrum table; the package and camb versions;
+    the N_side of the simulated skies); a data task also reads its own map. Returns (the key of
+    simulated-sky tasks, {map name: key of its data task})."""
+    own = {m.path for m in plan.maps if m.path}
+    shared = {f: d for f, d in plan.inputs.items() if f not in own}
+    versions = {k: v for k, v in _versions().items() if k in ("topology", "camb")}
+    common = fingerprint(shared, versions, nside_hint)
+    data = {m.name: fingerprint(common, plan.inputs.get(m.path) if m.path else None) for m in plan.maps}
+    return common, data
+
+
 def build_tasks(plan: RunPlan) -> list[Task]:
-    pd = _plan_dict(plan, _nside_hint(plan))
+    hint = _nside_hint(plan)
+    pd = _plan_dict(plan, hint)
+    common, data = task_keys(plan, hint)
     if plan.targets:
         from .targeted import build_tasks as targeted_tasks
 
-        return targeted_tasks(plan, pd)
-    tasks = [Task(f"data/{m.name}", task_data, {"plan_d": pd, "name": m.name}) for m in plan.maps]
+        tasks = targeted_tasks(plan, pd)
+    else:
+        tasks = [Task(f"data/{m.name}", task_data, {"plan_d": pd, "name": m.name}) for m in plan.maps]
+        tasks += _simulation_tasks(plan, pd)
+    return [replace(t, key=data[t.id[5:]] if t.id.startswith("data/") else common) for t in tasks]
+
+
+def _simulation_tasks(plan: RunPlan, pd: dict) -> list[Task]:
+    tasks = []
     n_null = int(plan.significance["n_null"])
     tasks += [Task(f"null/{i:05d}", task_null, {"plan_d": pd, "index": i, "task_id": f"null/{i:05d}"})
               for i in range(n_null)]
@@ -503,13 +565,19 @@ def run_tasks(tasks: list[Task], store, engine, show_progress: bool | None = Non
     from .search.progress import progress
 
     t0 = time.perf_counter()
-    todo = [t for t in tasks if not store.has(t.id)]
+    todo = [t for t in tasks if not store.has(t.id, t.key)]
+    stale = sum(store.stale(t.id, t.key) for t in todo)
+    if stale:
+        changed = getattr(store, "changed_inputs", [])
+        what = f" ({', '.join(changed)} changed since they ran)" if changed else ""
+        note(f"{stale} finished task(s) are recomputed: their inputs changed{what}")
     bar = progress(len(tasks), "topology run", show_progress)
     bar.update(len(tasks) - len(todo))
     computed = 0
     try:
+        keys = {t.id: t.key for t in todo}
         for tid, result in engine.run(todo):
-            store.put(tid, result)
+            store.put(tid, result, keys[tid])
             computed += 1
             bar.update(1)
             raise_if_stopped()
@@ -792,47 +860,30 @@ def _versions() -> dict:
     return out
 
 
-def prepare_output(out: Path, *, force: bool, resume: bool) -> None:
-    """Refuse an existing output folder unless --force (start over) or --resume (continue)."""
-    if out.exists() and not out.is_dir():
-        raise InputError("output path exists and is not a folder", str(out))
-    if out.exists() and any(out.iterdir()):
-        if force and resume:
-            raise InputError("give --force or --resume, not both", str(out))
-        if force:
-            shutil.rmtree(out)
-        elif not resume:
-            raise InputError("output folder exists; use --resume to continue that run or --force to replace it", str(out))
-    elif resume:
-        raise InputError("nothing to resume: the output folder has no run store", str(out))
-    parent = out.parent if str(out.parent) else Path(".")
-    if not parent.exists():
-        raise InputError("the output folder's parent does not exist", str(parent))
-    if not os.access(parent, os.W_OK):
-        raise InputError("the output folder's parent is not writable", str(parent))
-
-
 def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progress: bool | None = None,
         store=None) -> dict:
-    """Execute a validated plan end to end; returns the summary (also written to the folder)."""
+    """Execute a validated plan end to end; returns the summary (also written to the folder).
+    The output folder is claimed and locked for the whole run (:mod:`topology.run_folder`)."""
+    if store is not None:
+        return _run_in(plan, None, store, show_progress)
+    from . import run_folder
+
+    protected = list(plan.inputs) + ([plan.config_path] if plan.config_path else [])
+    folder = run_folder.claim(plan.out_dir, force=force, resume=resume, inputs=protected)
+    try:
+        try:
+            store = TaskStore(folder.path / "store", plan.config_hash, resume=resume, inputs=plan.inputs)
+        except BaseException:
+            folder.discard()
+            raise
+        return _run_in(plan, folder, store, show_progress)
+    finally:
+        folder.release()
+
+
+def _run_in(plan: RunPlan, folder, store, show_progress) -> dict:
     timings = {}
     t0 = time.perf_counter()
-    created = False
-    if store is None:
-        prepare_output(plan.out_dir, force=force, resume=resume)
-        if resume and not (plan.out_dir / "store" / "meta.json").exists():
-            raise InputError("nothing to resume: the output folder has no run store", str(plan.out_dir))
-        created = not plan.out_dir.exists()
-        try:
-            plan.out_dir.mkdir(parents=True, exist_ok=True)
-        except OSError as e:
-            raise InputError(f"cannot create the output folder ({e.strerror or e})", str(plan.out_dir)) from None
-        try:
-            store = TaskStore(plan.out_dir / "store", plan.config_hash, resume=resume)
-        except BaseException:
-            if created:
-                shutil.rmtree(plan.out_dir, ignore_errors=True)
-            raise
     tasks = build_tasks(plan)
     ex = plan.execution
     try:
@@ -844,8 +895,8 @@ def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progre
     except BaseException:
         # a run that stops before finishing any task leaves nothing behind; otherwise the store
         # of finished tasks stays for --resume
-        if created and not store.finished():
-            shutil.rmtree(plan.out_dir, ignore_errors=True)
+        if folder is not None and not store.finished():
+            folder.discard()
         raise
     timings["tasks_s"] = counts["elapsed_s"]
     t1 = time.perf_counter()
@@ -857,12 +908,14 @@ def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progre
         "task_seeds": "numpy SeedSequence(entropy=run seed, spawn_key=sha256(task id)[:16] as 4 uint32)",
         "tasks": {"total": len(tasks), "computed": counts["computed"], "reused_from_store": counts["reused"]},
         "engine": {k: v for k, v in ex.items() if v is not None},
+        "inputs_sha256": plan.inputs,
         "timings_s": timings,
     }
     if isinstance(store, MemoryStore):
         return {"maps": analysis["maps"], "calibration": analysis["calibration"], "provenance": provenance,
                 "_analysis": analysis}
-    staging = plan.out_dir / f".report-{os.getpid()}"
+    out_dir = folder.path
+    staging = out_dir / f".report-{os.getpid()}"
     if staging.exists():
         shutil.rmtree(staging)
     try:
@@ -879,10 +932,10 @@ def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progre
         summary["provenance"] = provenance
         (staging / "summary.json").write_text(json.dumps(summary, indent=1, default=_json_default, allow_nan=False))
         # move into place: summary.json last, so a folder with summary.json is a whole report
-        (plan.out_dir / "summary.json").unlink(missing_ok=True)
+        (out_dir / "summary.json").unlink(missing_ok=True)
         names = sorted(os.listdir(staging), key=lambda n: n == "summary.json")
         for n in names:
-            os.replace(staging / n, plan.out_dir / n)
+            os.replace(staging / n, out_dir / n)
     except OSError as e:  # disk full, quota, permissions: the store of finished tasks stays valid
         raise InputError(f"cannot write the report ({e.strerror or e}); the finished tasks are kept in the store: "
                          "free space, then rerun with --resume", str(plan.out_dir)) from None

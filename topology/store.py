@@ -3,9 +3,14 @@ manifest of finished task ids, inside the run's output folder.
 
 Layout of a store folder::
 
-    store/meta.json        {"config_hash": ..., "created": ..., "package_version": ...}
+    store/meta.json        {"config_hash": ..., "created": ..., "package_version": ..., "inputs": {...}}
     store/manifest.json    {"finished": [task ids...]}
-    store/tasks/<id>.pkl   the result of one task (pickle of plain numpy/dict data)
+    store/tasks/<id>.pkl   the result of one task and the key of the inputs it was computed from
+
+A task is finished only for the key it was stored with: the key is a fingerprint of the content
+of every input the task reads (:func:`file_digest`, :func:`fingerprint`), so a map or mask
+replaced since the task ran makes the task due again rather than reused. ``meta.json`` records
+the digests of the run's input files, so a resume can say which of them changed.
 
 Each write goes to a temporary name in the same folder, is fsynced, then renamed (POSIX rename
 is atomic), so an interrupted run leaves only whole files. A task file present but missing from
@@ -35,6 +40,34 @@ def config_hash(sections: dict, ignore=("output", "execution")) -> str:
     """sha256 of the config's canonical JSON, without sections that do not change results."""
     data = {k: v for k, v in sections.items() if k not in ignore}
     text = json.dumps(data, sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+_DIGESTS: dict = {}
+
+
+def file_digest(path: str | Path) -> str:
+    """sha256 of a file's content (read in 1 MiB blocks; cached per process by path, inode, size
+    and change time, which any write updates, so a file is read once per run). The name of a file
+    is not part of it."""
+    p = Path(path)
+    try:
+        st = p.stat()
+        key = (str(p.resolve()), st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
+        if key not in _DIGESTS:
+            h = hashlib.sha256()
+            with open(p, "rb") as fh:
+                for block in iter(lambda: fh.read(1 << 20), b""):
+                    h.update(block)
+            _DIGESTS[key] = h.hexdigest()
+    except OSError as e:
+        raise InputError(f"cannot read input file ({e.strerror or e})", str(p)) from None
+    return _DIGESTS[key]
+
+
+def fingerprint(*parts) -> str:
+    """sha256 of the canonical JSON of ``parts`` (settings, digests, versions)."""
+    text = json.dumps(parts, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(text.encode()).hexdigest()
 
 
@@ -93,13 +126,18 @@ class MemoryStore:
 
     def __init__(self):
         self._results: dict[str, object] = {}
-        self.recomputed = 0
+        self._keys: dict[str, str] = {}
 
-    def has(self, task_id: str) -> bool:
-        return task_id in self._results
+    def has(self, task_id: str, key: str = "") -> bool:
+        return task_id in self._results and self._keys.get(task_id, "") == key
 
-    def put(self, task_id: str, result) -> None:
+    def stale(self, task_id: str, key: str = "") -> bool:
+        """Finished, but from other inputs than ``key`` says."""
+        return task_id in self._results and self._keys.get(task_id, "") != key
+
+    def put(self, task_id: str, result, key: str = "") -> None:
         self._results[task_id] = result
+        self._keys[task_id] = key
 
     def get(self, task_id: str):
         return self._results[task_id]
@@ -109,9 +147,11 @@ class MemoryStore:
 
 
 class TaskStore:
-    """Durable results in ``folder`` (created if missing) for a config with ``config_hash``."""
+    """Durable results in ``folder`` (created if missing) for a config with ``config_hash``.
+    ``inputs`` ({file: digest}) is recorded in ``meta.json``; on resume :attr:`changed_inputs`
+    lists the files whose digest differs from the recorded one."""
 
-    def __init__(self, folder: str | Path, config_hash: str, *, resume: bool):
+    def __init__(self, folder: str | Path, config_hash: str, *, resume: bool, inputs: dict | None = None):
         self.folder = Path(folder)
         self.tasks = self.folder / "tasks"
         meta_path = self.folder / "meta.json"
@@ -126,35 +166,43 @@ class TaskStore:
             if meta.get("config_hash") != config_hash:
                 raise InputError("this store was made by a different config (config hash differs); "
                                  "resume with the original config or start a new output folder", str(self.folder))
+            old = meta.get("inputs") or {}
+            self.changed_inputs = sorted(f for f, d in (inputs or {}).items() if old.get(f) != d)
         else:
+            self.changed_inputs = []
             self.tasks.mkdir(parents=True, exist_ok=True)
             atomic_bytes(meta_path, json.dumps({"config_hash": config_hash, "created": time.time(),
-                                                "package_version": __version__}, indent=1).encode())
+                                                "package_version": __version__, "inputs": inputs or {}},
+                                               indent=1).encode())
         self.tasks.mkdir(parents=True, exist_ok=True)
         self._finished = self._scan()
 
     def _path(self, task_id: str) -> Path:
         return self.tasks / (_SAFE.sub("_", task_id) + ".pkl")
 
-    def _scan(self) -> set[str]:
-        found = set()
+    def _scan(self) -> dict[str, str]:
+        found = {}
         for p in self.tasks.glob("*.pkl"):
             if p.name.startswith("."):  # a temporary file of atomic_path (pathlib's glob matches
                 continue                # dot files): whole or not, its task did not finish
             try:
                 with open(p, "rb") as fh:
-                    tid = pickle.load(fh)["id"]
+                    rec = pickle.load(fh)
+                found[rec["id"]] = rec.get("key", "")
             except Exception:  # noqa: BLE001 - a foreign or damaged file is simply not finished
                 continue
-            found.add(tid)
         return found
 
-    def has(self, task_id: str) -> bool:
-        return task_id in self._finished
+    def has(self, task_id: str, key: str = "") -> bool:
+        return self._finished.get(task_id) == key
 
-    def put(self, task_id: str, result) -> None:
-        atomic_bytes(self._path(task_id), pickle.dumps({"id": task_id, "result": result}, protocol=4))
-        self._finished.add(task_id)
+    def stale(self, task_id: str, key: str = "") -> bool:
+        """Finished, but from other inputs than ``key`` says."""
+        return task_id in self._finished and self._finished[task_id] != key
+
+    def put(self, task_id: str, result, key: str = "") -> None:
+        atomic_bytes(self._path(task_id), pickle.dumps({"id": task_id, "key": key, "result": result}, protocol=4))
+        self._finished[task_id] = key
         atomic_bytes(self.folder / "manifest.json",
                      json.dumps({"finished": sorted(self._finished)}, indent=0).encode())
 

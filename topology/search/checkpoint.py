@@ -3,25 +3,25 @@
 ``MemoryCheckpoint`` keeps results in a dict (notebooks, tests); ``FileCheckpoint`` writes a
 JSON file after every finished task (a radius, or an observer position), atomically, so a
 search started again with ``resume=True`` skips what is done. The file records a fingerprint
-of the map and of every setting; a checkpoint with another fingerprint is never used.
+of every setting and of the content of the map and mask (:func:`topology.store.fingerprint`
+over :func:`topology.store.file_digest`, the mechanism of the run store); a checkpoint with
+another fingerprint is never used.
 """
 
 from __future__ import annotations
 
-import hashlib
 import json
 from pathlib import Path
 
 from ..errors import InputError
-from ..store import atomic_bytes
+from ..store import atomic_bytes, fingerprint
 
-VERSION = 1
+VERSION = 2
 
 
-def fingerprint(settings: dict, map_id: dict) -> str:
-    """sha256 of the settings and the map identity (path, size, modification time)."""
-    text = json.dumps({"settings": settings, "map": map_id, "version": VERSION}, sort_keys=True, default=str)
-    return hashlib.sha256(text.encode()).hexdigest()[:16]
+def search_fingerprint(settings: dict, inputs: dict) -> str:
+    """Short fingerprint of the settings and the inputs ({role: content digest, ...})."""
+    return fingerprint({"settings": settings, "inputs": inputs, "version": VERSION})[:16]
 
 
 class MemoryCheckpoint:

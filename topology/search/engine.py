@@ -15,7 +15,7 @@ import numpy as np
 
 from ..errors import InputError, raise_if_stopped
 from . import modes as _modes
-from .checkpoint import FileCheckpoint, MemoryCheckpoint, fingerprint
+from .checkpoint import FileCheckpoint, MemoryCheckpoint, search_fingerprint
 from .progress import progress
 
 MODES = {"antipodal": _modes.AntipodalMode, "all-pairs": _modes.AllPairsMode, "targeted": _modes.TargetedMode}
@@ -175,19 +175,20 @@ def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenar
 
 def file_checkpoint(map_path, mask_path, settings: SearchSettings, *, scenario=None, column: str | None = None,
                     resume: bool = False, checkpoint_path=None) -> FileCheckpoint:
-    """The checkpoint of a search of files: keyed by a fingerprint of the settings, the map and
-    mask files (path, size, modification time), the map column read and the scenario, so a resume
-    never mixes radii of another input."""
+    """The checkpoint of a search of files: keyed by a fingerprint of the settings, the content
+    of the map and mask files (not their names), the map column read and the scenario, so a
+    resume never mixes radii of another input."""
+    from ..store import file_digest
+
     ident = {}
     for name, p in (("map", map_path), ("mask", mask_path)):
         if p:
-            st_ = Path(p).stat()
-            ident[name] = [str(Path(p).resolve()), st_.st_size, st_.st_mtime_ns]
+            ident[name] = file_digest(p)
     if column is not None:
         ident["field"] = column
     if scenario is not None:
         ident["scenario"] = repr((scenario.space.describe(), scenario.chi, scenario.observer.point.tolist()))
-    fp = fingerprint(settings.as_dict(), ident)
+    fp = search_fingerprint(settings.as_dict(), ident)
     path = Path(checkpoint_path) if checkpoint_path else default_checkpoint_path(map_path, fp)
     return FileCheckpoint(path, fp, resume=resume)
 

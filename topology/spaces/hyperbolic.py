@@ -91,7 +91,7 @@ def read_generators(path: str | Path) -> tuple[list[np.ndarray], dict]:
     p = Path(path)
     where = str(p)
     try:
-        text = p.read_text()
+        text = p.read_text(encoding="utf-8-sig")
     except OSError as e:
         raise InputError(f"cannot read generator file ({e.strerror})", where) from None
     except UnicodeDecodeError:
@@ -266,17 +266,24 @@ def _key(m: np.ndarray) -> bytes:
     return _keys(np.asarray(m, dtype=float)[None])[0]
 
 
-def make_hyperbolic(params, base_dir: Path | None = None):
-    if "generators" not in params:
-        raise InputError("missing (path of a JSON or TOML file of SO(3,1) generators)", "[space] generators")
-    path = Path(params["generators"])
+def generators_path(name: str, base_dir: Path | None = None) -> Path:
+    """The file a ``generators`` key names: as given, else relative to the config's folder,
+    else a file shipped in topology/data."""
+    path = Path(name)
     if not path.is_absolute() and base_dir is not None and not path.exists():
         path = Path(base_dir) / path
     if not path.exists():
         from importlib import resources
-        shipped = resources.files("topology") / "data" / str(params["generators"])
+        shipped = resources.files("topology") / "data" / str(name)
         if shipped.is_file():
             path = Path(str(shipped))
+    return path
+
+
+def make_hyperbolic(params, base_dir: Path | None = None):
+    if "generators" not in params:
+        raise InputError("missing (path of a JSON or TOML file of SO(3,1) generators)", "[space] generators")
+    path = generators_path(params["generators"], base_dir)
     gens, meta = read_generators(path)
     return HyperbolicSpace(gens, {"generators": str(params["generators"])}, meta, source=str(path))
 
