@@ -1,5 +1,6 @@
-"""Skies of flat multiply connected spaces (topology.skies.flat): matched circles, spectra,
-grid against eigenmode method, determinism and bad input."""
+"""Skies of flat multiply connected spaces (topology.skies.flat and its flat_modes,
+flat_eigenmode, flat_grid): matched circles, spectra, grid against eigenmode method,
+determinism and bad input."""
 
 import healpy as hp
 import numpy as np
@@ -12,7 +13,7 @@ from topology import geometry as geo
 from topology.circles import circle_points, predict_circles
 from topology.cosmology import Cosmology
 from topology.errors import InputError
-from topology.skies import flat
+from topology.skies import flat_eigenmode, flat_grid, flat_modes
 from topology.skies.flat import flat_sky
 from topology.skies.spectra import sachs_wolfe_cl
 from topology.spaces import build_space
@@ -39,7 +40,7 @@ def test_plane_wave_alm_reproduces_the_field_on_the_sphere():
     rng = np.random.default_rng(1)
     k = rng.normal(size=(6, 3)) * 4.0
     coef = rng.normal(size=6) + 1j * rng.normal(size=6)
-    alm = flat.plane_wave_alm(k, coef, 1.0, 40)
+    alm = flat_eigenmode.plane_wave_alm(k, coef, 1.0, 40)
     m = hp.alm2map(alm, 32, lmax=40)
     v = np.column_stack(hp.pix2vec(32, np.arange(hp.nside2npix(32))))
     direct = 2.0 * np.real(np.exp(1j * (v @ k.T)) @ coef)
@@ -53,7 +54,7 @@ def test_plane_wave_alm_reproduces_the_field_on_the_sphere():
 def test_field_is_invariant_under_every_holonomy(family, lengths):
     # common practice: a field on E^3/Gamma is a Gamma-invariant field on E^3, f(g x) = f(x)
     space = build_space({"family": family, "lengths": lengths})
-    _, k, c = flat.invariant_coefficients(space, COSMO, 7, 15.0)
+    _, k, c = flat_modes.invariant_coefficients(space, COSMO, 7, 15.0)
     x = np.random.default_rng(2).normal(size=(30, 3))
 
     def f(p):
@@ -69,7 +70,7 @@ def test_twisted_phases_remove_the_odd_axial_modes_of_E2():
     # check (from memory): Riazuelo et al. 2004, PRD 69, 103518 (flat-space eigenmodes): in E2
     # the modes along the screw axis k = (0, 0, 2 pi n / (2 L3)) survive only for even n.
     space = build_space({"family": "E2", "lengths": [1.2, 1.4, 0.7]})
-    n, _, c = flat.invariant_coefficients(space, COSMO, 3, 40.0)
+    n, _, c = flat_modes.invariant_coefficients(space, COSMO, 3, 40.0)
     axial = (n[:, 0] == 0) & (n[:, 1] == 0)
     assert axial.sum() >= 8
     odd = axial & (n[:, 2] % 2 == 1)
@@ -88,9 +89,9 @@ def test_torus_fast_path_equals_the_general_mode_list(lengths, angles):
     # the same c_n as the mode list of the eigenmode method (internal consistency, float32)
     space = build_space({"family": "E1", "lengths": lengths, "angles": angles})
     kc = 70.0    # index bounds 11-19: several blocks of 16 per axis, on both sides of n = 0
-    shape = flat.grid_shape(space, kc, 1.2)
-    dense = flat.dense_torus_spectrum(space, COSMO, 5, kc, shape)
-    ref = flat.mode_list_spectrum(space, COSMO, 5, kc, shape)
+    shape = flat_grid.grid_shape(space, kc, 1.2)
+    dense = flat_grid.dense_torus_spectrum(space, COSMO, 5, kc, shape)
+    ref = flat_grid.mode_list_spectrum(space, COSMO, 5, kc, shape)
     assert np.count_nonzero(ref) > 5000
     assert np.array_equal(dense != 0, ref != 0)
     assert np.abs(dense - ref).max() < 1e-5 * np.abs(ref).max()
@@ -99,10 +100,10 @@ def test_torus_fast_path_equals_the_general_mode_list(lengths, angles):
 def test_band_limited_fft_equals_the_full_inverse_fft():
     # the pruned in-place transform skips only rows and planes that are zero
     space = build_space({"family": "E6", "lengths": [0.8, 0.9, 0.7]})
-    shape = flat.grid_shape(space, 25.0, 1.2)
-    spec = flat.mode_list_spectrum(space, COSMO, 3, 25.0, shape)
+    shape = flat_grid.grid_shape(space, 25.0, 1.2)
+    spec = flat_grid.mode_list_spectrum(space, COSMO, 3, 25.0, shape)
     ref = scipy.fft.irfftn(spec, s=shape, norm="forward")
-    got = flat.band_limited_irfft(spec.copy(), shape, flat.index_bounds(space.lattice, 25.0))
+    got = flat_grid.band_limited_irfft(spec.copy(), shape, flat_modes.index_bounds(space.lattice, 25.0))
     assert np.abs(got - ref).max() < 1e-5 * np.abs(ref).max()
 
 
@@ -185,9 +186,9 @@ def test_expected_torus_spectrum_tends_to_the_isotropic_one():
     # to (4 pi / 25) T^2 int dk/k P_R j_l^2 (sachs_wolfe_cl, closed form of Gradshteyn &
     # Ryzhik 6.574.2) for a big torus: 1% at l <= 6, side 6 chi_rec, k chi <= 80.
     space = build_space({"family": "E1", "lengths": [6.0, 6.0, 6.0]})
-    _, k, _ = flat.half_ball_modes(space, 80.0)
+    _, k, _ = flat_modes.half_ball_modes(space, 80.0)
     kn = np.linalg.norm(k, axis=1)
-    sig2 = flat.mode_sigma(kn, COSMO, space.covering_cell_volume) ** 2
+    sig2 = flat_modes.mode_sigma(kn, COSMO, space.covering_cell_volume) ** 2
     iso = sachs_wolfe_cl(6, COSMO)
     for ell in range(2, 7):
         expect = 4.0 * np.pi * 2.0 * np.sum(sig2 * spherical_jn(ell, kn) ** 2)
@@ -242,10 +243,10 @@ def test_grid_converges_with_oversampling():
 def test_grid_size_follows_kchi_max():
     # N_d = fast_size(2 oversample n_max_d + 2) with n_max_d = kchi_max |a_d| / 2 pi
     space = build_space({"family": "E1", "lengths": [1.6, 1.6, 1.6]})
-    shape = flat.grid_shape(space, 512.0, 1.2)
+    shape = flat_grid.grid_shape(space, 512.0, 1.2)
     nmax = int(512 * 1.6 / (2 * np.pi))
     assert all(2.4 * nmax + 2 <= n < 1.25 * (2.4 * nmax + 2) for n in shape)
-    assert flat.fast_size(301) == 320 and flat.fast_size(257) == 270
+    assert flat_grid.fast_size(301) == 320 and flat_grid.fast_size(257) == 270
 
 
 # ---------------------------------------------------------------------------------------------
@@ -259,8 +260,8 @@ def test_same_seed_same_alm_and_shared_modes():
     assert np.array_equal(a.alm, b.alm)
     assert not np.allclose(a.alm, c.alm)
     # a larger cut-off keeps every amplitude of the smaller one
-    n1, _, c1 = flat.invariant_coefficients(space, COSMO, 5, 12.0)
-    n2, _, c2 = flat.invariant_coefficients(space, COSMO, 5, 25.0)
+    n1, _, c1 = flat_modes.invariant_coefficients(space, COSMO, 5, 12.0)
+    n2, _, c2 = flat_modes.invariant_coefficients(space, COSMO, 5, 25.0)
     lookup = {tuple(v): i for i, v in enumerate(n2)}
     idx = np.array([lookup[tuple(v)] for v in n1])
     assert np.array_equal(c1, c2[idx])
@@ -321,7 +322,7 @@ def test_camb_transfer_torus_mode_sum_matches_camb_cl():
     k = 2 * np.pi * np.sqrt(s) / side
     sel = (k <= kmax) & (counts > 0)
     k, counts = k[sel], counts[sel]
-    sig2 = flat.mode_sigma(k, COSMO, side**3) ** 2
+    sig2 = flat_modes.mode_sigma(k, COSMO, side**3) ** 2
     delta = temperature_transfer(COSMO, lmax)(np.arange(lmax + 1), k / COSMO.chi_rec_mpc)
     expect = 4 * np.pi * ((5 * delta) ** 2 @ (counts * sig2))
     ref = camb_cl(COSMO, lmax)
@@ -341,9 +342,9 @@ def test_full_terms_sky_spectrum_and_degraded_circles():
     lmax = 8
     cls = np.array([_cl(flat_sky(space, obs, COSMO, lmax=lmax, method="eigenmode", seed=s, kchi_max=40.0,
                                  terms=FULL).alm, lmax) for s in range(3)])
-    _, k, _ = flat.half_ball_modes(space, 40.0)
+    _, k, _ = flat_modes.half_ball_modes(space, 40.0)
     kn = np.linalg.norm(k, axis=1)
-    sig2 = flat.mode_sigma(kn, COSMO, space.covering_cell_volume) ** 2
+    sig2 = flat_modes.mode_sigma(kn, COSMO, space.covering_cell_volume) ** 2
     delta = temperature_transfer(COSMO, lmax)(np.arange(lmax + 1), kn / COSMO.chi_rec_mpc)
     expect = 4 * np.pi * 2 * ((5 * delta) ** 2 @ sig2)
     ell = np.arange(2, lmax + 1)

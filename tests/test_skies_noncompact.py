@@ -1,4 +1,4 @@
-"""Skies of the non-compact flat families E11-E17 (topology.skies.flat.compact_cover): the
+"""Skies of the non-compact flat families E11-E17 (topology.skies.flat_modes.compact_cover): the
 periodic cover of the open directions, its circles, its spectrum against the continuous limit."""
 
 import healpy as hp
@@ -9,14 +9,14 @@ from scipy.special import spherical_jn
 from topology import geometry as geo
 from topology.circles import predict_circles
 from topology.errors import InputError
-from topology.skies import flat
+from topology.skies import flat_modes
 from topology.skies.flat import flat_sky
 from topology.skies.spectra import primordial_power, sachs_wolfe_cl
 from topology.spaces import build_space
 
 from test_skies_flat import COSMO, OBSERVER, _pearson, sw_circles_match
 
-L = flat.FREE_LENGTH
+L = flat_modes.FREE_LENGTH
 
 
 def _elements(space, observer, radius):
@@ -49,12 +49,12 @@ def test_cover_is_the_compact_family_and_adds_no_circles(params, compact):
     # exactly the space's predicted circle pairs (common practice: a pair per image closer
     # than the LSS diameter, Cornish, Spergel & Starkman 1998)
     space = build_space(params)
-    cover, axes, lengths = flat.compact_cover(space, OBSERVER)
+    cover, axes, lengths = flat_modes.compact_cover(space, OBSERVER)
     assert cover.compact and lengths == [L] * len(axes)
     ref = build_space(compact)
     np.testing.assert_allclose(_elements(cover, OBSERVER, 7.0), _elements(ref, OBSERVER, 7.0), atol=1e-8)
-    np.testing.assert_allclose(_elements(cover, OBSERVER, flat.FREE_CLEARANCE),
-                               _elements(space, OBSERVER, flat.FREE_CLEARANCE), atol=1e-8)
+    np.testing.assert_allclose(_elements(cover, OBSERVER, flat_modes.FREE_CLEARANCE),
+                               _elements(space, OBSERVER, flat_modes.FREE_CLEARANCE), atol=1e-8)
     own = predict_circles(space, OBSERVER, 1.0)
     new = predict_circles(cover, OBSERVER, 1.0)
     assert len(own) == len(new) > 0
@@ -70,8 +70,8 @@ def test_period_grows_for_an_observer_far_from_the_mirror():
     # requested period 3
     obs = geo.Observer.make("flat", [2.2, 0.3, 0.1])
     space = build_space({"family": "E17", "lengths": [0.75]})
-    cover, axes, lengths = flat.compact_cover(space, obs, free_length=3.0)
-    assert axes == [0, 1] and lengths == pytest.approx([4.4 + flat.FREE_CLEARANCE, 3.0])
+    cover, axes, lengths = flat_modes.compact_cover(space, obs, free_length=3.0)
+    assert axes == [0, 1] and lengths == pytest.approx([4.4 + flat_modes.FREE_CLEARANCE, 3.0])
     own = {tuple(r) for r in _elements(space, obs, 8.0)}
     hol = cover.elements_within(obs, 8.0)
     rows = np.round(hol.matrices[:, :3, :].reshape(len(hol), -1), 9)
@@ -118,8 +118,8 @@ def _slab_continuum_cl(thickness, ells, kmax, nodes=256):
 
 
 def _cover_expected_cl(space, ells, kmax, free_length=None):
-    cover, _, _ = flat.compact_cover(space, OBSERVER, free_length)
-    _, k, _ = flat.half_ball_modes(cover, kmax)
+    cover, _, _ = flat_modes.compact_cover(space, OBSERVER, free_length)
+    _, k, _ = flat_modes.half_ball_modes(cover, kmax)
     kn = np.linalg.norm(k, axis=1)
     w = _sw_weight(kn) / cover.covering_cell_volume
     return np.array([4 * np.pi * 2 * np.sum(w * spherical_jn(ell, kn) ** 2) for ell in ells])

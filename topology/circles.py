@@ -20,6 +20,9 @@ with e_N the unit projection of the north pole z onto the plane normal to c (the
 is a pole) and e_E = e_N x c: phi runs counter-clockwise about c as seen by the observer looking
 outward along c, from north through east (position angle). A pair (A, B, twist tau,
 orientation s) means T_A(phi) = T_B(s phi + tau), s = +1 "same", s = -1 "opposite".
+
+The JSON form of a prediction (:func:`prediction_json`: centres as (lon, lat), angles in
+degrees) is what ``topology predict --json`` prints and ``topology synth --pairs`` writes.
 """
 
 from __future__ import annotations
@@ -163,3 +166,26 @@ def predict_circles(space: Space, observer: geo.Observer, chi: float) -> list[Ci
             pairs.append(pair)
     pairs.sort(key=lambda p: (-p.radius, tuple(np.round(p.center_a, 9))))
     return pairs
+
+
+def prediction_json(scenario, pairs: list[CirclePair] | None = None) -> dict:
+    """The predicted circles of a scenario as one JSON-able dict (the contract of
+    ``topology predict --json`` and of ``topology synth --pairs``).
+
+    scenario: a :class:`topology.scenario.Scenario` (space, observer, cosmology, chi); pairs:
+    its :func:`predict_circles` if already computed. Keys: family, params, geometry,
+    chi_rec_mpc, chi_rec_over_curvature_radius, clone_distance_unit ("chi_rec" flat,
+    "curvature_radius" curved) and pairs (:meth:`CirclePair.as_dict`, angles in degrees).
+    """
+    sc = scenario
+    if pairs is None:
+        pairs = predict_circles(sc.space, sc.observer, sc.chi)
+    return {
+        "family": sc.space.family,
+        "params": sc.space.params,
+        "geometry": sc.space.geometry,
+        "chi_rec_mpc": sc.cosmology.chi_rec_mpc,
+        "chi_rec_over_curvature_radius": sc.cosmology.chi_rec_over_curvature_radius,
+        "clone_distance_unit": "chi_rec" if sc.space.geometry == "flat" else "curvature_radius",
+        "pairs": [p.as_dict() for p in pairs],
+    }

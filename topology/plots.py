@@ -5,13 +5,17 @@ from __future__ import annotations
 import numpy as np
 
 
-def _mpl():
+def pyplot():
+    """matplotlib.pyplot on the Agg backend (files only, no display needed)."""
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
     return plt
+
+
+_mpl = pyplot   # the former name, while topology.report still imports it
 
 
 def circle_lonlat(center, radius, n=361):
@@ -27,7 +31,7 @@ def circle_lonlat(center, radius, n=361):
 
 def draw_circles(ax, pairs, cmap="tab10"):
     """Draw each pair (A solid, B dashed) on a Mollweide axis; longitudes grow to the left."""
-    plt = _mpl()
+    plt = pyplot()
     colors = plt.get_cmap(cmap)
     for i, p in enumerate(pairs):
         c = colors(i % 10)
@@ -40,7 +44,7 @@ def draw_circles(ax, pairs, cmap="tab10"):
 
 
 def plot_circles(pairs, path, title=""):
-    plt = _mpl()
+    plt = pyplot()
     fig = plt.figure(figsize=(9, 5))
     ax = fig.add_subplot(111, projection="mollweide")
     ax.grid(True, alpha=0.3)

@@ -11,11 +11,12 @@ from ..errors import InputError
 
 
 def print_json(obj) -> None:
-    json.dump(obj, sys.stdout, indent=2, allow_nan=False, default=_default)
+    json.dump(obj, sys.stdout, indent=2, allow_nan=False, default=json_default)
     sys.stdout.write("\n")
 
 
-def _default(o):
+def json_default(o):
+    """``default=`` of json.dump for numpy scalars and arrays (TypeError for anything else)."""
     import numpy as np
 
     if isinstance(o, np.generic):

@@ -13,32 +13,19 @@ def add_arguments(p):
     p.add_argument("--plot", metavar="FILE", help="draw the circles on a Mollweide map (PNG or PDF)")
 
 
-def prediction(cfg) -> dict:
-    from ..circles import predict_circles
-    from ..scenario import scenario_from_config
-
-    sc = scenario_from_config(cfg)
-    pairs = predict_circles(sc.space, sc.observer, sc.chi)
-    return {
-        "family": sc.space.family,
-        "params": sc.space.params,
-        "geometry": sc.space.geometry,
-        "chi_rec_mpc": sc.cosmology.chi_rec_mpc,
-        "chi_rec_over_curvature_radius": sc.cosmology.chi_rec_over_curvature_radius,
-        "clone_distance_unit": "chi_rec" if sc.space.geometry == "flat" else "curvature_radius",
-        "pairs": [p.as_dict() for p in pairs],
-    }, pairs
-
-
 def run(args):
+    from ..circles import predict_circles, prediction_json
     from ..config import load_config, naming_file
+    from ..scenario import scenario_from_config
     from ._common import atomic_write, check_writable, print_json
 
     cfg = load_config(args.config)
     if args.plot:
         check_writable(args.plot, "plot")
     with naming_file(cfg):  # errors about a key name the config file too
-        out, pairs = prediction(cfg)
+        sc = scenario_from_config(cfg)
+        pairs = predict_circles(sc.space, sc.observer, sc.chi)
+        out = prediction_json(sc, pairs)
     if args.plot:
         from ..plots import plot_circles
 

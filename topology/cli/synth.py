@@ -96,7 +96,7 @@ def _run(args, cfg):
     from pathlib import Path
 
     from ..errors import InputError
-    from ._common import _default, atomic_write, check_writable, print_json
+    from ._common import atomic_write, check_writable, json_default, print_json
 
     if args.modes:
         table = mode_table(cfg, args.kmax)
@@ -130,7 +130,7 @@ def _run(args, cfg):
     # everything is computed before the first file is written
     png = preview_png(res.map, res.pairs, title=f"{res.sky.meta.get('family', 'isotropic')} "
                       f"{res.sky.meta.get('params', {})}, seed {params['seed']}") if args.preview else None
-    doc = json.dumps(pairs_document(cfg, res), indent=2, allow_nan=False, default=_default) + "\n" \
+    doc = json.dumps(pairs_document(cfg, res), indent=2, allow_nan=False, default=json_default) + "\n" \
         if args.pairs else None
     atomic_write(args.out, _readable(lambda tmp: write_fits(tmp, res.map, res.header, dtype=args.dtype)))
     if mpath is not None:

@@ -10,9 +10,9 @@ from ..geometry import lonlat_to_vec
 
 
 def plot_search(result: dict, path, n_pairs: int = 5) -> None:
-    from ..plots import _mpl, draw_circles
+    from ..plots import draw_circles, pyplot
 
-    plt = _mpl()
+    plt = pyplot()
     fig = plt.figure(figsize=(11, 4.2))
     ax1 = fig.add_subplot(1, 2, 1)
     for name, style in (("same", "o-"), ("opposite", "s--")):

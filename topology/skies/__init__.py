@@ -13,7 +13,8 @@ over configs:
 Method "auto": flat spaces use the eigenmode sum for lmax <= AUTO_EIGENMODE_LMAX and the grid
 above it; spherical spaces always use the eigenmode sum ("grid" is an error there). The
 non-compact flat families E11-E17 get the sky of a periodic cover of their open directions
-(period 6 chi_rec by default, no added circle pairs; :func:`topology.skies.flat.compact_cover`).
+(period 6 chi_rec by default, no added circle pairs;
+:func:`topology.skies.flat_modes.compact_cover`).
 """
 
 from __future__ import annotations

@@ -26,6 +26,7 @@ import numpy as np
 
 from ..errors import InputError
 from .base import Sky, stream_rng
+from .legendre import legendre_table
 
 MAX_NSIDE = 4096
 
@@ -47,17 +48,6 @@ def check_lmax(lmax, nside: int, where: str = "[sky] lmax") -> int:
     return int(lmax)
 
 
-def _legendre_table(x: np.ndarray, lmax: int) -> np.ndarray:
-    """P_l(x) for l = 0..lmax by Bonnet's recurrence, shape (lmax + 1, len(x))."""
-    p = np.empty((lmax + 1, len(x)))
-    p[0] = 1.0
-    if lmax >= 1:
-        p[1] = x
-    for ell in range(2, lmax + 1):
-        p[ell] = ((2 * ell - 1) * x * p[ell - 1] - (ell - 1) * p[ell - 2]) / ell
-    return p
-
-
 def _pixel_window_sq(nside: int, lmax: int, sub: int, ring: np.ndarray) -> np.ndarray:
     """Mean over pixels ``ring`` of (1/s^4) sum_{ij} P_l(n_i . n_j), n_i the s^2 sub-pixel centres."""
     nest = hp.ring2nest(nside, ring)
@@ -77,7 +67,7 @@ def _pixel_window_sq(nside: int, lmax: int, sub: int, ring: np.ndarray) -> np.nd
         f = u - i0
         w += 2.0 * (np.bincount(i0, 1.0 - f, nodes) + np.bincount(i0 + 1, f, nodes))  # linear weights
     w[0] += len(nest) * s2
-    return _legendre_table(np.cos(np.arange(nodes) * dt), lmax) @ w / (len(nest) * s2 * s2)
+    return legendre_table(np.cos(np.arange(nodes) * dt), lmax) @ w / (len(nest) * s2 * s2)
 
 
 @functools.lru_cache(maxsize=16)

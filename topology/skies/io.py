@@ -136,9 +136,9 @@ def preview_png(m: np.ndarray, pairs, title: str = "", n_lon: int = 900) -> byte
     """
     import healpy as hp
 
-    from ..plots import _mpl, draw_circles
+    from ..plots import draw_circles, pyplot
 
-    plt = _mpl()
+    plt = pyplot()
     nside = hp.npix2nside(len(m))
     lon = np.linspace(-np.pi, np.pi, n_lon)
     lat = np.linspace(-np.pi / 2, np.pi / 2, n_lon // 2)
@@ -163,12 +163,12 @@ def preview_png(m: np.ndarray, pairs, title: str = "", n_lon: int = 900) -> byte
 
 
 def pairs_document(cfg, res) -> dict:
-    """The predicted pairs in the contract of ``topology predict --json``."""
+    """The predicted pairs in the contract of ``topology predict --json``
+    (:func:`topology.circles.prediction_json`; an isotropic sky has none)."""
     if res.scenario is not None:
-        from ..cli.predict import prediction
+        from ..circles import prediction_json
 
-        out, _ = prediction(cfg)
-        return out
+        return prediction_json(res.scenario, res.pairs)
     from ..scenario import cosmology_from_config
 
     cosmo = cosmology_from_config(cfg)

@@ -60,7 +60,7 @@ from .. import geometry as geo
 from ..errors import InputError
 from . import default_kmax
 from .base import Sky, stream_rng
-from .instrument import _legendre_table
+from .legendre import legendre_table
 from .s3_harmonics import (
     InvariantProjector, gauss_legendre_grid, grid_to_alm, invariant_ranks, projectors,
     wigner_stack, zonal_s3,
@@ -335,7 +335,7 @@ def s3_sachs_wolfe_cl(cosmology, lmax: int, kmax: int) -> np.ndarray:
     t_uk = cosmology.t_cmb * 1e6
     x, w = np.polynomial.legendre.leggauss((kmax + lmax) // 2 + 1)
     cos_psi = math.cos(chi) ** 2 + math.sin(chi) ** 2 * x
-    pl = _legendre_table(x, lmax)
+    pl = legendre_table(x, lmax)
     var = np.zeros(kmax + 1)
     var[KMIN:] = mode_variance(np.arange(KMIN, kmax + 1), cosmology.curvature_radius_mpc)
     corr = np.zeros(len(x))
