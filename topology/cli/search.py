@@ -69,15 +69,17 @@ def settings_for(args, cfg):
 
 
 def read_inputs(args, settings):
-    """Map and mask as SkyMaps, checked (readable, ordering, column, not constant, enough sky)
-    before any work; notes on stderr say what was done to them."""
+    """Map and mask as SkyMaps, checked (readable, ordering, column, values, not constant, not
+    coarser than the working N_side, enough sky) before any work; notes on stderr say what was
+    done to them."""
     from ..errors import InputError
-    from ..maps import check_sky_fraction, read_healpix
+    from ..maps import check_resolution, check_sky_fraction, read_healpix
 
     if not 0 <= args.min_sky_fraction < 1:
         raise InputError(f"must lie in [0, 1), got {args.min_sky_fraction:g}", "--min-sky-fraction")
     hint = "--ordering (or [search] ordering in the config)"
     sky = read_healpix(args.map, field=args.field, ordering=settings.ordering, what="map", ordering_from=hint)
+    check_resolution(sky, settings.nside_work)
     mask = read_healpix(args.mask, ordering=settings.ordering, what="mask", ordering_from=hint) if args.mask else None
     check_sky_fraction(sky, mask, args.min_sky_fraction, threshold=settings.mask_threshold,
                        setting="--min-sky-fraction")

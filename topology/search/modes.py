@@ -250,6 +250,10 @@ class _Hierarchical(Mode):
         ca, cb = centers[ca], cb if self.antipodal else centers[cb]
         info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "m_cut": int(m_cut),
                      "kept": int(len(orient))})
+        none = {"radius_deg": key, "candidates": [], "s_max": {}, "work": work, "skipped_circles": skipped,
+                "levels": info}  # no usable pair at this radius (e.g. every S undefined): no candidates
+        if len(orient) == 0:
+            return none
         # refinement levels ------------------------------------------------------------------
         s_val = twist = None
         for depth, (prev, lv) in enumerate(zip(levels[:-1], levels[1:])):
@@ -257,6 +261,8 @@ class _Hierarchical(Mode):
             ca, cb, orient, s_val, twist, m_cut, n_skip = self.refine(ctx, lv, prev, radius, ca, cb, orient, work, keep)
             info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "m_cut": int(m_cut),
                          "kept": int(len(orient))})
+            if len(orient) == 0:
+                return none
         if s_val is None:  # a single level: evaluate the coarse candidates exactly
             ca, cb, orient, s_val, twist, m_cut, n_skip = self.refine(ctx, levels[0], None, radius, ca, cb, orient, work,
                                                                       s.n_keep)
@@ -273,6 +279,8 @@ class _Hierarchical(Mode):
             order = list(sel[distinct(ca[sel], cb[sel], self._rank[sel], s.n_report, reach)])
             cs = sel[self._cut[sel]]  # and the best cut pairs by S
             order += [i for i in cs[distinct(ca[cs], cb[cs], s_val[cs], s.n_report, reach)] if i not in order]
+            if not order:  # every pair of this orientation has an undefined score
+                continue
             name = st.ORIENTATION_NAME[o]
             # S_max: the ranking score of the best pair, the full-circle S of the same chance
             # probability (its S for full circles): a short overlap of high S then does not set the
@@ -306,6 +314,9 @@ class _Hierarchical(Mode):
         import healpy as hp
 
         s = ctx.settings
+        if len(ca) == 0:  # nothing to refine: no candidates (not an error)
+            self._cut, self._rank, self._overlap = np.zeros(0, bool), np.zeros(0), np.zeros(0)
+            return np.zeros((0, 3)), np.zeros((0, 3)), np.zeros(0, int), np.zeros(0), np.zeros(0), 0, 0
         reach = prev.step if prev is not None else 0.0
         pix_a, pix_b, ori = [], [], []
         for a, b, o in zip(ca, cb, orient):
@@ -487,6 +498,9 @@ def allpairs_top(a: np.ndarray, centers: np.ndarray, valid: np.ndarray, n_tau: i
     the coarse kernel, see the module docstring).
     """
     n = a.shape[0]
+    peak = float(np.max(np.abs(a))) if a.size else 0.0
+    if 0.0 < peak < np.inf:  # S is scale-free: a power-of-two scale (exact) keeps the float32 kernel
+        a = a * 2.0 ** -np.frexp(peak)[1]  # from under- or overflowing on a map in tiny or huge units
     norms = np.sum(np.abs(a) ** 2, axis=1).astype(np.float32)
     cols_all = st.column_matrix(a)  # (2M, 2n)
     cos_min = math.cos(min_sep)
