@@ -19,7 +19,7 @@ import time
 
 from topology.config import config_from_dict
 from topology.execution import LocalEngine, Task
-from topology.pipeline import build_tasks, plan_from_config
+from topology.run import build_tasks, plan_from_config
 
 
 def measured(fn, kwargs):
@@ -47,7 +47,7 @@ def warm_up() -> int:
     import healpy  # noqa: F401
     import scipy.special  # noqa: F401
 
-    import topology.pipeline  # noqa: F401
+    import topology.run.tasks  # noqa: F401
     import topology.search.engine  # noqa: F401
     import topology.skies.isotropic  # noqa: F401
 

@@ -11,7 +11,7 @@ from topology import geometry as geo
 from topology.cli import main
 from topology.config import load_config
 from topology.cosmology import Cosmology
-from topology.pipeline import plan_from_config
+from topology.run import plan_from_config
 from topology.scenario import scenario_from_config
 from topology.skies import sky_params
 from topology.spaces import seifert_weber as sw

@@ -18,13 +18,13 @@ from topology.cli import main
 from topology.config import config_from_dict
 from topology.errors import InputError
 from topology.maps import UNSEEN, as_skymap, check_sky_fraction, mask_weights, prepare_map, read_healpix
-from topology.pipeline import plan_from_config
+from topology.run import plan_from_config
 
 NSIDE = 16
 NPIX = 12 * NSIDE**2
 FAST = ["--nside-work", "16", "--m-max", "12", "--fwhm", "6", "--radii", "30"]
-# `topology run` reads its map and mask files when it makes the plan (pipeline._check_files); the
-# regrade note and notes held back before a refusal there need a further pipeline.py change
+# `topology run` reads its map and mask files when it makes the plan (run.plan.read_map_files);
+# the regrade note and notes held back before a refusal there need a further change
 # (issue 7 report): strict, so the marker goes once it is made.
 
 

@@ -11,7 +11,7 @@ import pytest
 import topology.store as store_mod
 from topology.cli import main
 from topology.config import config_from_dict
-from topology.pipeline import plan_from_config, run
+from topology.run import plan_from_config, run
 
 SMALL = {
     "maps": [{"name": "iso", "space": {"family": "isotropic"}, "sky": {"seed": 4}}],
@@ -105,12 +105,12 @@ def test_disk_full_part_way_keeps_a_valid_store_and_resume_finishes(tmp_path, ca
 
 
 def test_report_write_failure_keeps_store_and_no_summary(tmp_path, capsys, monkeypatch):
-    import topology.pipeline as pipeline
+    import topology.run.scan as scan
 
     def no_space(*args, **kwargs):
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 
-    monkeypatch.setattr(pipeline, "write_report", no_space)
+    monkeypatch.setattr(scan, "write_report", no_space)
     cfg = tmp_path / "run.toml"
     cfg.write_text(_toml(SMALL))
     out = tmp_path / "out"

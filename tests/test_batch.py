@@ -16,7 +16,7 @@ import pytest
 from test_pipeline import TINY, _strip, _toml
 from topology.cli import main
 from topology.config import load_config
-from topology.pipeline import build_tasks, plan_from_config, run
+from topology.run import build_tasks, plan_from_config, run
 
 _DRIVER = "import sys; from topology.cli import main; sys.exit(main(sys.argv[1:]))"
 

@@ -10,7 +10,7 @@ import pytest
 
 from topology.circles import predict_circles
 from topology.config import load_config
-from topology.pipeline import plan_from_config, run
+from topology.run import plan_from_config, run
 from topology.scenario import scenario_from_config
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -105,7 +105,7 @@ def _stop_at_two(x):
 def test_recorded_stop_ends_the_run_at_the_next_task(tmp_path):
     from topology.errors import clear_stop
     from topology.execution import SerialEngine
-    from topology.pipeline import run_tasks
+    from topology.execution import run_tasks
 
     store = TaskStore(tmp_path / "store", "h", resume=False)
     tasks = [Task(f"t{i}", _stop_at_two, {"x": i}) for i in range(5)]

@@ -68,7 +68,8 @@ def test_spherical_injection_task_runs_and_finds_its_circles(tmp_path):
     import json
 
     from topology.config import config_from_dict
-    from topology.pipeline import _nside_hint, _plan_dict, plan_from_config, task_injection
+    from topology.run import plan_from_config
+    from topology.run.tasks import task_injection
 
     data = {
         "maps": [{"name": "iso", "space": {"family": "isotropic"}}],
@@ -79,7 +80,7 @@ def test_spherical_injection_task_runs_and_finds_its_circles(tmp_path):
         "execution": {"engine": "serial"},
     }
     plan = plan_from_config(config_from_dict(json.loads(json.dumps(data))), tmp_path / "out")
-    res = task_injection(_plan_dict(plan, _nside_hint(plan)), 45.0, 0, "inj/45/0000")
+    res = task_injection(plan, 45.0, "inj/45/0000")
     assert res["omega_k"] < 0
     smax = np.asarray(res["s_max"])
     i = int(np.argmin(np.abs(plan.radii_deg - res["radius_true_deg"])))

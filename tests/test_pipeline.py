@@ -10,7 +10,7 @@ import pytest
 from topology.cli import main
 from topology.config import config_from_dict
 from topology.execution import make_engine
-from topology.pipeline import build_tasks, plan_from_config, run
+from topology.run import build_tasks, plan_from_config, run
 from topology.store import MemoryStore
 
 TINY = {
@@ -102,7 +102,7 @@ def test_resume_after_partial_store_recomputes_only_missing(tmp_path):
     tasks = build_tasks(plan)
     store = MemoryStore()
     for t in tasks[:5]:
-        store.put(t.id, t.fn(**t.kwargs))
+        store.put(t.id, t.fn(**t.kwargs), t.key)
     res = run(plan, store=store)
     assert res["provenance"]["tasks"] == {"total": len(tasks), "computed": len(tasks) - 5, "reused_from_store": 5}
 
@@ -112,16 +112,15 @@ def test_false_alarm_rate_on_fresh_null_skies(tmp_path):
     # the nominal rate, within the binomial errors of calibration and test (common practice).
     from topology import significance as sig
     from topology.execution import Task
-    from topology.pipeline import _nside_hint, _plan_dict, task_null
+    from topology.run.tasks import null_id, task_null
 
     data = json.loads(json.dumps(TINY))
     data["significance"].update(n_null=49, false_alarm=0.1)
     data["search"]["radii"] = "20:60:10"
     data["search"]["n_keep"] = 8  # the rate holds for any search settings; fewer candidates run faster
     plan = _plan(tmp_path, data)
-    pd = _plan_dict(plan, _nside_hint(plan))
     n_cal, n_fresh = 49, 120
-    tasks = [Task(f"null/{i:05d}", task_null, {"plan_d": pd, "index": i, "task_id": f"null/{i:05d}"})
+    tasks = [Task(null_id(i), task_null, {"plan": plan, "task_id": null_id(i)})
              for i in range(n_cal + n_fresh)]
     eng = make_engine("local", 2)
     try:

@@ -8,7 +8,6 @@ import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import healpy as hp
@@ -18,7 +17,7 @@ import pytest
 from test_bad_input_run import SMALL, _one_line_error, _strip, _toml
 from topology.cli import main
 from topology.config import load_config
-from topology.run_folder import MARKER
+from topology.run.output import MARKER
 
 NSIDE = 8
 
@@ -117,7 +116,7 @@ def test_force_replaces_a_run_folder_and_follows_symlinks(tmp_path, user_folder,
 
 _HOLDER = """
 import sys, time
-from topology.run_folder import claim
+from topology.run.output import claim
 folder = claim(sys.argv[1])
 print("claimed", flush=True)
 time.sleep(120)
@@ -238,7 +237,8 @@ def test_config_with_a_byte_order_mark_is_read(tmp_path):
 
 
 def test_a_run_that_finished_nothing_leaves_an_empty_folder_empty(tmp_path, capsys, monkeypatch):
-    import topology.pipeline as pipeline
+    import topology.run as run_module
+    import topology.run.tasks as tasks
 
     cfg = _files_config(tmp_path)
     out = tmp_path / "empty"
@@ -247,11 +247,11 @@ def test_a_run_that_finished_nothing_leaves_an_empty_folder_empty(tmp_path, caps
     def stop(*a, **k):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(pipeline, "task_data", stop)
+    monkeypatch.setattr(tasks, "task_data", stop)
     with pytest.raises(KeyboardInterrupt):
-        pipeline.run(pipeline.plan_from_config(load_config(cfg), out))
+        run_module.run(run_module.plan_from_config(load_config(cfg), out))
     assert out.is_dir() and list(out.iterdir()) == []
     missing = tmp_path / "missing"
     with pytest.raises(KeyboardInterrupt):
-        pipeline.run(pipeline.plan_from_config(load_config(cfg), missing))
+        run_module.run(run_module.plan_from_config(load_config(cfg), missing))
     assert not missing.exists()

@@ -10,7 +10,7 @@ import pytest
 from topology import significance as sig
 from topology.config import config_from_dict
 from topology.errors import InputError
-from topology.pipeline import plan_from_config, run
+from topology.run import plan_from_config, run
 
 TARGETED = {
     "cosmology": {"omega_k": -0.03},

@@ -438,7 +438,7 @@ def _int_option(v, where: str, minimum: int) -> int:
     return int(v)
 
 
-def bound_summary(alpha_min_deg: float, cosmology: Cosmology | None = None, config=None, *,
+def bound_summary(alpha_min_deg: float, cosmology: Cosmology | None = None, *,
                   space: Space | None = None, observer: geo.Observer | None = None,
                   p_max: int = DEFAULT_P_MAX, m_max: int = DEFAULT_M_MAX,
                   n_positions: int = DEFAULT_POSITIONS, seed: int = 0) -> dict:
@@ -448,12 +448,9 @@ def bound_summary(alpha_min_deg: float, cosmology: Cosmology | None = None, conf
     {min_loop_over_lss_diameter, min_loop_mpc, cubic_torus_inscribed_radius_over_chi_rec,
     cubic_torus_min_side_over_chi_rec, configured (when a flat space is given)}, spherical (rows
     of :func:`spherical_family_bounds`), spherical_configured / hyperbolic (when such a space is
-    given). ``config`` (a :class:`topology.config.Config`) supplies the background unless
-    ``cosmology`` is given, and an optional [space] and [observer]; ``space``/``observer``
-    override it.
+    given). Without ``cosmology`` the default background; a ``space`` without ``observer`` is
+    seen from its origin.
     """
-    from .scenario import cosmology_from_config, observer_from_config
-
     try:
         a_deg = float(alpha_min_deg)
     except (TypeError, ValueError):
@@ -462,12 +459,8 @@ def bound_summary(alpha_min_deg: float, cosmology: Cosmology | None = None, conf
     p_max = _int_option(p_max, "--p-max", 2)
     m_max = _int_option(m_max, "--m-max", 2)
     if cosmology is None:
-        cosmology = cosmology_from_config(config) if config is not None else Cosmology()
+        cosmology = Cosmology()
     chi_rec = cosmology.chi_rec_mpc
-    if space is None and config is not None and config.has("space"):
-        space = build_space(config.section("space"), chi_rec_mpc=chi_rec, base_dir=config.base_dir)
-        if observer is None:
-            observer = observer_from_config(config, space, cosmology)
     if space is not None and observer is None:
         observer = geo.Observer.make(space.geometry, geo.origin(space.geometry)[:3] if space.geometry == "flat"
                                      else geo.origin(space.geometry))

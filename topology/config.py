@@ -4,8 +4,10 @@ A config is a TOML file of sections. Each known section has a schema here: the k
 their types and defaults, and a line of documentation (printed by ``topology keys``). Unknown
 sections and keys are errors with a did-you-mean; wrong types are errors that name the key.
 Family-specific keys of ``[space]`` are checked by :mod:`topology.spaces.registry`.
-:func:`load_config` then runs :func:`check_config` (background, spaces, observers, inline skies,
-[bounds] families) so that a bad file stops before any work, with the file named in the error.
+:func:`load_config` reads and checks against the schema only; this module imports nothing of
+the project but its errors. What needs the theory (the background, spaces, observers) is checked
+where it is built: :func:`topology.scenario.check_config` for every command, and the run plan
+(:mod:`topology.run.plan`) for inline skies and ``[bounds] families``.
 """
 
 from __future__ import annotations
@@ -242,11 +244,6 @@ def _cross_check(name: str, entry: dict, where: str) -> None:
                              f"{where}: [{name}] lmax")
 
 
-def register_section(name: str, keys: dict[str, Key]) -> None:
-    """Add a section schema (used by stages that bring their own config sections)."""
-    SCHEMA[name] = keys
-
-
 def toml_loads(text: str) -> dict:
     """TOML text to a dict; a leading UTF-8 byte-order mark (written by some editors) is dropped."""
     return _toml.loads(text.removeprefix("\ufeff"))
@@ -258,7 +255,6 @@ class Config:
 
     sections: dict
     path: Path | None = None
-    raw: str = ""
 
     @property
     def base_dir(self) -> Path:
@@ -279,12 +275,12 @@ class Config:
         return name in self.sections
 
 
-def _did_you_mean(word: str, options) -> str:
+def did_you_mean(word: str, options) -> str:
     close = difflib.get_close_matches(word, sorted(options), n=1)
     return f" (did you mean {close[0]!r}?)" if close else ""
 
 
-def _type_ok(value, types) -> bool:
+def type_ok(value, types) -> bool:
     if isinstance(value, bool):
         return bool in types
     return isinstance(value, types)
@@ -294,7 +290,7 @@ def validate(data: dict, where: str = "config") -> dict:
     """Check sections and keys against :data:`SCHEMA`; return the data unchanged."""
     for name, sec in data.items():
         if name not in SCHEMA:
-            raise InputError(f"unknown section [{name}]{_did_you_mean(name, SCHEMA)}", where)
+            raise InputError(f"unknown section [{name}]{did_you_mean(name, SCHEMA)}", where)
         schema = SCHEMA[name]
         entries = sec if isinstance(sec, list) else [sec]
         for entry in entries:
@@ -302,9 +298,9 @@ def validate(data: dict, where: str = "config") -> dict:
                 raise InputError(f"[{name}] must be a table", where)
             for key, value in entry.items():
                 if key not in schema:
-                    raise InputError(f"unknown key{_did_you_mean(key, schema)}", f"{where}: [{name}] {key}")
+                    raise InputError(f"unknown key{did_you_mean(key, schema)}", f"{where}: [{name}] {key}")
                 spec = schema[key]
-                if not _type_ok(value, spec.types):
+                if not type_ok(value, spec.types):
                     want = " or ".join(t.__name__ for t in spec.types)
                     raise InputError(f"must be {want}, got {type(value).__name__} {value!r}", f"{where}: [{name}] {key}")
                 if isinstance(value, float) and not math.isfinite(value):
@@ -323,7 +319,9 @@ def validate(data: dict, where: str = "config") -> dict:
 
 
 def load_config(path: str | Path) -> Config:
-    """Read and validate a TOML config file."""
+    """Read a TOML config file and check it against the schema (sections, keys, types, ranges).
+    What needs more than the schema (spaces, observers, the background) is checked where it is
+    built: :func:`topology.scenario.check_config`, and the run plan for a run."""
     p = Path(path)
     try:
         text = p.read_text(encoding="utf-8-sig")  # -sig: a byte-order mark is not part of the TOML
@@ -336,9 +334,7 @@ def load_config(path: str | Path) -> Config:
     except _toml.TOMLDecodeError as e:
         raise InputError(f"not valid TOML ({e})", str(p)) from None
     validate(data, str(p))
-    cfg = Config(data, p, text)
-    check_config(cfg)
-    return cfg
+    return Config(data, p)
 
 
 @contextmanager
@@ -353,7 +349,7 @@ def naming_file(cfg: Config | None):
         raise
 
 
-def _rename(e: InputError, prefix: str, strip: str = "") -> InputError:
+def rename_error(e: InputError, prefix: str, strip: str = "") -> InputError:
     """The same error with ``prefix`` in front of its key (``strip`` removed from the key first)."""
     key = e.where or ""
     if strip and key.startswith(strip):
@@ -365,130 +361,10 @@ def _rename(e: InputError, prefix: str, strip: str = "") -> InputError:
     return InputError(e.reason, f"{prefix} {key}")
 
 
-def check_config(cfg: Config) -> None:
-    """Checks of a loaded config that need more than the schema, run before any work: the
-    background cosmology, the family, parameters and observer of every space ([space],
-    [[maps]] inline skies, [bounds] families), band limits of inline skies. Errors name the file.
-    """
-    with naming_file(cfg):
-        _check_config(cfg)
-
-
-def _check_config(cfg: Config) -> None:
-    from .cosmology import Cosmology, cosmology_from_section
-    from .spaces import build_space
-
-    data = cfg.sections
-    spaces = "space" in data or "maps" in data or data.get("bounds", {}).get("families")
-    if not ("cosmology" in data or spaces):
-        return
-    cosmo = cosmology_from_section(data.get("cosmology", {})) if "cosmology" in data else Cosmology()
-    if "space" in data:
-        _check_scenario(cfg.section("space"), cfg.section("observer") if "observer" in data else None,
-                        cosmo, cfg.base_dir, curvature=False)
-
-    maps = data.get("maps", [])
-    maps = [maps] if isinstance(maps, dict) else maps
-    inst = data.get("instrument", {})
-    for i, e in enumerate(maps):
-        if "space" not in e:
-            continue
-        where = f"[[maps]] #{i + 1}"
-        try:
-            _check_scenario(e["space"], e.get("observer"), cosmo, cfg.base_dir, curvature=True,
-                            sky=e.get("sky", {}))
-        except InputError as err:
-            raise _rename(err, where) from None
-        sky = e.get("sky", {})
-        if "lmax" in sky or "lmax" in inst:
-            nside = sky.get("nside", inst.get("nside", 64))
-            lmax = sky.get("lmax", inst.get("lmax"))
-            if lmax > 3 * nside - 1:
-                key = f"{where} sky lmax" if "lmax" in sky else "[instrument] lmax"
-                raise InputError(f"the inline sky {e.get('name', '')!r} has nside {nside}, which supports lmax <= "
-                                 f"3 nside - 1 = {3 * nside - 1}, got lmax {lmax}", key)
-
-    for i, fam in enumerate(data.get("bounds", {}).get("families", [])):
-        where = f"[bounds] families #{i + 1}"
-        if not isinstance(fam, dict):
-            raise InputError('each family is a table like {family = "lens", p = 8, q = 3}', where)
-        spec = {k: v for k, v in fam.items() if k not in ("position", "orientation")}
-        try:
-            if spec.get("family") == "isotropic":
-                raise InputError("a bound needs a multiply connected family, not 'isotropic'", "[space] family")
-            space = build_space(spec, chi_rec_mpc=cosmo.chi_rec_mpc, base_dir=cfg.base_dir)
-        except InputError as err:
-            if err.where and err.where.startswith("[space] ") and "unknown key" in err.reason:
-                # family keys plus the observer's position and orientation
-                from .spaces.registry import allowed_keys
-
-                key = err.where[len("[space] "):]
-                ok = sorted(allowed_keys(spec["family"]) | {"position", "orientation"})
-                raise InputError(f"unknown key for family {spec['family']}{_did_you_mean(key, ok)}; "
-                                 f"allowed: {', '.join(ok)}", f"{where} {key}") from None
-            raise _rename(err, where, "[space] ") from None
-        try:
-            obs = _bound_observer(space, fam)
-            if space.geometry == "hyperbolic":
-                from .bounds import shortest_displacement
-
-                shortest_displacement(space, obs)  # a fixed point of the group raises here
-        except InputError as err:
-            raise _rename(err, where, "[observer] ") from None
-
-
-def _bound_observer(space, fam: dict):
-    """The observer of a [bounds] family: ``position`` (default the origin) and ``orientation``."""
-    from . import geometry as geo
-
-    angles = fam.get("orientation", [0.0, 0.0, 0.0])
-    if not (isinstance(angles, list) and len(angles) == 3 and all(_type_ok(a, NUMBER) for a in angles)):
-        raise InputError(f"must be three Euler angles z-y-z in degrees, got {angles!r}", "[observer] orientation")
-    pos = fam.get("position")
-    if pos is None:
-        pos = geo.origin(space.geometry)[:3] if space.geometry == "flat" else geo.origin(space.geometry)
-    elif not (isinstance(pos, list) and all(_type_ok(a, NUMBER) for a in pos)):
-        raise InputError(f"must be a list of numbers, got {pos!r}", "[observer] position")
-    try:
-        return geo.Observer.make(space.geometry, pos, geo.euler_zyz(*[math.radians(a) for a in angles]))
-    except InputError as err:
-        raise InputError(err.reason, "[observer] position") from None
-
-
-def _check_scenario(space_sec: dict, observer_sec: dict | None, cosmo, base_dir, *, curvature: bool,
-                    sky: dict | None = None) -> None:
-    """Family, parameters and observer of one space table (``isotropic`` takes no parameters);
-    with ``curvature``, also the agreement of the family's geometry with the background and the
-    sky methods available for it (inline skies of a run)."""
-    from .scenario import lss_radius, observer_from_config
-    from .spaces import build_space
-
-    family = space_sec.get("family")
-    if family is None:
-        raise InputError('missing: give a family of space (or "isotropic" for a sky)', "[space] family")
-    if family == "isotropic":
-        extra = sorted(k for k in space_sec if k != "family")
-        if extra:
-            raise InputError(f"the isotropic sky takes no [space] parameters, got {', '.join(extra)}",
-                             f"[space] {extra[0]}")
-        return
-    space = build_space(space_sec, chi_rec_mpc=cosmo.chi_rec_mpc, base_dir=base_dir)
-    sub = Config({"space": space_sec, **({"observer": observer_sec} if observer_sec is not None else {})})
-    observer_from_config(sub, space, cosmo)
-    if curvature:
-        lss_radius(space, cosmo)
-        if space.geometry == "hyperbolic":
-            raise InputError(f"synthetic skies are not available for hyperbolic spaces (family {family})",
-                             "[space] family")
-        if space.geometry == "spherical" and (sky or {}).get("method") == "grid":
-            raise InputError("spherical skies are built from eigenmodes only: use 'eigenmode' or 'auto'",
-                             "[sky] method")
-
-
 def config_from_dict(data: dict, where: str = "config") -> Config:
     """A validated config from a dict (for notebooks and tests)."""
     validate(data, where)
-    return Config(data, None, "")
+    return Config(data, None)
 
 
 def keys_table() -> str:

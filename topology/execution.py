@@ -25,7 +25,7 @@ from typing import Callable, Iterable, Iterator
 
 import numpy as np
 
-from .errors import InputError
+from .errors import InputError, note, raise_if_stopped
 
 ENGINES = ("serial", "local", "dask")
 _THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
@@ -170,3 +170,35 @@ def make_engine(name: str = "local", workers: int | None = None, scheduler: str 
     if name == "local":
         return LocalEngine(workers)
     return DaskEngine(workers, scheduler)
+
+
+def run_tasks(tasks: list[Task], store, engine, show_progress: bool | None = None,
+              label: str = "topology run") -> dict:
+    """Run the tasks that ``store`` has not finished (for their key) on ``engine``, storing each
+    result as it finishes; a task finished from other inputs is run again, with a note.
+
+    Returns {"computed": n, "reused": n, "elapsed_s": t}."""
+    import time
+
+    from .search.progress import progress
+
+    t0 = time.perf_counter()
+    todo = [t for t in tasks if not store.has(t.id, t.key)]
+    stale = sum(store.stale(t.id, t.key) for t in todo)
+    if stale:
+        changed = getattr(store, "changed_inputs", [])
+        what = f" ({', '.join(changed)} changed since they ran)" if changed else ""
+        note(f"{stale} finished task(s) are recomputed: their inputs changed{what}")
+    bar = progress(len(tasks), label, show_progress)
+    bar.update(len(tasks) - len(todo))
+    computed = 0
+    try:
+        keys = {t.id: t.key for t in todo}
+        for tid, result in engine.run(todo):
+            store.put(tid, result, keys[tid])
+            computed += 1
+            bar.update(1)
+            raise_if_stopped()
+    finally:
+        bar.close()
+    return {"computed": computed, "reused": len(tasks) - len(todo), "elapsed_s": time.perf_counter() - t0}

@@ -273,3 +273,9 @@ def vec_to_lonlat(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     lon = np.degrees(np.arctan2(v[..., 1], v[..., 0])) % 360.0
     lat = np.degrees(np.arcsin(np.clip(v[..., 2] / np.linalg.norm(v, axis=-1), -1.0, 1.0)))
     return lon, lat
+
+
+def random_rotation(rng: np.random.Generator) -> tuple[float, float, float]:
+    """Euler angles z-y-z (radians) of a rotation uniform on SO(3): alpha, gamma uniform,
+    cos(beta) uniform (common practice)."""
+    return float(rng.uniform(0, 2 * np.pi)), float(np.arccos(rng.uniform(-1, 1))), float(rng.uniform(0, 2 * np.pi))

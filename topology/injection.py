@@ -84,15 +84,13 @@ def _d_min(space, observer) -> float:
 
 
 def _random_observer(space, rng: np.random.Generator):
-    from .pipeline import random_rotation
-
     if space.geometry == "flat":
         box = max(abs(float(v)) for v in space.params.get("lengths", [1.0]))
         pos = rng.uniform(0.0, box, 3)
     else:
         x = rng.normal(size=4)
         pos = x / np.linalg.norm(x)
-    return pos, geo.euler_zyz(*random_rotation(rng))
+    return pos, geo.euler_zyz(*geo.random_rotation(rng))
 
 
 def check(spec: dict, cosmo, radii_deg, lmax: int) -> None:

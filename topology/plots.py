@@ -15,7 +15,6 @@ def pyplot():
     return plt
 
 
-_mpl = pyplot   # the former name, while topology.report still imports it
 
 
 def circle_lonlat(center, radius, n=361):

@@ -1,6 +1,6 @@
 """The report folder of a run: tables (ECSV, LaTeX), figures (PNG and PDF), a static HTML page.
 
-Everything here reads the plain summary produced by :mod:`topology.pipeline` (dicts and numpy
+Everything here reads the plain summary produced by :mod:`topology.run` (dicts and numpy
 arrays); nothing is recomputed. Files are written atomically; the caller writes the report into
 a temporary folder and renames it into place, so a report is either whole or absent.
 """
@@ -16,7 +16,7 @@ import numpy as np
 from astropy import units as u
 from astropy.table import Table
 
-from .plots import _mpl
+from .plots import pyplot
 
 
 # ---------------------------------------------------------------------------------------------
@@ -61,53 +61,22 @@ def efficiency_table(radii_deg, eff, err, n_inj: int, level: float) -> Table:
     return t
 
 
-def bounds_table_rows(bounds: dict, alpha_min_deg) -> Table:
-    """One row per family: the lower bound on the size of space or on R_c / chi_rec."""
-    rows = []
-    flat = bounds.get("flat") or {}
-    if flat:
-        rows.append(("cubic torus (E1)", "R_i / chi_rec >", flat.get("cubic_torus_inscribed_radius_over_chi_rec", np.nan), np.nan))
-        rows.append(("any flat space", "min loop / (2 chi_rec) >", flat.get("min_loop_over_lss_diameter", np.nan), np.nan))
-    for s in bounds.get("spherical") or []:
-        label = s["family"] + "".join(f" {k}={s[k]}" for k in ("p", "q", "m") if s.get(k) is not None)
-        rows.append((label, "R_c / chi_rec >", s.get("min_curvature_radius_over_chi_rec", np.nan),
-                     s.get("min_omega_k") if s.get("min_omega_k") is not None else np.nan))
-    for s in bounds.get("hyperbolic") or []:
-        rows.append((s.get("name", "hyperbolic"), "R_c / chi_rec >", s.get("min_curvature_radius_over_chi_rec", np.nan),
-                     s.get("max_omega_k") if s.get("max_omega_k") is not None else np.nan))
-    t = Table(rows=rows or None, names=("space", "quantity", "bound", "omega_k_bound"),
-              dtype=("U48", "U32", float, float))
-    t.meta["alpha_min_deg"] = alpha_min_deg
-    return t
-
-
-def latex_bounds(t: Table, caption: str) -> str:
-    """A LaTeX table ready to paste: one row per family, units and confidence in the caption."""
-    lines = [r"\begin{table}", r"\centering", r"\begin{tabular}{llrr}", r"\hline",
-             r"Space & Quantity & Bound & $\Omega_K$ bound \\", r"\hline"]
-    for row in t:
-        ok = "--" if not np.isfinite(row["omega_k_bound"]) else f"{row['omega_k_bound']:.4f}"
-        q = row["quantity"].replace(">", "$>$").replace("chi_rec", r"$\chi_{\rm rec}$").replace("R_c", "$R_c$").replace("R_i", "$R_i$")
-        lines.append(f"{row['space']} & {q} & {row['bound']:.3f} & {ok} \\\\")
-    lines += [r"\hline", r"\end{tabular}", rf"\caption{{{caption}}}", r"\end{table}", ""]
-    return "\n".join(lines)
-
-
 # ---------------------------------------------------------------------------------------------
 # figures
 # ---------------------------------------------------------------------------------------------
-def _save(fig, base: Path) -> list[str]:
+def save_figure(fig, base: Path) -> list[str]:
+    """Save ``fig`` as ``base``.png and ``base``.pdf and close it; returns the file names."""
     out = []
     for ext in ("png", "pdf"):
         p = base.with_suffix("." + ext)
         fig.savefig(p, dpi=110, bbox_inches="tight")
         out.append(p.name)
-    _mpl().close(fig)
+    pyplot().close(fig)
     return out
 
 
 def figure_smax(base: Path, name: str, radii_deg, smax, th, smax_null) -> list[str]:
-    plt = _mpl()
+    plt = pyplot()
     fig, ax = plt.subplots(figsize=(7, 4))
     lo, hi = np.quantile(smax_null, [0.16, 0.84], axis=0)
     lo2, hi2 = np.quantile(smax_null, [0.025, 0.975], axis=0)
@@ -119,7 +88,7 @@ def figure_smax(base: Path, name: str, radii_deg, smax, th, smax_null) -> list[s
     ax.set_ylabel("S_max")
     ax.legend(fontsize=8, loc="best")
     ax.set_title(f"{name}: largest S per radius over {th.n_null} null skies", fontsize=10)
-    return _save(fig, base)
+    return save_figure(fig, base)
 
 
 def figure_sky(base: Path, name: str, sky_map, pairs, title_extra="", mask=None) -> list[str]:
@@ -128,7 +97,7 @@ def figure_sky(base: Path, name: str, sky_map, pairs, title_extra="", mask=None)
 
     from .plots import circle_lonlat
 
-    plt = _mpl()
+    plt = pyplot()
     fig = plt.figure(figsize=(9, 5))
     m = np.array(sky_map, dtype=float)
     bad = ~np.isfinite(m) | (m == hp.UNSEEN)
@@ -148,11 +117,11 @@ def figure_sky(base: Path, name: str, sky_map, pairs, title_extra="", mask=None)
             lon, lat = circle_lonlat(center, p.radius)
             hp.projplot(lon, lat, style, lonlat=True, color=colors(i % 10), lw=1.4)
     hp.graticule(dpar=30, dmer=60, alpha=0.3)
-    return _save(fig, base)
+    return save_figure(fig, base)
 
 
 def figure_efficiency(base: Path, radii_deg, eff, err, level, alpha_min_deg, false_alarm) -> list[str]:
-    plt = _mpl()
+    plt = pyplot()
     fig, ax = plt.subplots(figsize=(7, 4))
     ax.errorbar(radii_deg, eff, yerr=err, fmt="o-", ms=4, capsize=2, label="injected circles recovered")
     ax.axhline(level, color="r", ls="--", label=f"level {level:g}")
@@ -162,14 +131,14 @@ def figure_efficiency(base: Path, radii_deg, eff, err, level, alpha_min_deg, fal
     ax.set_xlabel("injected circle radius [deg]")
     ax.set_ylabel(f"detection efficiency at false alarm {false_alarm:g}")
     ax.legend(fontsize=8)
-    return _save(fig, base)
+    return save_figure(fig, base)
 
 
 def figure_omega_k(base: Path, bounds: dict) -> list[str] | None:
     rows = [s for s in (bounds.get("spherical") or []) if s.get("min_omega_k") is not None]
     if not rows:
         return None
-    plt = _mpl()
+    plt = pyplot()
     labels = [s["family"] + "".join(f" {k}={s[k]}" for k in ("p", "q", "m") if s.get(k) is not None) for s in rows]
     vals = np.array([s["min_omega_k"] for s in rows])
     fig, ax = plt.subplots(figsize=(7, 0.3 * len(rows) + 1.5))
@@ -182,7 +151,7 @@ def figure_omega_k(base: Path, bounds: dict) -> list[str] | None:
     ax.set_xlim(min(vals.min() * 1.3, -1e-3), 0.0)
     ax.legend(fontsize=8)
     ax.set_title("spherical spaces: Omega_K allowed by the circle search", fontsize=10)
-    return _save(fig, base)
+    return save_figure(fig, base)
 
 
 # ---------------------------------------------------------------------------------------------

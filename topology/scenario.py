@@ -11,8 +11,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+import math
+
 from . import geometry as geo
-from .config import Config
+from .config import NUMBER, Config, naming_file, type_ok
 from .cosmology import Cosmology
 from .errors import InputError
 from .spaces import Space, build_space
@@ -82,3 +84,77 @@ def scenario_from_config(cfg: Config) -> Scenario:
     chi = lss_radius(space, cosmo)
     observer = observer_from_config(cfg, space, cosmo)
     return Scenario(cosmo, space, observer, chi)
+
+
+# ---------------------------------------------------------------------------------------------
+# checks of a loaded config that need the theory (run before any work; errors name the file)
+# ---------------------------------------------------------------------------------------------
+def check_config(cfg: Config) -> Config:
+    """The background ([cosmology]) and the family, parameters and observer of ``[space]``;
+    returns ``cfg``. Errors about a key name the config file too."""
+    from .cosmology import cosmology_from_section
+
+    with naming_file(cfg):
+        data = cfg.sections
+        if "cosmology" not in data and "space" not in data:
+            return cfg
+        cosmo = cosmology_from_section(data.get("cosmology", {})) if "cosmology" in data else Cosmology()
+        if "space" in data:
+            check_space_table(cfg.section("space"), cfg.section("observer") if "observer" in data else None,
+                              cosmo, cfg.base_dir, curvature=False)
+    return cfg
+
+
+def check_space_table(space_sec: dict, observer_sec: dict | None, cosmo, base_dir, *, curvature: bool,
+                      sky: dict | None = None) -> None:
+    """Family, parameters and observer of one space table (``isotropic`` takes no parameters);
+    with ``curvature``, also the agreement of the family's geometry with the background and the
+    sky methods available for it (inline skies of a run)."""
+    family = space_sec.get("family")
+    if family is None:
+        raise InputError('missing: give a family of space (or "isotropic" for a sky)', "[space] family")
+    if family == "isotropic":
+        extra = sorted(k for k in space_sec if k != "family")
+        if extra:
+            raise InputError(f"the isotropic sky takes no [space] parameters, got {', '.join(extra)}",
+                             f"[space] {extra[0]}")
+        return
+    space = build_space(space_sec, chi_rec_mpc=cosmo.chi_rec_mpc, base_dir=base_dir)
+    sub = Config({"space": space_sec, **({"observer": observer_sec} if observer_sec is not None else {})})
+    observer_from_config(sub, space, cosmo)
+    if curvature:
+        lss_radius(space, cosmo)
+        if space.geometry == "hyperbolic":
+            raise InputError(f"synthetic skies are not available for hyperbolic spaces (family {family})",
+                             "[space] family")
+        if space.geometry == "spherical" and (sky or {}).get("method") == "grid":
+            raise InputError("spherical skies are built from eigenmodes only: use 'eigenmode' or 'auto'",
+                             "[sky] method")
+
+
+def family_observer(space: Space, family: dict) -> geo.Observer:
+    """The observer of a ``[bounds] families`` entry: ``position`` (default the origin) and
+    ``orientation`` (z-y-z Euler angles in degrees)."""
+    angles = family.get("orientation", [0.0, 0.0, 0.0])
+    if not (isinstance(angles, list) and len(angles) == 3 and all(type_ok(a, NUMBER) for a in angles)):
+        raise InputError(f"must be three Euler angles z-y-z in degrees, got {angles!r}", "[observer] orientation")
+    pos = family.get("position")
+    if pos is None:
+        pos = geo.origin(space.geometry)[:3] if space.geometry == "flat" else geo.origin(space.geometry)
+    elif not (isinstance(pos, list) and all(type_ok(a, NUMBER) for a in pos)):
+        raise InputError(f"must be a list of numbers, got {pos!r}", "[observer] position")
+    try:
+        return geo.Observer.make(space.geometry, pos, geo.euler_zyz(*[math.radians(a) for a in angles]))
+    except InputError as err:
+        raise InputError(err.reason, "[observer] position") from None
+
+
+def bound_inputs(cfg: Config) -> dict:
+    """The background, and the configured space and observer if there is a [space], as keyword
+    arguments of :func:`topology.bounds.bound_summary`."""
+    cosmo = cosmology_from_config(cfg)
+    out = {"cosmology": cosmo}
+    if cfg.has("space"):
+        space = build_space(cfg.section("space"), chi_rec_mpc=cosmo.chi_rec_mpc, base_dir=cfg.base_dir)
+        out.update(space=space, observer=observer_from_config(cfg, space, cosmo))
+    return out

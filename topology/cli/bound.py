@@ -54,8 +54,9 @@ def run(args):
     cfg = None
     if args.config:
         from ..config import load_config
+        from ..scenario import check_config
 
-        cfg = load_config(args.config)
+        cfg = check_config(load_config(args.config))
     kw = {}
     if args.p_max is not None:
         kw["p_max"] = args.p_max
@@ -66,7 +67,11 @@ def run(args):
     from ..config import naming_file
 
     with naming_file(cfg):  # errors about a key name the config file too
-        summary = bounds.bound_summary(a, config=cfg, seed=args.seed, **kw)
+        if cfg is not None:
+            from ..scenario import bound_inputs
+
+            kw.update(bound_inputs(cfg))
+        summary = bounds.bound_summary(a, seed=args.seed, **kw)
     if paths:
         table = bounds.bounds_table(summary)
         ecsv, tex = paths

@@ -16,10 +16,11 @@ def add_arguments(p):
 def run(args):
     from ..circles import predict_circles, prediction_json
     from ..config import load_config, naming_file
+    from ..scenario import check_config
     from ..scenario import scenario_from_config
     from ._common import atomic_write, check_writable, print_json
 
-    cfg = load_config(args.config)
+    cfg = check_config(load_config(args.config))
     if args.plot:
         check_writable(args.plot, "plot")
     with naming_file(cfg):  # errors about a key name the config file too

@@ -44,7 +44,7 @@ def headline(m: dict) -> str:
 
 def run(args):
     from ..config import load_config
-    from ..pipeline import plan_from_config, run as run_plan
+    from ..run import plan_from_config, run as run_plan
 
     if args.workers is not None and args.workers < 1:
         from ..errors import InputError

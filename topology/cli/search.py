@@ -95,11 +95,12 @@ def run(args):
 
 def _run(args):
     from ..config import load_config
+    from ..scenario import check_config
     from ..errors import held_notes
     from ..search.engine import search_read, validate
     from ._common import atomic_write, check_writable, print_json
 
-    cfg = load_config(args.config) if args.config else None
+    cfg = check_config(load_config(args.config)) if args.config else None
     settings = validate(settings_for(args, cfg))
     scenario = None
     if settings.mode == "targeted":

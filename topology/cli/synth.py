@@ -85,8 +85,9 @@ def _readable(write):
 
 def run(args):
     from ..config import load_config, naming_file
+    from ..scenario import check_config
 
-    cfg = load_config(args.config)
+    cfg = check_config(load_config(args.config))
     with naming_file(cfg):  # errors about a key name the config file too
         return _run(args, cfg)
 

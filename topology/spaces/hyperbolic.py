@@ -98,8 +98,11 @@ def read_generators(path: str | Path) -> tuple[list[np.ndarray], dict]:
         raise InputError("cannot read generator file (not UTF-8 text: give a JSON or TOML file)", where) from None
     try:
         if p.suffix.lower() == ".toml":
-            from ..config import toml_loads
-            data = toml_loads(text)
+            try:  # Python >= 3.11
+                import tomllib
+            except ModuleNotFoundError:  # pragma: no cover - Python 3.10
+                import tomli as tomllib
+            data = tomllib.loads(text)
         else:
             data = json.loads(text)
     except Exception as e:  # noqa: BLE001 - any parse failure is the file's fault

@@ -1,4 +1,4 @@
-"""Targeted searches inside ``topology run``: named spaces tested one by one.
+"""The targeted run (``[search] mode = "targeted"``): named spaces tested one by one.
 
 With ``[search] mode = "targeted"`` the run tests each space of ``[search] targets`` (tables in
 the ``[space]`` format, optionally with an observer ``position``; the background is the run's
@@ -21,10 +21,16 @@ of the space (and best observer position), see :class:`topology.search.modes.Tar
 
 from __future__ import annotations
 
+import json
+from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
+from .. import significance as sig
+from ..errors import InputError
+from ..execution import Task, task_seed
+from . import tasks as T
 
 WHERE = "[search] targets"
 _SCENARIOS: dict = {}
@@ -50,10 +56,8 @@ def check_targets(targets, cosmo, base_dir) -> list[dict]:
 
 def _scenario_for(target: dict, cosmo_section, base_dir):
     """The Scenario of one target with the run's cosmology (cached per process)."""
-    import json
-
-    from .config import Config, config_from_dict
-    from .scenario import scenario_from_config
+    from ..config import Config, config_from_dict
+    from ..scenario import scenario_from_config
 
     key = json.dumps([target, cosmo_section, str(base_dir)], sort_keys=True, default=str)
     if key not in _SCENARIOS:
@@ -64,8 +68,6 @@ def _scenario_for(target: dict, cosmo_section, base_dir):
         if "position" in target:
             sections["observer"] = {"position": target["position"]}
         cfg = config_from_dict(sections, WHERE)
-        from pathlib import Path
-
         cfg = Config(cfg.sections, Path(base_dir) / "targets.toml")
         _SCENARIOS[key] = scenario_from_config(cfg)
     return _SCENARIOS[key]
@@ -76,68 +78,54 @@ def target_name(target: dict) -> str:
     return f"{target['family']}({args})" if args else target["family"]
 
 
-def search_targets(values, plan_d: dict, source: str) -> dict:
+def search_targets(values, plan, source: str) -> dict:
     """Search one sky for every target: {"s_comb": (n_targets,), "results": [search results]}."""
-    from .maps import as_skymap
-    from .pipeline import _mask_map
-    from .search.engine import SearchSettings, search_sky
+    from ..maps import as_skymap
 
-    settings = SearchSettings(**{k: (tuple(v) if isinstance(v, list) else v) for k, v in plan_d["search"].items()})
     sky = values if hasattr(values, "observed") else as_skymap(values, source=source)
-    mask = _mask_map(plan_d["mask"], sky.nside)
-    cosmo = plan_d["sections"].get("cosmology", {})
+    cosmo = plan.sections.get("cosmology", {})
     s_comb, results = [], []
-    for t in plan_d["targets"]:
-        sc = _scenario_for(t, cosmo, plan_d["base_dir"])
-        res = search_sky(sky, mask, settings, scenario=sc, show_progress=False, map_name=source)
+    for t in plan.targets:
+        res = T.search_values(sky, plan, source, scenario=_scenario_for(t, cosmo, plan.base_dir))
         v = res.get("targeted", {}).get("S_combined")
         s_comb.append(-1.0 if v is None or not np.isfinite(v) else float(v))
         results.append(res)
     return {"s_comb": np.array(s_comb), "results": results}
 
 
-def task_null(plan_d: dict, index: int, task_id: str) -> dict:
-    from .pipeline import null_map
-
-    m, seed = null_map(plan_d, task_id)
-    return {"s_comb": search_targets(m, plan_d, task_id)["s_comb"], "seed": seed}
+def task_null(plan, task_id: str) -> dict:
+    m, seed = T.null_map(plan, task_id)
+    return {"s_comb": search_targets(m, plan, task_id)["s_comb"], "seed": seed}
 
 
-def task_injection(plan_d: dict, target: int, index: int, task_id: str) -> dict:
+def task_data(plan, name: str) -> dict:
+    """The stored result of a data map's targeted search (JSON-able, per target)."""
+    values, source, nside, extra = T.read_or_make_map(plan, name)
+    out = search_targets(values, plan, source)
+    return {"s_comb": out["s_comb"], "targets": [r.get("targeted", {}) for r in out["results"]],
+            "candidates": [r["candidates"] for r in out["results"]], "nside": nside, **extra}
+
+
+def task_injection(plan, target: int, task_id: str) -> dict:
     """A sky of target space ``target`` itself (random orientation), searched for that target."""
-    from . import geometry as geo
-    from .execution import task_seed
-    from .pipeline import _int_seed, _sim_settings, random_rotation
-    from .skies.instrument import observe
+    from .. import geometry as geo
 
-    nside, lmax = _sim_settings(plan_d, plan_d["nside_hint"])
-    seed = _int_seed(plan_d["significance"]["seed"], task_id)
-    rng = np.random.default_rng(task_seed(plan_d["significance"]["seed"], task_id + "/geometry"))
-    sc = _scenario_for(plan_d["targets"][target], plan_d["sections"].get("cosmology", {}), plan_d["base_dir"])
+    seed = T.int_seed(plan.significance["seed"], task_id)
+    rng = np.random.default_rng(task_seed(plan.significance["seed"], task_id + "/geometry"))
+    sc = _scenario_for(plan.targets[target], plan.sections.get("cosmology", {}), plan.base_dir)
     obs = geo.Observer.make(sc.space.geometry, sc.observer.point[:3] if sc.space.geometry == "flat" else sc.observer.point,
-                            geo.euler_zyz(*random_rotation(rng)))
-    inst = plan_d["instrument"]
-    terms = tuple(inst["terms"])
-    if sc.space.geometry == "flat":
-        from .skies.flat import flat_sky
-
-        sky = flat_sky(sc.space, obs, sc.cosmology, lmax=lmax, nside=nside, method="auto", terms=terms, seed=seed)
-    elif sc.space.geometry == "spherical":
-        from .skies.spherical import spherical_sky
-
-        sky = spherical_sky(sc.space, obs, sc.cosmology, lmax=lmax, nside=nside, terms=terms, seed=seed)
-    else:
+                            geo.euler_zyz(*geo.random_rotation(rng)))
+    if sc.space.geometry == "hyperbolic":
         raise InputError("no synthetic skies for hyperbolic targets yet, so their efficiency cannot be measured",
                          f"{WHERE} #{target + 1}")
-    m = observe(sky, nside=nside, lmax=lmax, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"], seed=seed)
-    one = dict(plan_d, targets=[plan_d["targets"][target]])
-    out = search_targets(m, one, task_id)
+    m = T.simulate(plan, sc.space, obs, sc.cosmology, seed)
+    out = search_targets(m, replace(plan, targets=[plan.targets[target]]), task_id)
     return {"s_comb": float(out["s_comb"][0]), "seed": seed}
 
 
 def check_injectable(targets: list[dict], cosmo_section, base_dir, lmax: int) -> None:
     """Plan-time: every target can be synthesised (flat compact or spherical within kmax)."""
-    from .skies.spherical import check_default_kmax
+    from ..skies.spherical import check_default_kmax
 
     for i, t in enumerate(targets):
         sc = _scenario_for(t, cosmo_section, base_dir)
@@ -151,39 +139,30 @@ def check_injectable(targets: list[dict], cosmo_section, base_dir, lmax: int) ->
             check_default_kmax(lmax, sc.chi, f"a {sc.space.family} sky at chi_rec/R_c = {sc.chi:.3f}", where)
 
 
-def build_tasks(plan, pd: dict) -> list:
-    from .execution import Task
-    from .pipeline import task_data
-
-    tasks = [Task(f"data/{m.name}", task_data, {"plan_d": pd, "name": m.name}) for m in plan.maps]
-    tasks += [Task(f"null/{i:05d}", task_null, {"plan_d": pd, "index": i, "task_id": f"null/{i:05d}"})
-              for i in range(int(plan.significance["n_null"]))]
+def build_tasks(plan) -> list[Task]:
+    out = [Task(T.data_id(m.name), task_data, {"plan": plan, "name": m.name}) for m in plan.maps]
+    out += [Task(T.null_id(i), task_null, {"plan": plan, "task_id": T.null_id(i)}) for i in range(plan.n_null)]
     for k in range(len(plan.targets)):
-        for j in range(int(plan.significance["n_injections"])):
-            tid = f"inj/target{k}/{j:04d}"
-            tasks.append(Task(tid, task_injection, {"plan_d": pd, "target": k, "index": j, "task_id": tid}))
-    return tasks
+        for j in range(plan.n_injections):
+            tid = T.target_injection_id(k, j)
+            out.append(Task(tid, task_injection, {"plan": plan, "target": k, "task_id": tid}))
+    return out
 
 
 def analyse(plan, store) -> dict:
     """Per map and target: S_comb, thresholds, p-values, efficiency, detected / excluded."""
-    from . import significance as sig
-
     targets = plan.targets
     names = [target_name(t) for t in targets]
-    n_null = int(plan.significance["n_null"])
-    fa = float(plan.significance["false_alarm"])
-    level = float(plan.significance["efficiency_level"])
-    null = np.array([store.get(f"null/{i:05d}")["s_comb"] for i in range(n_null)], dtype=float).reshape(n_null, -1)
+    n_null, fa, level, n_inj = plan.n_null, plan.false_alarm, plan.efficiency_level, plan.n_injections
+    null = np.array([store.get(T.null_id(i))["s_comb"] for i in range(n_null)], dtype=float).reshape(n_null, -1)
     th = sig.thresholds(np.arange(len(targets)), null, fa, smooth=False)
-    n_inj = int(plan.significance["n_injections"])
-    inj = np.array([[store.get(f"inj/target{k}/{j:04d}")["s_comb"] for k in range(len(targets))]
+    inj = np.array([[store.get(T.target_injection_id(k, j))["s_comb"] for k in range(len(targets))]
                     for j in range(n_inj)], dtype=float)
     eff, eff_err = sig.efficiency(inj > th.whole_range[None, :])
 
     maps_out, extra = [], {}
     for spec in plan.maps:
-        res = store.get(f"data/{spec.name}")
+        res = store.get(T.data_id(spec.name))
         s = np.asarray(res["s_comb"], float)
         is_detected = bool(np.any(s > th.whole_range))
         p_local = sig.local_p_values(s[None, :], null)[0]
@@ -221,13 +200,6 @@ def analyse(plan, store) -> dict:
             "_injected": inj}
 
 
-def data_result(values, plan_d: dict, source: str) -> dict:
-    """The stored result of a data map's targeted search (JSON-able, per target)."""
-    out = search_targets(values, plan_d, source)
-    return {"s_comb": out["s_comb"], "targets": [r.get("targeted", {}) for r in out["results"]],
-            "candidates": [r["candidates"] for r in out["results"]]}
-
-
 # ---------------------------------------------------------------------------------------------
 # report parts
 # ---------------------------------------------------------------------------------------------
@@ -242,9 +214,8 @@ def tables(analysis: dict, plan):
                                                                                "not excluded")))
     names = ("map", "target", "S_combined", "S_threshold", "p_value", "efficiency", "efficiency_error", "outcome")
     t = Table(rows=rows, names=names, dtype=("U64", "U128", float, float, float, float, float, "U16"))
-    t.meta.update(false_alarm=float(plan.significance["false_alarm"]), n_null=int(plan.significance["n_null"]),
-                  efficiency_level=float(plan.significance["efficiency_level"]),
-                  n_injections_per_target=int(plan.significance["n_injections"]))
+    t.meta.update(false_alarm=plan.false_alarm, n_null=plan.n_null, efficiency_level=plan.efficiency_level,
+                  n_injections_per_target=plan.n_injections)
     th, null = analysis["_thresholds"], analysis["_null"]
     tt = Table()
     tt["target"] = analysis["calibration"]["targets"]
@@ -258,8 +229,7 @@ def tables(analysis: dict, plan):
     et["target"] = analysis["calibration"]["targets"]
     et["efficiency"] = analysis["calibration"]["efficiency"]
     et["efficiency_error"] = analysis["calibration"]["efficiency_error"]
-    et.meta.update(n_injections_per_target=int(plan.significance["n_injections"]),
-                   efficiency_level=float(plan.significance["efficiency_level"]))
+    et.meta.update(n_injections_per_target=plan.n_injections, efficiency_level=plan.efficiency_level)
     return t, tt, et
 
 
@@ -268,10 +238,10 @@ def latex(t, plan) -> str:
     lines = [r"\begin{table}", r"\centering",
              r"\caption{Targeted matched-circle tests. $S_{\rm comb}$ is the mean m-weighted S statistic "
              r"(Cornish, Spergel \& Starkman 2004) of the predicted pairs at the best orientation; "
-             rf"thresholds at false-alarm probability {float(plan.significance['false_alarm']):g} over all targets, "
-             rf"from {int(plan.significance['n_null'])} isotropic skies; efficiency from "
-             rf"{int(plan.significance['n_injections'])} skies of each space; a space is excluded when it is not "
-             rf"detected and the efficiency is at least {float(plan.significance['efficiency_level']):.0%}.}}",
+             rf"thresholds at false-alarm probability {plan.false_alarm:g} over all targets, "
+             rf"from {plan.n_null} isotropic skies; efficiency from "
+             rf"{plan.n_injections} skies of each space; a space is excluded when it is not "
+             rf"detected and the efficiency is at least {plan.efficiency_level:.0%}.}}",
              r"\begin{tabular}{llrrrrl}", r"\hline",
              r"map & space & $S_{\rm comb}$ & $S_{\rm thr}$ & $p$ & efficiency & outcome \\", r"\hline"]
     for row in t:
@@ -284,10 +254,10 @@ def latex(t, plan) -> str:
 
 def figure_targets(base, name: str, m: dict, analysis: dict) -> list[str]:
     """S_comb of the map per target over the null spread and the threshold."""
-    from .plots import _mpl
-    from .report import _save
+    from ..plots import pyplot
+    from ..report import save_figure
 
-    plt = _mpl()
+    plt = pyplot()
     null, th = analysis["_null"], analysis["_thresholds"]
     x = np.arange(null.shape[1])
     fig, ax = plt.subplots(figsize=(7, 4))
@@ -298,4 +268,40 @@ def figure_targets(base, name: str, m: dict, analysis: dict) -> list[str]:
     ax.set_ylabel("S_comb (mean S of the predicted pairs)")
     ax.legend(fontsize=8, loc="lower right")
     ax.set_title(f"{name}: targeted statistic against {th.n_null} null skies", fontsize=10)
-    return _save(fig, base)
+    return save_figure(fig, base)
+
+
+def write_report(plan, analysis: dict, summary: dict, staging: Path) -> tuple[dict, dict]:
+    """Tables and figures of a targeted run in ``staging``; returns (tables, figures) for the page."""
+    from .. import report
+    from .report_parts import sky_figure
+
+    outcome, th_t, eff_t = tables(analysis, plan)
+    candidates = report.candidates_table(analysis["maps"])
+    candidates.write(staging / "candidates.ecsv", format="ascii.ecsv")
+    th_t.write(staging / "thresholds.ecsv", format="ascii.ecsv")
+    eff_t.write(staging / "efficiency.ecsv", format="ascii.ecsv")
+    outcome.write(staging / "bounds.ecsv", format="ascii.ecsv")
+    (staging / "bounds.tex").write_text(latex(outcome, plan))
+    out_tables = {"targets: detected, excluded or not": outcome, "thresholds per target": th_t,
+                  "efficiency per target": eff_t, "candidates": candidates}
+    figures = {}
+    for m in analysis["maps"]:
+        figures[f"{m['name']}: targeted statistic per target"] = figure_targets(
+            staging / f"targets_{m['name']}", m["name"], m, analysis)
+        fig = sky_figure(plan, analysis, m, staging)
+        if fig:
+            figures[f"{m['name']}: sky with best candidate circles"] = fig
+    return out_tables, figures
+
+
+def caution(plan) -> str:
+    """What the results of a targeted run assume."""
+    from .report_parts import caution as scan_caution
+
+    text = scan_caution(plan, injection="target-space")
+    return text.replace("over the whole radius range", "over all targets").replace(
+        "alpha_min is where the recovery of injected target-space circles reaches",
+        "a target is excluded when it is not detected and skies of that very space are recovered at") + (
+        " Targets tested: " + "; ".join(target_name(t) for t in plan.targets) + ". An exclusion holds for "
+        "these spaces at these sizes and observer positions only.")

@@ -1,4 +1,7 @@
-"""The output folder of a run belongs to the tool: ownership, the lock, and what ``--force`` may delete.
+"""The output folder of a run: ownership, the lock, what ``--force`` may delete, and the report
+transaction (written in a staging folder, moved into place with ``summary.json`` last).
+
+The folder belongs to the tool.
 
 Rules (checked before anything is written or deleted; every refusal is one
 :class:`~topology.errors.InputError` naming the folder):
@@ -28,8 +31,10 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import __version__
-from .errors import InputError, note
+import numpy as np
+
+from .. import __version__
+from ..errors import InputError, note
 
 MARKER = ".topology-run"
 
@@ -255,3 +260,56 @@ def claim(out: str | Path, *, force: bool = False, resume: bool = False, inputs=
         raise InputError(f"cannot create the output folder ({e.strerror or e})", shown) from None
     # a failed lock means another run holds the folder now: it is theirs, nothing is undone
     return RunFolder(real, made, existed, _lock(marker, shown))
+
+
+# ---------------------------------------------------------------------------------------------
+# the report transaction and provenance
+# ---------------------------------------------------------------------------------------------
+def json_default(o):
+    """``json.dumps`` default for numpy scalars and arrays."""
+    if isinstance(o, np.generic):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    raise TypeError(type(o).__name__)
+
+
+def versions() -> dict:
+    """Versions of Python and of the packages that shape the results."""
+    import importlib.metadata as md
+    import platform
+
+    out = {"topology": __version__, "python": platform.python_version()}
+    for pkg in ("numpy", "scipy", "healpy", "astropy", "matplotlib", "camb", "dask", "distributed"):
+        try:
+            out[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            out[pkg] = None
+    return out
+
+
+def publish(folder: Path, write, summary_of) -> dict:
+    """Write the report with ``write(staging)`` into a staging folder inside ``folder``, then move
+    every file into place, ``summary.json`` last, so a folder with summary.json holds a whole
+    report. ``summary_of()`` gives the summary written as summary.json (after ``write``).
+    A write failure (disk full, quota, permissions) is an InputError; the run store stays valid."""
+    staging = folder / f".report-{os.getpid()}"
+    if staging.exists():
+        shutil.rmtree(staging)
+    try:
+        staging.mkdir()
+    except OSError as e:
+        raise InputError(f"cannot write the report ({e.strerror or e})", str(folder)) from None
+    try:
+        write(staging)
+        summary = summary_of()
+        (staging / "summary.json").write_text(json.dumps(summary, indent=1, default=json_default, allow_nan=False))
+        (folder / "summary.json").unlink(missing_ok=True)
+        for name in sorted(os.listdir(staging), key=lambda n: n == "summary.json"):
+            os.replace(staging / name, folder / name)
+    except OSError as e:
+        raise InputError(f"cannot write the report ({e.strerror or e}); the finished tasks are kept in the store: "
+                         "free space, then rerun with --resume", str(folder)) from None
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+    return summary

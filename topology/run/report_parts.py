@@ -1,0 +1,66 @@
+"""Report parts shared by the kinds of run: the sky figure with candidate circles, and the
+statement of what the results assume."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from types import SimpleNamespace
+
+import numpy as np
+
+from . import tasks as T
+
+
+def candidate_circles(cands, n=6):
+    """Candidate dicts as objects with unit-vector centres and a radius in radians (for figures)."""
+    from ..geometry import lonlat_to_vec
+
+    return [SimpleNamespace(center_a=lonlat_to_vec(*c["center_a"]), center_b=lonlat_to_vec(*c["center_b"]),
+                            radius=math.radians(c["radius_deg"])) for c in cands[:n]]
+
+
+def sky_figure(plan, analysis: dict, m: dict, staging: Path) -> list[str] | None:
+    """The map with its best (or above-threshold) candidate circles, or None without a map."""
+    from .. import report
+
+    name = m["name"]
+    values = analysis["_extra"][name]["map_values"]
+    if values is None and analysis["_extra"][name]["path"]:
+        from ..maps import read_healpix
+
+        spec = next(s for s in plan.maps if s.name == name)
+        sky = read_healpix(analysis["_extra"][name]["path"], field=spec.field, ordering=spec.ordering)
+        values = np.where(sky.observed, sky.values, np.nan)
+    if values is None:
+        return None
+    shown = candidate_circles([c for c in m["candidates"] if c["above_threshold"]] or m["candidates"][:1])
+    values = np.nan_to_num(np.asarray(values, float), nan=-1.6375e30)
+    mask_map = T.run_mask(plan.mask, int(round(np.sqrt(values.size / 12))))
+    return report.figure_sky(staging / f"sky_{name}", name, values, shown,
+                             title_extra="(detected)" if m["detected"] else "(no detection)",
+                             mask=None if mask_map is None else T.mask_at(mask_map, values.size))
+
+
+CAUTION = (
+    "A detection or a bound here is only as good as its calibration. The statistic is the m-weighted "
+    "S statistic of Cornish, Spergel & Starkman (2004), maximised over centres, twists and both "
+    "orientations as configured; thresholds come from {n_null} isotropic Gaussian skies ({terms} "
+    "temperature terms, CAMB spectrum or the shipped table) with the configured beam, white noise "
+    "and mask, searched with identical settings; the false-alarm probability {false_alarm} holds over "
+    "the whole radius range (standardised-maximum look-elsewhere correction) with the binomial error of {n_null} "
+    "skies; alpha_min is where the recovery of injected {injection} circles reaches {level:.0%}. "
+    "The injected and null skies contain only the listed temperature terms, no foregrounds and no "
+    "correlated noise. Bounds assume the listed background cosmology. Any claim in a paper needs "
+    "the user's own validation on their data, mask and instrument model."
+)
+
+
+def caution(plan, injection: str | None = None) -> str:
+    """What the results of a run assume, for the report page and summary.json."""
+    from ..injection import describe
+
+    return CAUTION.format(n_null=plan.significance["n_null"], terms="+".join(plan.instrument["terms"]).upper(),
+                          false_alarm=f"{plan.false_alarm:g}",
+                          injection=injection or describe(plan.significance["injection_family"]),
+                          level=plan.efficiency_level)
