@@ -5,7 +5,7 @@ their types and defaults, and a line of documentation (printed by ``topology key
 sections and keys are errors with a did-you-mean; wrong types are errors that name the key.
 Family-specific keys of ``[space]`` are checked by :mod:`topology.spaces.registry`.
 :func:`load_config` reads and checks against the schema only; this module imports nothing of
-the project but its errors. What needs the theory (the background, spaces, observers) is checked
+the project but the leaf modules errors and bandlimit. What needs the theory (the background, spaces, observers) is checked
 where it is built: :func:`topology.scenario.check_config` for every command, and the run plan
 (:mod:`topology.run.plan`) for inline skies and ``[bounds] families``.
 """
@@ -23,6 +23,7 @@ try:  # Python >= 3.11
 except ModuleNotFoundError:  # pragma: no cover - Python 3.10
     import tomli as _toml
 
+from .bandlimit import check_band_limit
 from .errors import InputError
 
 NUMBER = (int, float)
@@ -238,10 +239,7 @@ EXTRA_CHECKS = {
 def _cross_check(name: str, entry: dict, where: str) -> None:
     """Checks between keys of one table: lmax <= 3 nside - 1 (HEALPix band limit, common practice)."""
     if name in ("sky", "instrument") and isinstance(entry.get("nside"), int) and isinstance(entry.get("lmax"), int):
-        nside, lmax = entry["nside"], entry["lmax"]
-        if lmax > 3 * nside - 1:
-            raise InputError(f"must be <= 3 nside - 1 = {3 * nside - 1} for nside {nside}, got {lmax}",
-                             f"{where}: [{name}] lmax")
+        check_band_limit(entry["lmax"], entry["nside"], f"{where}: [{name}] lmax")
 
 
 def toml_loads(text: str) -> dict:

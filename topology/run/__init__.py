@@ -113,9 +113,9 @@ def _execute(plan: RunPlan, folder, store, show_progress) -> dict:
         "timings_s": timings,
     }
     if isinstance(store, MemoryStore):
-        return {"maps": analysis["maps"], "calibration": analysis["calibration"], "provenance": provenance,
-                "_analysis": analysis}
-    summary = {"maps": analysis["maps"], "calibration": analysis["calibration"], "caution": kind.caution(plan),
+        return {"maps": analysis.maps, "calibration": analysis.calibration, "provenance": provenance,
+                "analysis": analysis}
+    summary = {"maps": analysis.maps, "calibration": analysis.calibration, "caution": kind.caution(plan),
                "provenance": provenance}
 
     def write(staging):

@@ -5,11 +5,28 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
+from dataclasses import dataclass, field
 from types import SimpleNamespace
 
 import numpy as np
 
 from . import tasks as T
+
+
+@dataclass
+class Analysis:
+    """What a kind of run makes of its task results: ``maps`` and ``calibration`` are the
+    JSON-ready parts of summary.json; ``thresholds`` (:class:`topology.significance.Thresholds`)
+    and ``null`` (S per null sky and radius or target) feed the tables and figures;
+    ``map_values`` holds the sky of each inline map (None for a FITS map, read again for its
+    figure); ``injected`` the targeted statistic of each injected sky (targeted runs)."""
+
+    maps: list
+    calibration: dict
+    thresholds: object
+    null: np.ndarray
+    map_values: dict = field(default_factory=dict)
+    injected: np.ndarray | None = None
 
 
 def candidate_circles(cands, n=6):
@@ -20,17 +37,17 @@ def candidate_circles(cands, n=6):
                             radius=math.radians(c["radius_deg"])) for c in cands[:n]]
 
 
-def sky_figure(plan, analysis: dict, m: dict, staging: Path) -> list[str] | None:
+def sky_figure(plan, analysis: Analysis, m: dict, staging: Path) -> list[str] | None:
     """The map with its best (or above-threshold) candidate circles, or None without a map."""
     from .. import report
 
     name = m["name"]
-    values = analysis["_extra"][name]["map_values"]
-    if values is None and analysis["_extra"][name]["path"]:
+    values = analysis.map_values.get(name)
+    spec = next(s for s in plan.maps if s.name == name)
+    if values is None and spec.path:
         from ..maps import read_healpix
 
-        spec = next(s for s in plan.maps if s.name == name)
-        sky = read_healpix(analysis["_extra"][name]["path"], field=spec.field, ordering=spec.ordering)
+        sky = read_healpix(spec.path, field=spec.field, ordering=spec.ordering)
         values = np.where(sky.observed, sky.values, np.nan)
     if values is None:
         return None

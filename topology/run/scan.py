@@ -25,7 +25,7 @@ from ..errors import InputError
 from ..execution import Task
 from . import tasks as T
 from . import report_parts
-from .report_parts import sky_figure
+from .report_parts import Analysis, sky_figure
 
 N_CANDIDATES = 10  # candidates per map in the summary and tables
 
@@ -40,7 +40,7 @@ def build_tasks(plan) -> list[Task]:
     return out
 
 
-def analyse(plan, store) -> dict:
+def analyse(plan, store) -> Analysis:
     """Thresholds, p-values, efficiency, alpha_min and bounds from the stored task results."""
     from ..bounds import bound_summary
     from ..injection import describe
@@ -63,7 +63,7 @@ def analyse(plan, store) -> dict:
     amin = sig.alpha_min(injection_radii, eff, level)
 
     cosmo = plan.cosmology
-    maps_out, extra = [], {}
+    maps_out, map_values = [], {}
     for spec in plan.maps:
         res = store.get(T.data_id(spec.name))
         smax = T.smax_by_radius(res, radii)
@@ -98,7 +98,7 @@ def analyse(plan, store) -> dict:
             "note": ("circles detected: no bound is derived from this map" if is_detected else
                      ("the efficiency never reaches the level: no alpha_min, no bound" if amin is None else "")),
         })
-        extra[spec.name] = {"map_values": res.get("map_values"), "path": spec.path, "nside": res.get("nside")}
+        map_values[spec.name] = res.get("map_values")
     calibration = {
         "radii_deg": radii.tolist(), "threshold_whole_range": thresholds.whole_range.tolist(),
         "threshold_local": thresholds.local.tolist(), "local_level": thresholds.local_level,
@@ -109,7 +109,7 @@ def analyse(plan, store) -> dict:
         "injection_family": plan.significance["injection_family"],
         "injection": describe(plan.significance["injection_family"]),
     }
-    return {"maps": maps_out, "calibration": calibration, "_thresholds": thresholds, "_null": null, "_extra": extra}
+    return Analysis(maps_out, calibration, thresholds, null, map_values)
 
 
 def family_bounds(plan, amin: float, cosmo) -> list[dict]:
@@ -136,17 +136,17 @@ def family_bounds(plan, amin: float, cosmo) -> list[dict]:
     return out
 
 
-def write_report(plan, analysis: dict, summary: dict, staging: Path) -> tuple[dict, dict]:
+def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tuple[dict, dict]:
     """Tables and figures of a radius scan in ``staging``; returns (tables, figures) for the page."""
     from .. import report
     from ..bounds import bounds_table, write_latex
 
-    thresholds, null = analysis["_thresholds"], analysis["_null"]
+    thresholds, null = analysis.thresholds, analysis.null
     radii = plan.radii_deg
-    calibration = analysis["calibration"]
+    calibration = analysis.calibration
     figures, tables = {}, {}
 
-    t = report.candidates_table(analysis["maps"])
+    t = report.candidates_table(analysis.maps)
     t.write(staging / "candidates.ecsv", format="ascii.ecsv")
     tables["candidates"] = t
     t = report.thresholds_table(radii, thresholds, null)
@@ -158,7 +158,7 @@ def write_report(plan, analysis: dict, summary: dict, staging: Path) -> tuple[di
     t.write(staging / "efficiency.ecsv", format="ascii.ecsv")
     tables["efficiency"] = t
 
-    first_bounds = next((m["bounds"] for m in analysis["maps"] if m["bounds"]), None)
+    first_bounds = next((m["bounds"] for m in analysis.maps if m["bounds"]), None)
     if first_bounds is not None:
         bt = bounds_table(first_bounds)
         bt.write(staging / "bounds.ecsv", format="ascii.ecsv")
@@ -175,7 +175,7 @@ def write_report(plan, analysis: dict, summary: dict, staging: Path) -> tuple[di
         (staging / "bounds.ecsv").write_text("# " + no_bound)
         (staging / "bounds.tex").write_text("% " + no_bound)
 
-    for m in analysis["maps"]:
+    for m in analysis.maps:
         name = m["name"]
         smax = np.array([np.nan if v is None else v for v in m["s_max"]])
         figures[f"{name}: S_max against radius"] = report.figure_smax(staging / f"smax_{name}", name, radii, smax,

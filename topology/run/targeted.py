@@ -31,6 +31,7 @@ from .. import significance as sig
 from ..errors import InputError
 from ..execution import Task, task_seed
 from . import tasks as T
+from .report_parts import Analysis
 
 WHERE = "[search] targets"
 _SCENARIOS: dict = {}
@@ -149,7 +150,7 @@ def build_tasks(plan) -> list[Task]:
     return out
 
 
-def analyse(plan, store) -> dict:
+def analyse(plan, store) -> Analysis:
     """Per map and target: S_comb, thresholds, p-values, efficiency, detected / excluded."""
     targets = plan.targets
     names = [target_name(t) for t in targets]
@@ -160,7 +161,7 @@ def analyse(plan, store) -> dict:
                     for j in range(n_inj)], dtype=float)
     eff, eff_err = sig.efficiency(inj > th.whole_range[None, :])
 
-    maps_out, extra = [], {}
+    maps_out, map_values = [], {}
     for spec in plan.maps:
         res = store.get(T.data_id(spec.name))
         s = np.asarray(res["s_comb"], float)
@@ -190,24 +191,23 @@ def analyse(plan, store) -> dict:
             "note": "targeted search: each target space is detected, excluded (not detected with efficiency >= "
                     f"{level:.0%}) or not excluded; no alpha_min in this mode",
         })
-        extra[spec.name] = {"map_values": res.get("map_values"), "path": spec.path, "nside": res.get("nside")}
+        map_values[spec.name] = res.get("map_values")
     calib = {"targets": names, "threshold_whole_range": th.whole_range.tolist(), "threshold_local": th.local.tolist(),
              "z_threshold": th.z_threshold, "measured_false_alarm": th.measured_false_alarm,
              "measured_false_alarm_error": th.measured_false_alarm_error, "efficiency": eff.tolist(),
              "efficiency_error": eff_err.tolist(), "n_injections": n_inj, "efficiency_level": level,
              "alpha_min_deg": None}
-    return {"maps": maps_out, "calibration": calib, "_thresholds": th, "_null": null, "_extra": extra,
-            "_injected": inj}
+    return Analysis(maps_out, calib, th, null, map_values, inj)
 
 
 # ---------------------------------------------------------------------------------------------
 # report parts
 # ---------------------------------------------------------------------------------------------
-def tables(analysis: dict, plan):
+def tables(analysis: Analysis, plan):
     from astropy.table import Table
 
     rows = []
-    for m in analysis["maps"]:
+    for m in analysis.maps:
         for r in m["targets"]:
             rows.append((m["name"], r["target"], r["S_combined"], r["threshold"], r["p_value"], r["efficiency"],
                          r["efficiency_error"], "detected" if r["detected"] else ("excluded" if r["excluded"] else
@@ -216,9 +216,9 @@ def tables(analysis: dict, plan):
     t = Table(rows=rows, names=names, dtype=("U64", "U128", float, float, float, float, float, "U16"))
     t.meta.update(false_alarm=plan.false_alarm, n_null=plan.n_null, efficiency_level=plan.efficiency_level,
                   n_injections_per_target=plan.n_injections)
-    th, null = analysis["_thresholds"], analysis["_null"]
+    th, null = analysis.thresholds, analysis.null
     tt = Table()
-    tt["target"] = analysis["calibration"]["targets"]
+    tt["target"] = analysis.calibration["targets"]
     tt["S_thr_whole_range"] = th.whole_range
     tt["S_thr_local"] = th.local
     tt["null_mean"] = null.mean(axis=0)
@@ -226,9 +226,9 @@ def tables(analysis: dict, plan):
     tt.meta.update(false_alarm=th.false_alarm, n_null=th.n_null, z_threshold=th.z_threshold,
                    measured_false_alarm=th.measured_false_alarm)
     et = Table()
-    et["target"] = analysis["calibration"]["targets"]
-    et["efficiency"] = analysis["calibration"]["efficiency"]
-    et["efficiency_error"] = analysis["calibration"]["efficiency_error"]
+    et["target"] = analysis.calibration["targets"]
+    et["efficiency"] = analysis.calibration["efficiency"]
+    et["efficiency_error"] = analysis.calibration["efficiency_error"]
     et.meta.update(n_injections_per_target=plan.n_injections, efficiency_level=plan.efficiency_level)
     return t, tt, et
 
@@ -252,32 +252,32 @@ def latex(t, plan) -> str:
     return "\n".join(lines)
 
 
-def figure_targets(base, name: str, m: dict, analysis: dict) -> list[str]:
+def figure_targets(base, name: str, m: dict, analysis: Analysis) -> list[str]:
     """S_comb of the map per target over the null spread and the threshold."""
     from ..plots import pyplot
     from ..report import save_figure
 
     plt = pyplot()
-    null, th = analysis["_null"], analysis["_thresholds"]
+    null, th = analysis.null, analysis.thresholds
     x = np.arange(null.shape[1])
     fig, ax = plt.subplots(figsize=(7, 4))
     ax.boxplot([null[:, k] for k in x], positions=x, widths=0.5, showfliers=True)
     ax.plot(x, th.whole_range, "r_", markersize=30, mew=2, label=f"threshold (false alarm {th.false_alarm:g})")
     ax.plot(x, [r["S_combined"] for r in m["targets"]], "k*", markersize=12, label=name)
-    ax.set_xticks(x, analysis["calibration"]["targets"], rotation=20, fontsize=7)
+    ax.set_xticks(x, analysis.calibration["targets"], rotation=20, fontsize=7)
     ax.set_ylabel("S_comb (mean S of the predicted pairs)")
     ax.legend(fontsize=8, loc="lower right")
     ax.set_title(f"{name}: targeted statistic against {th.n_null} null skies", fontsize=10)
     return save_figure(fig, base)
 
 
-def write_report(plan, analysis: dict, summary: dict, staging: Path) -> tuple[dict, dict]:
+def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tuple[dict, dict]:
     """Tables and figures of a targeted run in ``staging``; returns (tables, figures) for the page."""
     from .. import report
     from .report_parts import sky_figure
 
     outcome, th_t, eff_t = tables(analysis, plan)
-    candidates = report.candidates_table(analysis["maps"])
+    candidates = report.candidates_table(analysis.maps)
     candidates.write(staging / "candidates.ecsv", format="ascii.ecsv")
     th_t.write(staging / "thresholds.ecsv", format="ascii.ecsv")
     eff_t.write(staging / "efficiency.ecsv", format="ascii.ecsv")
@@ -286,7 +286,7 @@ def write_report(plan, analysis: dict, summary: dict, staging: Path) -> tuple[di
     out_tables = {"targets: detected, excluded or not": outcome, "thresholds per target": th_t,
                   "efficiency per target": eff_t, "candidates": candidates}
     figures = {}
-    for m in analysis["maps"]:
+    for m in analysis.maps:
         figures[f"{m['name']}: targeted statistic per target"] = figure_targets(
             staging / f"targets_{m['name']}", m["name"], m, analysis)
         fig = sky_figure(plan, analysis, m, staging)

@@ -25,6 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..bandlimit import default_lmax
 from ..errors import InputError
 from .base import TERMS, Sky
 
@@ -65,7 +66,7 @@ def sky_params(cfg) -> dict:
                                              "apply_mask", "hits")}
     p["nside"] = check_nside(p["nside"])
     if p["lmax"] is None:
-        p["lmax"] = min(2 * p["nside"], 3 * p["nside"] - 1)
+        p["lmax"] = default_lmax(p["nside"])
     p["lmax"] = check_lmax(p["lmax"], p["nside"])
     p["terms"] = tuple(t for t in TERMS if t in set(p["terms"]))
     p["fwhm_deg"] = float(p["fwhm_deg"])

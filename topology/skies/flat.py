@@ -50,6 +50,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..bandlimit import check_band_limit
 from ..errors import InputError
 from .base import TERMS, Sky
 from .flat_eigenmode import eigenmode_alm
@@ -71,8 +72,7 @@ def _check_inputs(lmax, nside, method, terms, kchi_max, oversample):
         nside = int(nside)
         if nside < 1 or nside & (nside - 1):
             raise InputError(f"must be a power of two, got {nside}", "[sky] nside")
-        if lmax > 3 * nside - 1:
-            raise InputError(f"lmax = {lmax} exceeds 3 nside - 1 = {3 * nside - 1}", "[sky] lmax")
+        check_band_limit(lmax, nside, "[sky] lmax")
     if method not in METHODS:
         raise InputError(f"must be one of {list(METHODS)}, got {method!r}", "[sky] method")
     terms = tuple(terms)

@@ -24,6 +24,7 @@ import math
 import healpy as hp
 import numpy as np
 
+from ..bandlimit import check_band_limit, lmax_limit
 from ..errors import InputError
 from .base import Sky, stream_rng
 from .legendre import legendre_table
@@ -43,9 +44,7 @@ def check_lmax(lmax, nside: int, where: str = "[sky] lmax") -> int:
     """0 <= lmax <= 3 N_side - 1."""
     if isinstance(lmax, bool) or not isinstance(lmax, (int, np.integer)) or lmax < 0:
         raise InputError(f"must be a whole number >= 0, got {lmax!r}", where)
-    if lmax > 3 * nside - 1:
-        raise InputError(f"must be <= 3 nside - 1 = {3 * nside - 1} for nside {nside}, got {lmax}", where)
-    return int(lmax)
+    return check_band_limit(lmax, nside, where)
 
 
 def _pixel_window_sq(nside: int, lmax: int, sub: int, ring: np.ndarray) -> np.ndarray:
@@ -144,7 +143,7 @@ def observe(sky: Sky, *, nside: int, fwhm_deg: float = 0.0, noise_uk: float = 0.
     nside = check_nside(nside)
     lmax = check_lmax(sky.lmax if lmax is None else lmax, nside)
     if sky.map is not None:
-        lmax = min(lmax, 3 * int(sky.nside) - 1)
+        lmax = min(lmax, lmax_limit(sky.nside))
     fwhm = _check_non_negative(fwhm_deg, "[sky] fwhm_deg")
     sigma = _check_non_negative(noise_uk, "[sky] noise_uk")
     if sky.map is not None and sky.nside == nside and fwhm == 0 and not pixwin:

@@ -57,6 +57,7 @@ import numpy as np
 from scipy.special import sph_harm_y
 
 from .. import geometry as geo
+from ..bandlimit import check_band_limit
 from ..errors import InputError
 from . import default_kmax
 from .base import Sky, stream_rng
@@ -296,8 +297,7 @@ def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside:
     lmax = _check_int(lmax, "[sky] lmax", 0)
     if nside is not None:
         nside = _check_int(nside, "[sky] nside", 1)
-        if lmax > 3 * nside - 1:
-            raise InputError(f"must be <= 3 nside - 1 = {3 * nside - 1}, got {lmax}", "[sky] lmax")
+        check_band_limit(lmax, nside, "[sky] lmax")
     seed = _check_int(seed, "[sky] seed", 0)
     chi = float(cosmology.chi_rec_over_curvature_radius)
     if kmax is None:
