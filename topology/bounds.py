@@ -36,7 +36,7 @@ import numpy as np
 
 from . import geometry as geo
 from .circles import cos_radius
-from .cosmology import C_KM_S, Cosmology, omega_k_for_ratio
+from .cosmology import Cosmology, omega_k_for_ratio
 from .errors import InputError
 from .spaces import Space, build_space, family_names
 from .spaces.registry import allowed_keys, geometry_of
@@ -490,108 +490,3 @@ def bound_summary(alpha_min_deg: float, cosmology: Cosmology | None = None, *,
         else:
             out["hyperbolic"] = curved_space_bound(space, observer, alpha, cosmology)
     return out
-
-
-def bounds_table(summary: dict):
-    """The curved-space rows of a summary as an astropy Table with units and provenance meta.
-
-    One row per spherical family and parameter set (and the configured hyperbolic or spherical
-    space); the flat bounds, alpha_min, chi_rec and the Omega_K convention are in ``meta``.
-    """
-    from astropy import units as u
-    from astropy.table import MaskedColumn, Table
-
-    rows = [dict(r, geometry="spherical", omega_k_bound=r["min_omega_k"], bound_kind="min")
-            for r in summary["spherical"]]
-    for key, kind in (("spherical_configured", "min"), ("hyperbolic", "max")):
-        if key in summary:
-            r = summary[key]
-            rows.append(dict(r, **r["params"], geometry=("spherical" if kind == "min" else "hyperbolic"),
-                             family=r["family"] + " (configured)",
-                             omega_k_bound=r.get("min_omega_k", r.get("max_omega_k")), bound_kind=kind))
-    hubble_mpc = C_KM_S / (100.0 * summary["cosmology"]["h"])
-
-    def col(name, key, dtype, unit=None, desc=""):
-        vals = [r.get(key) for r in rows]
-        mask = [v is None for v in vals]
-        fill = {"i": 0, "f": np.nan, "U": ""}[np.dtype(dtype).kind]
-        data = np.array([fill if v is None else v for v in vals], dtype=dtype)
-        return MaskedColumn(data, name=name, mask=mask, unit=unit, description=desc)
-
-    rc_mpc = [None if r["omega_k_bound"] in (None, 0.0) else hubble_mpc / math.sqrt(abs(r["omega_k_bound"])) for r in rows]
-    for r, v in zip(rows, rc_mpc):
-        r["rc_mpc"] = v
-    t = Table([
-        col("geometry", "geometry", "U10"),
-        col("family", "family", "U32"),
-        col("p", "p", int, desc="lens space order p"),
-        col("q", "q", int, desc="lens space q (q <= p/2)"),
-        col("m", "m", int, desc="prism space S^3/D*_m"),
-        col("shortest_displacement", "shortest_displacement_over_curvature_radius", float, u.dimensionless_unscaled,
-            "shortest clone displacement in units of R_c (maximised over observers when inhomogeneous)"),
-        col("max_chi_rec_over_curvature_radius", "max_chi_rec_over_curvature_radius", float, u.dimensionless_unscaled,
-            "largest allowed chi_rec / R_c"),
-        col("min_curvature_radius_over_chi_rec", "min_curvature_radius_over_chi_rec", float, u.dimensionless_unscaled,
-            "smallest allowed R_c / chi_rec"),
-        col("omega_k_bound", "omega_k_bound", float, u.dimensionless_unscaled,
-            "Omega_K > bound (spherical, bound_kind min) or Omega_K < bound (hyperbolic, max); " + summary["convention"]),
-        col("bound_kind", "bound_kind", "U3"),
-        col("min_curvature_radius_mpc", "rc_mpc", float, u.Mpc, "R_c = (c/H0)/sqrt(|Omega_K|) at the Omega_K bound"),
-    ])
-    flat = summary["flat"]
-    t.meta.update({
-        "alpha_min_deg": summary["alpha_min_deg"],
-        "chi_rec_mpc": summary["chi_rec_mpc"],
-        "convention": summary["convention"],
-        "assumptions": summary["assumptions"],
-        "flat_min_loop_over_lss_diameter": flat["min_loop_over_lss_diameter"],
-        "flat_min_loop_mpc": flat["min_loop_mpc"],
-        "cubic_torus_inscribed_radius_over_chi_rec": flat["cubic_torus_inscribed_radius_over_chi_rec"],
-        "cosmology": {k: v for k, v in summary["cosmology"].items()},
-        "source": "topology.bounds (CSS 1998 circle radii)",
-    })
-    if "configured" in flat:
-        cfg = flat["configured"]
-        t.meta["flat_configured"] = {k: cfg[k] for k in ("family", "params", "excluded", "min_scale_factor",
-                                                         "shortest_displacement_over_chi_rec")}
-        t.meta["flat_configured"]["excluded_fraction"] = cfg["observer_positions"]["excluded_fraction"]
-    return t
-
-
-def latex_caption(summary: dict) -> str:
-    a = summary["alpha_min_deg"]
-    f = summary["flat"]
-    conv = summary["convention"].replace("_", r"\_").replace("h^2", "$h^2$")
-    return (f"Bounds from the absence of matched circles of radius $\\alpha \\geq {a:g}^\\circ$ "
-            f"($\\chi_{{\\rm rec}} = {summary['chi_rec_mpc']:.0f}$ Mpc). Flat spaces: shortest loop "
-            f"$> {f['min_loop_over_lss_diameter']:.4f} \\times 2\\chi_{{\\rm rec}}$, cubic torus "
-            f"$R_i > {f['cubic_torus_inscribed_radius_over_chi_rec']:.4f}\\,\\chi_{{\\rm rec}}$. "
-            f"Convention: {conv}.")
-
-
-def write_latex(table, summary: dict, path, extra_caption: str = "") -> None:
-    """LaTeX (deluxetable-free ``table`` environment) with a caption giving alpha_min and the
-    convention, followed by ``extra_caption`` (e.g. the confidence level of alpha_min)."""
-    from astropy.io import ascii
-
-    names = {
-        "geometry": "geometry", "family": "family", "p": "$p$", "q": "$q$", "m": "$m$",
-        "shortest_displacement": "$d_{\\min}/R_c$",
-        "max_chi_rec_over_curvature_radius": "$\\max \\chi_{\\rm rec}/R_c$",
-        "min_curvature_radius_over_chi_rec": "$\\min R_c/\\chi_{\\rm rec}$",
-        "omega_k_bound": "$\\Omega_K$ bound", "bound_kind": "kind",
-        "min_curvature_radius_mpc": "$\\min R_c$ [Mpc]",
-    }
-    t = table.copy()
-    t.meta = {}
-    for c in t.colnames:
-        t[c].unit = None
-        t[c].description = None
-        if t[c].dtype.kind == "f":
-            t[c].info.format = ".4f" if c != "min_curvature_radius_mpc" else ".0f"
-    t.rename_columns(list(names), list(names.values()))
-    for c in t.colnames:
-        if t[c].dtype.kind == "U":
-            t[c] = [s.replace("_", r"\_") for s in t[c].filled("")]
-    t.write(path, format="ascii.latex", overwrite=True, caption=latex_caption(summary) + extra_caption,
-            latexdict={"preamble": r"\centering", "tablealign": "htbp"}, fill_values=[(ascii.masked, "--")])

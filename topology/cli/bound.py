@@ -39,7 +39,7 @@ def table_paths(name: str) -> tuple[Path, Path]:
 
 
 def run(args):
-    from .. import bounds
+    from .. import bounds, report
     from ..errors import InputError
     from ._common import atomic_write, check_writable, print_json
 
@@ -73,12 +73,12 @@ def run(args):
             kw.update(bound_inputs(cfg))
         summary = bounds.bound_summary(a, seed=args.seed, **kw)
     if paths:
-        table = bounds.bounds_table(summary)
+        table = report.bounds_table(summary)
         ecsv, tex = paths
 
         def write_both(tmp):
             table.write(tmp, format="ascii.ecsv", overwrite=True)
-            atomic_write(tex, lambda t2: bounds.write_latex(table, summary, t2))
+            atomic_write(tex, lambda t2: Path(t2).write_text(report.bounds_latex(table, summary)))
 
         atomic_write(ecsv, write_both)
     if args.json:

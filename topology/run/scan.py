@@ -139,7 +139,6 @@ def family_bounds(plan, amin: float, cosmo) -> list[dict]:
 def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tuple[dict, dict]:
     """Tables and figures of a radius scan in ``staging``; returns (tables, figures) for the page."""
     from .. import report
-    from ..bounds import bounds_table, write_latex
 
     thresholds, null = analysis.thresholds, analysis.null
     radii = plan.radii_deg
@@ -160,12 +159,13 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
 
     first_bounds = next((m["bounds"] for m in analysis.maps if m["bounds"]), None)
     if first_bounds is not None:
-        bt = bounds_table(first_bounds)
+        bt = report.bounds_table(first_bounds)
         bt.write(staging / "bounds.ecsv", format="ascii.ecsv")
-        cap_extra = (f" Circles of radius >= alpha_min = {first_bounds['alpha_min_deg']:.1f} deg are excluded at "
-                     f"false-alarm probability {plan.false_alarm:g} with detection efficiency >= "
-                     f"{calibration['efficiency_level']:.0%}, calibrated on {plan.n_null} isotropic skies.")
-        write_latex(bt, first_bounds, staging / "bounds.tex", extra_caption=cap_extra)
+        level_tex = format(calibration["efficiency_level"], ".0%").replace("%", r"\%")
+        cap_extra = (f" Circles of radius $\\alpha \\geq \\alpha_{{\\min}} = {first_bounds['alpha_min_deg']:.1f}^\\circ$ are "
+                     f"excluded at false-alarm probability {plan.false_alarm:g} with detection efficiency "
+                     f"$\\geq$ {level_tex}, calibrated on {plan.n_null} isotropic skies.")
+        (staging / "bounds.tex").write_text(report.bounds_latex(bt, first_bounds, extra_caption=cap_extra))
         tables["bounds"] = bt
         fig = report.figure_omega_k(staging / "omega_k", first_bounds)
         if fig:

@@ -203,59 +203,26 @@ def analyse(plan, store) -> Analysis:
 # ---------------------------------------------------------------------------------------------
 # report parts
 # ---------------------------------------------------------------------------------------------
-def tables(analysis: Analysis, plan):
-    from astropy.table import Table
-
-    rows = []
-    for m in analysis.maps:
-        for r in m["targets"]:
-            rows.append((m["name"], r["target"], r["S_combined"], r["threshold"], r["p_value"], r["efficiency"],
-                         r["efficiency_error"], "detected" if r["detected"] else ("excluded" if r["excluded"] else
-                                                                               "not excluded")))
-    names = ("map", "target", "S_combined", "S_threshold", "p_value", "efficiency", "efficiency_error", "outcome")
-    t = Table(rows=rows, names=names, dtype=("U64", "U128", float, float, float, float, float, "U16"))
-    t.meta.update(false_alarm=plan.false_alarm, n_null=plan.n_null, efficiency_level=plan.efficiency_level,
-                  n_injections_per_target=plan.n_injections)
-    th, null = analysis.thresholds, analysis.null
-    tt = Table()
-    tt["target"] = analysis.calibration["targets"]
-    tt["S_thr_whole_range"] = th.whole_range
-    tt["S_thr_local"] = th.local
-    tt["null_mean"] = null.mean(axis=0)
-    tt["null_std"] = null.std(axis=0, ddof=1)
-    tt.meta.update(false_alarm=th.false_alarm, n_null=th.n_null, z_threshold=th.z_threshold,
-                   measured_false_alarm=th.measured_false_alarm)
-    et = Table()
-    et["target"] = analysis.calibration["targets"]
-    et["efficiency"] = analysis.calibration["efficiency"]
-    et["efficiency_error"] = analysis.calibration["efficiency_error"]
-    et.meta.update(n_injections_per_target=plan.n_injections, efficiency_level=plan.efficiency_level)
-    return t, tt, et
-
-
 def latex(t, plan) -> str:
     """The target outcomes as a LaTeX table with the statistic and levels in its caption."""
-    lines = [r"\begin{table}", r"\centering",
-             r"\caption{Targeted matched-circle tests. $S_{\rm comb}$ is the mean m-weighted S statistic "
-             r"(Cornish, Spergel \& Starkman 2004) of the predicted pairs at the best orientation; "
-             rf"thresholds at false-alarm probability {plan.false_alarm:g} over all targets, "
-             rf"from {plan.n_null} isotropic skies; efficiency from "
-             rf"{plan.n_injections} skies of each space; a space is excluded when it is not "
-             rf"detected and the efficiency is at least {plan.efficiency_level:.0%}.}}",
-             r"\begin{tabular}{llrrrrl}", r"\hline",
-             r"map & space & $S_{\rm comb}$ & $S_{\rm thr}$ & $p$ & efficiency & outcome \\", r"\hline"]
-    for row in t:
-        target = str(row["target"]).replace("_", r"\_")
-        lines.append(f"{row['map']} & {target} & {row['S_combined']:.3f} & {row['S_threshold']:.3f} & "
-                     f"{row['p_value']:.3g} & {row['efficiency']:.2f} & {row['outcome']} \\\\")
-    lines += [r"\hline", r"\end{tabular}", r"\end{table}", ""]
-    return "\n".join(lines)
+    from ..report.latex import cell, escape, latex_table
+
+    caption = (r"Targeted matched-circle tests. $S_{\rm comb}$ is the mean m-weighted S statistic "
+               r"(Cornish, Spergel \& Starkman 2004) of the predicted pairs at the best orientation; "
+               f"thresholds at false-alarm probability {plan.false_alarm:g} over all targets, "
+               f"from {plan.n_null} isotropic skies; efficiency from {plan.n_injections} skies of each space; a "
+               f"space is excluded when it is not detected and the efficiency is at least "
+               f"{escape(format(plan.efficiency_level, '.0%'))}.")
+    header = ["map", "space", r"$S_{\rm comb}$", r"$S_{\rm thr}$", "$p$", "efficiency", "outcome"]
+    rows = [[cell(row["map"]), cell(row["target"]), cell(row["S_combined"], ".3f"), cell(row["S_threshold"], ".3f"),
+             cell(row["p_value"], ".3g"), cell(row["efficiency"], ".2f"), cell(row["outcome"])] for row in t]
+    return latex_table(header, rows, caption, "llrrrrl")
 
 
 def figure_targets(base, name: str, m: dict, analysis: Analysis) -> list[str]:
     """S_comb of the map per target over the null spread and the threshold."""
     from ..plots import pyplot
-    from ..report import save_figure
+    from ..report.figures import save_figure
 
     plt = pyplot()
     null, th = analysis.null, analysis.thresholds
@@ -276,7 +243,10 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
     from .. import report
     from .report_parts import sky_figure
 
-    outcome, th_t, eff_t = tables(analysis, plan)
+    outcome, th_t, eff_t = report.target_tables(analysis.maps, analysis.calibration, analysis.thresholds,
+                                                analysis.null, false_alarm=plan.false_alarm, n_null=plan.n_null,
+                                                efficiency_level=plan.efficiency_level,
+                                                n_injections=plan.n_injections)
     candidates = report.candidates_table(analysis.maps)
     candidates.write(staging / "candidates.ecsv", format="ascii.ecsv")
     th_t.write(staging / "thresholds.ecsv", format="ascii.ecsv")
