@@ -275,6 +275,9 @@ def test_cli_json_contract_and_tables(tmp_path, capsys):
     tex = stem.with_suffix(".tex").read_text()
     assert "\\caption{" in tex and "14^\\circ" in tex and "Omega\\_Lambda taking up the difference" in tex
     assert tex.count("\\\\") == len(s["spherical"]) + 1
+    from rendering import compile_latex
+
+    compile_latex(stem.with_suffix(".tex"), tmp_path / "tex")
 
 
 def test_cli_text_output(capsys):

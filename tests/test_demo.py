@@ -58,3 +58,19 @@ def test_isotropic_map_not_detected_and_bound_follows_efficiency(demo):
     # check: Planck 2015 XVIII conversion, R_i > chi_rec cos(alpha_min) for the cubic torus
     assert b["bounds"]["flat"]["cubic_torus_inscribed_radius_over_chi_rec"] == pytest.approx(math.cos(math.radians(amin)))
     assert (plan.out_dir / "bounds.tex").read_text().count("alpha") >= 1
+
+
+def test_report_latex_compiles_and_page_renders(demo, tmp_path):
+    # the report's real parts, as a user has them: pdflatex on bounds.tex, Chromium on the page
+    from rendering import compile_latex, render_page
+
+    plan, summary = demo
+    out = plan.out_dir
+    assert any(m["bounds"] for m in summary["maps"])  # survey-B gives a bound: bounds.tex is a table
+    compile_latex(out / "bounds.tex", tmp_path / "tex")
+    grey, dom = render_page(out / "index.html", tmp_path / "page")
+    # candidates, thresholds, efficiency and bounds tables; S_max and sky of both maps, efficiency, Omega_K
+    assert dom.count("<table") == 4 and dom.count("<img") == 6
+    assert "What these results assume" in dom
+    # the figures are drawn: the screenshot is far from a blank page
+    assert grey.shape[1] == 1000 and grey.std() > 0.05 and (grey < 0.5).mean() > 0.01

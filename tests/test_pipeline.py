@@ -195,3 +195,4 @@ def _toml(data) -> str:
             lines.append(f"[{sec}]")
             lines += [f"{k} = {val(v)}" for k, v in body.items()]
     return "\n".join(lines) + "\n"
+

@@ -86,3 +86,10 @@ def test_bad_targets_are_refused_at_plan_time(change, message, tmp_path):
     change(data)
     with pytest.raises(InputError, match=message):
         plan_from_config(config_from_dict(data), tmp_path / "out")
+
+
+def test_targeted_latex_compiles(targeted_run, tmp_path):
+    from rendering import compile_latex
+
+    plan, _ = targeted_run
+    compile_latex(plan.out_dir / "bounds.tex", tmp_path)
