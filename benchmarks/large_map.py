@@ -136,10 +136,11 @@ def steps(map_path: str, mask_path: str, nside_work: int) -> dict:
         step("read mask", lambda: state.update(mask=maps.read_healpix(mask_path, what="mask")))
         sky, mask = state["sky"], state["mask"]
         step("mask weights", lambda: maps.check_sky_fraction(sky, mask, 0.2))
-        step("dipole fit", lambda: state.update(coef=maps._fit_normal(sky.values, maps._weight_blocks(mask, sky))))
-        step("working mask", lambda: state.update(mask_work=maps._working_mask(mask, sky, nside_work, 0.5)))
+        step("dipole fit",
+             lambda: state.update(coef=maps.fit_normal_equations(sky.values, maps.weight_blocks(mask, sky))))
+        step("working mask", lambda: state.update(mask_work=maps.working_mask(mask, sky, nside_work, 0.5)))
         lmax = min(3 * sky.nside - 1, 3 * nside_work - 1)
-        step("map2alm", lambda: state.update(alm=maps._weighted_alm(sky, mask, state["coef"], lmax, 1)))
+        step("map2alm", lambda: state.update(alm=maps.weighted_alm(sky, mask, state["coef"], lmax, 1)))
         pm = maps.PreparedMap(state["alm"], lmax, nside_work, state["mask_work"], np.radians(1.0), None, None,
                               state["coef"], float(state["mask_work"].mean()))
         step("working map", lambda: pm.working_map())

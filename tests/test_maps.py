@@ -181,9 +181,9 @@ def _weights(nside, seed):
 
 
 def test_dipole_fit_by_normal_equations_equals_lstsq(monkeypatch):
-    import topology.maps as maps
+    import topology.maps.pixels as pixels
 
-    monkeypatch.setattr(maps, "CHUNK", 1000)  # many blocks, one partly filled
+    monkeypatch.setattr(pixels, "CHUNK", 1000)  # many blocks, one partly filled
     nside = 32
     n = np.array(hp.pix2vec(nside, np.arange(hp.nside2npix(nside))))
     m = _map(nside, 6) + 3.0 + n.T @ [0.4, -1.5, 2.0]
@@ -201,9 +201,9 @@ def test_dipole_fit_by_normal_equations_equals_lstsq(monkeypatch):
 
 
 def test_regrade_in_blocks_equals_healpy_ud_grade(monkeypatch):
-    import topology.maps as maps
+    import topology.maps.pixels as pixels
 
-    monkeypatch.setattr(maps, "CHUNK", 100)
+    monkeypatch.setattr(pixels, "CHUNK", 100)
     w32 = _weights(32, 0)
     # check: healpy.ud_grade (mean of the sub-pixels; a copy of the parent when upgrading)
     assert np.allclose(regrade_weights(w32, 8), hp.ud_grade(w32, 8), rtol=0, atol=1e-15)
@@ -217,9 +217,9 @@ def test_regrade_in_blocks_equals_healpy_ud_grade(monkeypatch):
 
 
 def test_reading_in_blocks_equals_healpy(tmp_path, monkeypatch):
-    import topology.maps as maps
+    import topology.maps.read as read
 
-    monkeypatch.setattr(maps, "_READ_BYTES", 3 * 4096 + 17)  # blocks of 3 rows of 1024 pixels
+    monkeypatch.setattr(read, "READ_BYTES", 3 * 4096 + 17)  # blocks of 3 rows of 1024 pixels
     m = _map(32, 9)
     iqu = [m, 2 * m, -m]
     hp.write_map(tmp_path / "n32.fits", [hp.reorder(c, r2n=True) for c in iqu], nest=True, dtype=np.float32)
@@ -246,11 +246,11 @@ def test_reading_in_blocks_equals_healpy(tmp_path, monkeypatch):
 
 @pytest.mark.parametrize("iterations", [1, 3])
 def test_iterated_alm_equals_healpy_map2alm(iterations):
-    from topology.maps import _weighted_alm
+    from topology.maps import weighted_alm
 
     m = _map(32, 11)
     sky = as_skymap(m, source="float64 map")
-    alm = _weighted_alm(sky, None, np.zeros(4), 60, iterations)
+    alm = weighted_alm(sky, None, np.zeros(4), 60, iterations)
     # check: healpy.map2alm(iter=k) runs the same Jacobi steps on the whole array
     ref = hp.map2alm(m, lmax=60, iter=iterations)
     assert np.max(np.abs(alm - ref)) <= 1e-12 * np.max(np.abs(ref))
