@@ -16,7 +16,7 @@ import pytest
 def _need(program: str) -> str:
     path = shutil.which(program)
     if path is None:
-        message = f"{program} is not installed (apt-get install texlive-latex-base chromium; .ci/run does)"
+        message = f"{program} is not installed (apt-get install texlive-latex-base texlive-latex-recommended chromium; .ci/run does)"
         if os.environ.get("CI"):
             pytest.fail(message)
         pytest.skip(message)
@@ -24,16 +24,17 @@ def _need(program: str) -> str:
 
 
 def compile_latex(table_tex: Path, workdir: Path) -> Path:
-    """Compile a table file inside a minimal article with pdflatex; returns the PDF. Fails the
-    test with the LaTeX error when it does not compile."""
+    """Compile a table file inside a minimal article (booktabs, longtable) with pdflatex; returns
+    the PDF. Fails the test with the LaTeX error when it does not compile or a table is too wide
+    for the page (an overfull box)."""
     pdflatex = _need("pdflatex")
     workdir.mkdir(parents=True, exist_ok=True)
     doc = workdir / "paper.tex"
-    doc.write_text("\\documentclass{article}\n\\begin{document}\n\\input{" + table_tex.resolve().as_posix()
+    doc.write_text("\\documentclass{article}\n\\usepackage{booktabs,longtable}\n\\begin{document}\n\\input{" + table_tex.resolve().as_posix()
                    + "}\n\\end{document}\n")
     run = subprocess.run([pdflatex, "-interaction=nonstopmode", "-halt-on-error", doc.name], cwd=workdir,
                          capture_output=True, text=True, timeout=120)
-    errors = [line for line in run.stdout.splitlines() if line.startswith("!")]
+    errors = [line for line in run.stdout.splitlines() if line.startswith("!") or line.startswith("Overfull")]
     assert run.returncode == 0 and not errors, "\n".join(errors) or run.stdout[-2000:]
     pdf = workdir / "paper.pdf"
     assert pdf.is_file() and pdf.read_bytes().startswith(b"%PDF")

@@ -165,8 +165,30 @@ def test_injectivity_radii_give_the_shortest_displacements():
         assert by[k]["shortest_displacement_over_curvature_radius"] == pytest.approx(d, abs=1e-9)
         chi = math.atan(math.tan(d / 2) / math.cos(math.radians(14.0)))
         assert by[k]["max_chi_rec_over_curvature_radius"] == pytest.approx(chi, rel=1e-12)
-    # coprime q <= p/2 only: L(9, q) for q = 1, 2, 4
-    assert sorted(r["q"] for r in rows if r["family"] == "lens" and r["p"] == 9) == [1, 2, 4]
+    # coprime q <= p/2, one per isometry class: L(9, 4) is L(9, 2) (4 = -2^-1 mod 9)
+    assert sorted(r["q"] for r in rows if r["family"] == "lens" and r["p"] == 9) == [1, 2]
+    assert next(r for r in rows if r["family"] == "lens" and (r["p"], r["q"]) == (9, 2))["isometric_q"] == [2, 4]
+
+
+@pytest.mark.parametrize("p", range(2, 16))
+def test_isometric_lens_spaces_are_folded_by_the_classification(p):
+    # check: the classification of lens spaces (Reidemeister 1935; Brody 1960): L(p, q) and
+    # L(p, q') are isometric iff q' = +-q^(+-1) mod p. Isometric spaces share every metric
+    # invariant: the largest shortest displacement over observers agrees within each class, and
+    # the folded rows are one per class
+    qs = [q for q in range(1, p // 2 + 1) if math.gcd(p, q) == 1]
+    classes = {}
+    for q in qs:
+        inv = pow(q, -1, p)
+        members = {min(x % p, p - x % p) for x in (q, -q, inv, -inv)}
+        classes.setdefault(frozenset(members), []).append(q)
+        assert bounds.lens_isometric_qs(p, q) == sorted(members)
+    for members in classes:
+        d = [bounds.lens_best_observer(p, q)[1] for q in members]
+        assert max(d) - min(d) < 1e-9, (p, sorted(members), d)
+    rows = bounds.spherical_family_bounds(math.radians(14.0), Cosmology(), p_max=p, m_max=2)
+    lens_p = [r["q"] for r in rows if r["family"] == "lens" and r["p"] == p]
+    assert sorted(lens_p) == sorted(min(m) for m in classes)
 
 
 @pytest.mark.parametrize("spec", [{"family": "lens", "p": 7, "q": 2}, {"family": "lens", "p": 12, "q": 5},
@@ -273,8 +295,10 @@ def test_cli_json_contract_and_tables(tmp_path, capsys):
     assert str(t["min_curvature_radius_mpc"].unit) == "Mpc"
     assert t["omega_k_bound"][0] == pytest.approx(s["spherical"][0]["min_omega_k"])
     tex = stem.with_suffix(".tex").read_text()
-    assert "\\caption{" in tex and "14^\\circ" in tex and "Omega\\_Lambda taking up the difference" in tex
-    assert tex.count("\\\\") == len(s["spherical"]) + 1
+    assert "\\caption{" in tex and "14^\\circ" in tex and "$\\Omega_\\Lambda$ taking up the difference" in tex
+    # the long table: caption, header on the first and on later pages, one row per distinct spherical
+    # space; the flat table: header, any flat space, cubic torus, the configured E2
+    assert tex.count("\\\\") == (len(s["spherical"]) + 3) + (1 + 3) and tex.count("\\toprule") == 3
     from rendering import compile_latex
 
     compile_latex(stem.with_suffix(".tex"), tmp_path / "tex")

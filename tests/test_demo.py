@@ -69,8 +69,10 @@ def test_report_latex_compiles_and_page_renders(demo, tmp_path):
     assert any(m["bounds"] for m in summary["maps"])  # survey-B gives a bound: bounds.tex is a table
     compile_latex(out / "bounds.tex", tmp_path / "tex")
     grey, dom = render_page(out / "index.html", tmp_path / "page")
-    # candidates, thresholds, efficiency and bounds tables; S_max and sky of both maps, efficiency, Omega_K
-    assert dom.count("<table") == 4 and dom.count("<img") == 6
+    # candidates, thresholds, efficiency, flat and curved bounds; S_max and sky of both maps, efficiency,
+    # Omega_K; the configured families of [bounds] with their verdicts
+    assert dom.count("<table") == 5 and dom.count("<img") == 6
+    assert "E2 (lengths 1.55, 1.7, 0.8)" in dom and "excluded" in dom and "E1 (lengths 1.8, 1.8, 1.8)" in dom
     assert "What these results assume" in dom
     # the figures are drawn: the screenshot is far from a blank page
     assert grey.shape[1] == 1000 and grey.std() > 0.05 and (grey < 0.5).mean() > 0.01

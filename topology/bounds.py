@@ -347,10 +347,25 @@ def spherical_entry(family: str, params: dict, d_min: float, alpha_min: float, o
     return row
 
 
+def lens_isometric_qs(p: int, q: int) -> list[int]:
+    """The q' in [1, p/2] with L(p, q') isometric to L(p, q): q' = +-q or +-q^-1 mod p
+    (the classification of lens spaces, Reidemeister 1935 / Brody 1960; q coprime to p)."""
+    p, q = int(p), int(q)
+    inv = pow(q, -1, p) if p > 1 else q
+    cands = {(s * x) % p for x in (q, inv) for s in (1, -1)}
+    return sorted({min(c, p - c) for c in cands if c})
+
+
+def lens_canonical_q(p: int, q: int) -> int:
+    """The smallest q' in [1, p/2] with L(p, q') isometric to L(p, q)."""
+    return lens_isometric_qs(p, q)[0]
+
+
 def spherical_family_bounds(alpha_min: float, cosmo: Cosmology, *, p_max: int = DEFAULT_P_MAX,
                             m_max: int = DEFAULT_M_MAX, seed: int = 0) -> list[dict]:
-    """Rows for every spherical family of the registry: lens L(p, q) for coprime 1 <= q <= p/2,
-    2 <= p <= p_max (maximised over observers); prism D*_m for 2 <= m <= m_max; each family
+    """Rows for every spherical family of the registry: lens L(p, q) for 2 <= p <= p_max, one
+    row per isometry class (:func:`lens_canonical_q`; ``isometric_q`` lists the class when it has
+    more than one member), maximised over observers; prism D*_m for 2 <= m <= m_max; each family
     without parameters (tetrahedral, octahedral, dodecahedral, ...)."""
     alpha_min = check_alpha_min(alpha_min)
     omk = _OmegaK(cosmo)
@@ -361,12 +376,16 @@ def spherical_family_bounds(alpha_min: float, cosmo: Cosmology, *, p_max: int = 
         if fam == "lens":
             for p in range(2, int(p_max) + 1):
                 for q in range(1, p // 2 + 1):
-                    if math.gcd(p, q) != 1:
-                        continue
+                    if math.gcd(p, q) != 1 or lens_canonical_q(p, q) != q:
+                        continue  # one row per isometry class
                     t, d = lens_best_observer(p, q)
                     homog = q % p in (1, p - 1)
-                    rows.append(spherical_entry("lens", {"p": p, "q": q}, d, alpha_min, omk, cosmo, homogeneous=homog,
-                                                best_observer=None if homog else lens_observer_point(t)))
+                    row = spherical_entry("lens", {"p": p, "q": q}, d, alpha_min, omk, cosmo, homogeneous=homog,
+                                          best_observer=None if homog else lens_observer_point(t))
+                    same = lens_isometric_qs(p, q)
+                    if len(same) > 1:
+                        row["isometric_q"] = same
+                    rows.append(row)
             continue
         if fam == "prism":
             specs = [{"m": m} for m in range(2, int(m_max) + 1)]

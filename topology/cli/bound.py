@@ -74,11 +74,12 @@ def run(args):
         summary = bounds.bound_summary(a, seed=args.seed, **kw)
     if paths:
         table = report.bounds_table(summary)
+        flat = report.flat_bounds_table(summary)
         ecsv, tex = paths
 
         def write_both(tmp):
             table.write(tmp, format="ascii.ecsv", overwrite=True)
-            atomic_write(tex, lambda t2: Path(t2).write_text(report.bounds_latex(table, summary)))
+            atomic_write(tex, lambda t2: Path(t2).write_text(report.bounds_latex(table, flat, summary)))
 
         atomic_write(ecsv, write_both)
     if args.json:

@@ -80,64 +80,122 @@ def target_tables(maps: list[dict], calibration: dict, th, null, *, false_alarm:
     return t, tt, et
 
 
-def bounds_table(summary: dict):
-    """The curved-space rows of a summary as an astropy Table with units and provenance meta.
+def space_label(family: str, params: dict | None = None) -> str:
+    """A space in words: 'lens L(7, 2)', 'prism D*_3', 'E2 (lengths 1.55, 1.7, 0.8)'."""
+    params = params or {}
+    if family == "lens" and "p" in params:
+        return f"lens L({params['p']}, {params['q']})"
+    if family == "prism" and "m" in params:
+        return f"prism D*_{params['m']}"
+    shown = {k: v for k, v in params.items() if k not in ("angle", "angles", "length_unit") or v not in (90.0, [90.0] * 3)}
+    if not shown:
+        return str(family)
+    parts = []
+    for k, v in shown.items():
+        v = ", ".join(f"{x:g}" for x in v) if isinstance(v, (list, tuple)) else (f"{v:g}" if isinstance(v, float) else v)
+        parts.append(f"{k} {v}")
+    return f"{family} ({'; '.join(parts)})"
 
-    One row per spherical family and parameter set (and the configured hyperbolic or spherical
-    space); the flat bounds, alpha_min, chi_rec and the Omega_K convention are in ``meta``.
-    """
-    rows = [dict(r, geometry="spherical", omega_k_bound=r["min_omega_k"], bound_kind="min")
-            for r in summary["spherical"]]
-    for key, kind in (("spherical_configured", "min"), ("hyperbolic", "max")):
-        if key in summary:
-            r = summary[key]
-            rows.append(dict(r, **r["params"], geometry=("spherical" if kind == "min" else "hyperbolic"),
-                             family=r["family"] + " (configured)",
-                             omega_k_bound=r.get("min_omega_k", r.get("max_omega_k")), bound_kind=kind))
-    hubble_mpc = C_KM_S / (100.0 * summary["cosmology"]["h"])
 
-    def col(name, key, dtype, unit=None, desc=""):
-        vals = [r.get(key) for r in rows]
-        mask = [v is None for v in vals]
-        fill = {"i": 0, "f": np.nan, "U": ""}[np.dtype(dtype).kind]
-        data = np.array([fill if v is None else v for v in vals], dtype=dtype)
-        return MaskedColumn(data, name=name, mask=mask, unit=unit, description=desc)
+def _verdict(entry: dict | None) -> str:
+    if entry is None or "excluded" not in entry:
+        return "not tested"
+    return "excluded" if entry["excluded"] else "allowed"
 
-    rc_mpc = [None if r["omega_k_bound"] in (None, 0.0) else hubble_mpc / math.sqrt(abs(r["omega_k_bound"])) for r in rows]
-    for r, v in zip(rows, rc_mpc):
-        r["rc_mpc"] = v
+
+def _column(rows, name, key, dtype, unit=None, desc=""):
+    vals = [r.get(key) for r in rows]
+    mask = [v is None for v in vals]
+    fill = {"i": 0, "f": np.nan, "U": ""}[np.dtype(dtype).kind]
+    data = np.array([fill if v is None else v for v in vals], dtype=dtype)
+    return MaskedColumn(data, name=name, mask=mask, unit=unit, description=desc)
+
+
+def _meta(summary: dict) -> dict:
+    return {"alpha_min_deg": summary["alpha_min_deg"], "chi_rec_mpc": summary["chi_rec_mpc"],
+            "convention": summary["convention"], "assumptions": summary["assumptions"],
+            "cosmology": dict(summary["cosmology"]), "source": "topology.bounds (CSS 1998 circle radii)"}
+
+
+def flat_bounds_table(summary: dict) -> Table:
+    """Flat spaces: the bound on any flat space (shortest loop), the cubic torus, and every
+    configured flat space with its verdict and the smallest allowed scale of its shape."""
+    f = summary["flat"]
+    rows = [{"space": "any flat space", "quantity": "shortest loop / (2 chi_rec)",
+             "bound": f["min_loop_over_lss_diameter"], "bound_mpc": f["min_loop_mpc"], "verdict": "bound"},
+            {"space": "cubic torus E1", "quantity": "inscribed radius R_i / chi_rec",
+             "bound": f["cubic_torus_inscribed_radius_over_chi_rec"],
+             "bound_mpc": f["cubic_torus_inscribed_radius_over_chi_rec"] * summary["chi_rec_mpc"], "verdict": "bound"}]
+    configured = ([f["configured"]] if "configured" in f else []) + [
+        e["flat"] for e in summary.get("families", []) if "flat" in e]
+    for c in configured:
+        rows.append({"space": space_label(c["family"], c["params"]), "quantity": "scale factor of the shape",
+                     "bound": c["min_scale_factor"], "verdict": _verdict(c),
+                     "shortest_displacement": c.get("shortest_displacement_over_chi_rec"),
+                     "largest_circle": c.get("largest_circle_radius_deg")})
     t = Table([
-        col("geometry", "geometry", "U10"),
-        col("family", "family", "U32"),
-        col("p", "p", int, desc="lens space order p"),
-        col("q", "q", int, desc="lens space q (q <= p/2)"),
-        col("m", "m", int, desc="prism space S^3/D*_m"),
-        col("shortest_displacement", "shortest_displacement_over_curvature_radius", float, u.dimensionless_unscaled,
-            "shortest clone displacement in units of R_c (maximised over observers when inhomogeneous)"),
-        col("max_chi_rec_over_curvature_radius", "max_chi_rec_over_curvature_radius", float, u.dimensionless_unscaled,
-            "largest allowed chi_rec / R_c"),
-        col("min_curvature_radius_over_chi_rec", "min_curvature_radius_over_chi_rec", float, u.dimensionless_unscaled,
-            "smallest allowed R_c / chi_rec"),
-        col("omega_k_bound", "omega_k_bound", float, u.dimensionless_unscaled,
-            "Omega_K > bound (spherical, bound_kind min) or Omega_K < bound (hyperbolic, max); " + summary["convention"]),
-        col("bound_kind", "bound_kind", "U3"),
-        col("min_curvature_radius_mpc", "rc_mpc", float, u.Mpc, "R_c = (c/H0)/sqrt(|Omega_K|) at the Omega_K bound"),
+        _column(rows, "space", "space", "U96"),
+        _column(rows, "quantity", "quantity", "U40"),
+        _column(rows, "bound", "bound", float, u.dimensionless_unscaled,
+                "the quantity is larger than this (scale factor: the shape is allowed when scaled by more)"),
+        _column(rows, "bound_mpc", "bound_mpc", float, u.Mpc, "the bound in Mpc"),
+        _column(rows, "shortest_displacement", "shortest_displacement", float, u.dimensionless_unscaled,
+                "configured space: shortest clone displacement at the observer, in chi_rec"),
+        _column(rows, "largest_circle", "largest_circle", float, u.deg,
+                "configured space: radius of its largest matched circles"),
+        _column(rows, "verdict", "verdict", "U12", desc="excluded / allowed at alpha_min (configured spaces)"),
     ])
+    t.meta.update(_meta(summary))
+    return t
+
+
+def bounds_table(summary: dict) -> Table:
+    """Curved spaces: one row per spherical family and distinct space (isometric lens spaces
+    folded), then the configured spherical or hyperbolic spaces with their verdicts."""
+    rows = []
+    for r in summary["spherical"]:
+        iso = r.get("isometric_q")
+        rows.append(dict(r, geometry="spherical",
+                         space=space_label(r["family"], {k: r[k] for k in ("p", "q", "m") if k in r}),
+                         isometric_q=" ".join(str(q) for q in iso) if iso else None,
+                         omega_k_bound=r["min_omega_k"], verdict="bound"))
+    configured = [summary[k] for k in ("spherical_configured", "hyperbolic") if k in summary]
+    configured += [e[k] for e in summary.get("families", []) for k in ("spherical_configured", "hyperbolic") if k in e]
+    for r in configured:
+        geometry = "hyperbolic" if "max_omega_k" in r else "spherical"
+        rows.append(dict(r, **{k: v for k, v in r["params"].items() if k in ("p", "q", "m")}, geometry=geometry,
+                         space=space_label(r["family"], r["params"]) + " (configured)",
+                         omega_k_bound=r.get("min_omega_k", r.get("max_omega_k")), verdict=_verdict(r)))
+    hubble_mpc = C_KM_S / (100.0 * summary["cosmology"]["h"])
+    for r in rows:
+        ok = r["omega_k_bound"]
+        r["rc_mpc"] = None if ok in (None, 0.0) else hubble_mpc / math.sqrt(abs(ok))
+    t = Table([
+        _column(rows, "geometry", "geometry", "U10"),
+        _column(rows, "space", "space", "U64"),
+        _column(rows, "family", "family", "U32"),
+        _column(rows, "p", "p", int, desc="lens space order p"),
+        _column(rows, "q", "q", int, desc="lens space q, the smallest of its isometry class"),
+        _column(rows, "isometric_q", "isometric_q", "U32", desc="lens spaces: the q' <= p/2 of isometric L(p, q')"),
+        _column(rows, "m", "m", int, desc="prism space S^3/D*_m"),
+        _column(rows, "shortest_displacement", "shortest_displacement_over_curvature_radius", float,
+                u.dimensionless_unscaled,
+                "shortest clone displacement in units of R_c (maximised over observers when inhomogeneous)"),
+        _column(rows, "max_chi_rec_over_curvature_radius", "max_chi_rec_over_curvature_radius", float,
+                u.dimensionless_unscaled, "largest allowed chi_rec / R_c"),
+        _column(rows, "min_curvature_radius_over_chi_rec", "min_curvature_radius_over_chi_rec", float,
+                u.dimensionless_unscaled, "smallest allowed R_c / chi_rec"),
+        _column(rows, "omega_k_bound", "omega_k_bound", float, u.dimensionless_unscaled,
+                "spherical: Omega_K > bound; hyperbolic: Omega_K < bound; " + summary["convention"]),
+        _column(rows, "min_curvature_radius_mpc", "rc_mpc", float, u.Mpc,
+                "R_c = (c/H0)/sqrt(|Omega_K|) at the Omega_K bound"),
+        _column(rows, "verdict", "verdict", "U12",
+                desc="bound (a family's limit) or, for a configured space, excluded / allowed / not tested "
+                     "(not tested: the background has another curvature)"),
+    ])
+    t.meta.update(_meta(summary))
     flat = summary["flat"]
-    t.meta.update({
-        "alpha_min_deg": summary["alpha_min_deg"],
-        "chi_rec_mpc": summary["chi_rec_mpc"],
-        "convention": summary["convention"],
-        "assumptions": summary["assumptions"],
-        "flat_min_loop_over_lss_diameter": flat["min_loop_over_lss_diameter"],
-        "flat_min_loop_mpc": flat["min_loop_mpc"],
-        "cubic_torus_inscribed_radius_over_chi_rec": flat["cubic_torus_inscribed_radius_over_chi_rec"],
-        "cosmology": {k: v for k, v in summary["cosmology"].items()},
-        "source": "topology.bounds (CSS 1998 circle radii)",
-    })
-    if "configured" in flat:
-        cfg = flat["configured"]
-        t.meta["flat_configured"] = {k: cfg[k] for k in ("family", "params", "excluded", "min_scale_factor",
-                                                         "shortest_displacement_over_chi_rec")}
-        t.meta["flat_configured"]["excluded_fraction"] = cfg["observer_positions"]["excluded_fraction"]
+    t.meta.update({"flat_min_loop_over_lss_diameter": flat["min_loop_over_lss_diameter"],
+                   "flat_min_loop_mpc": flat["min_loop_mpc"],
+                   "cubic_torus_inscribed_radius_over_chi_rec": flat["cubic_torus_inscribed_radius_over_chi_rec"]})
     return t

@@ -161,12 +161,15 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
     if first_bounds is not None:
         bt = report.bounds_table(first_bounds)
         bt.write(staging / "bounds.ecsv", format="ascii.ecsv")
+        ft = report.flat_bounds_table(first_bounds)
+        ft.write(staging / "flat_bounds.ecsv", format="ascii.ecsv")
         level_tex = format(calibration["efficiency_level"], ".0%").replace("%", r"\%")
         cap_extra = (f" Circles of radius $\\alpha \\geq \\alpha_{{\\min}} = {first_bounds['alpha_min_deg']:.1f}^\\circ$ are "
                      f"excluded at false-alarm probability {plan.false_alarm:g} with detection efficiency "
                      f"$\\geq$ {level_tex}, calibrated on {plan.n_null} isotropic skies.")
-        (staging / "bounds.tex").write_text(report.bounds_latex(bt, first_bounds, extra_caption=cap_extra))
-        tables["bounds"] = bt
+        (staging / "bounds.tex").write_text(report.bounds_latex(bt, ft, first_bounds, extra_caption=cap_extra))
+        tables["bounds: flat spaces"] = ft
+        tables["bounds: curved spaces"] = bt
         fig = report.figure_omega_k(staging / "omega_k", first_bounds)
         if fig:
             figures["Omega_K allowed for spherical spaces"] = fig
