@@ -26,8 +26,8 @@ import numpy as np
 
 from topology.maps import as_skymap
 from topology.search import SearchSettings, parse_radii, search_sky
-from topology.search import modes as md
 from topology.search import statistic as st
+from topology.search.allpairs import twist_count
 from topology.search.sampling import centre_grid
 
 
@@ -91,7 +91,7 @@ def main(argv=None) -> int:
     coeffs = (rng.standard_normal((len(centers), M + 1)) + 1j * rng.standard_normal((len(centers), M + 1)))
     coeffs /= np.sqrt(np.arange(1, M + 2))
     a = st.weighted(coeffs, M)
-    n_tau = md.twist_count(M, 2.0)
+    n_tau = twist_count(M, 2.0)
     kernel_vs_sgemm(a[:256], n_tau, mem)  # warm up
     t_k, t_g, flops = kernel_vs_sgemm(a, n_tau, mem)
     ratio = t_g / t_k

@@ -214,17 +214,17 @@ def test_search_checkpoint_is_keyed_by_content(tmp_path):
     path = tmp_path / "sky.fits"
     _write_map(path, 1)
     s = SearchSettings(radii_deg=(30.0,), nside_work=8, m_max=8, centre_nside=2)
-    fp1 = file_checkpoint(path, None, s).fp
+    fp1 = file_checkpoint(path, None, s).fingerprint
     st = path.stat()
     _write_map(path, 2)
     os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))
     assert path.stat().st_size == st.st_size
-    assert file_checkpoint(path, None, s).fp != fp1
+    assert file_checkpoint(path, None, s).fingerprint != fp1
     _write_map(path, 1)
-    assert file_checkpoint(path, None, s).fp == fp1  # same content, same key
+    assert file_checkpoint(path, None, s).fingerprint == fp1  # same content, same key
     copy = tmp_path / "renamed.fits"
     copy.write_bytes(path.read_bytes())
-    assert file_checkpoint(copy, None, s).fp == fp1  # the name is not part of the key
+    assert file_checkpoint(copy, None, s).fingerprint == fp1  # the name is not part of the key
     assert read_healpix(copy).nside == NSIDE
 
 

@@ -106,7 +106,8 @@ def test_checkpoint_and_resume(sky_file, tmp_path, monkeypatch, capsys):
     ck = [n for n in _files(tmp_path) if n.startswith(".topology-search")]
     assert len(ck) == 1
     saved = json.loads((tmp_path / ck[0]).read_text())
-    assert [k for k, _ in saved["results"]] == [20.0, 30.0]
+    assert saved["version"] == 3 and list(saved["results"]) == ["20.0", "30.0"]
+    assert [r["result"]["radius_deg"] for r in saved["results"].values()] == [20.0, 30.0]
     calls.clear()
     monkeypatch.setattr(md.AntipodalMode, "run_task", lambda self, ctx, key: (calls.append(key), real(self, ctx, key))[1])
     assert main(args + ["--resume"]) == 0

@@ -10,9 +10,10 @@ from topology import geometry as geo
 from topology.circles import predict_circles
 from topology.maps import as_skymap, prepare_map
 from topology.search import SearchSettings, search_sky
-from topology.search import modes as md
 from topology.search import statistic as st
-from topology.search.sampling import sample_circles
+from topology.search.allpairs import allpairs_top, twist_count
+from topology.search.context import centre_levels
+from topology.search.sampling import centre_grid, sample_circles
 from topology.spaces import build_space
 
 OBS = dict(position=[0.12, -0.05, 0.03], euler=(0.3, 0.6, -0.2))
@@ -151,11 +152,11 @@ def test_what_refinement_misses():
     pm = prepare_map(as_skymap(T), nside_work=64, fwhm_deg=2.0)
     ranks = {}
     for kappa in (1.2, 0.0):
-        lv = md.centre_levels(16, 64, np.radians(2.0), kappa)[0]
-        circ = sample_circles(pm.working_map(lv.fwhm), md.centre_grid(16), p.radius, 98, 48)
+        lv = centre_levels(16, 64, np.radians(2.0), kappa)[0]
+        circ = sample_circles(pm.working_map(lv.fwhm), centre_grid(16), p.radius, 98, 48)
         mc = st.effective_m_cut(circ.coeffs, 48)
-        ia, ib, o, sv = md.allpairs_top(st.weighted(circ.coeffs, mc), circ.centers, np.ones(len(circ), bool),
-                                        md.twist_count(mc, 2), 256, np.radians(10), 1 << 26)
+        ia, ib, o, sv = allpairs_top(st.weighted(circ.coeffs, mc), circ.centers, np.ones(len(circ), bool),
+                                     twist_count(mc, 2), 256, np.radians(10), 1 << 26)
         sel = np.flatnonzero(o == st.OPPOSITE)
         near = [k for k, (i, j) in enumerate(zip(ia[sel], ib[sel]))
                 if min(max(_sep_deg(circ.centers[i], p.center_a), _sep_deg(circ.centers[j], p.center_b)),

@@ -137,7 +137,7 @@ def test_masked_noisy_sw_skies(name, monkeypatch):
     # coarse level (N_side 16 centres, 4.4 deg smoothing) passes on the 64 best distinct pairs;
     # for all-pairs the check is that every pair the coarse level passes on is found (none is
     # lost to side lobes, cut-pair normalisation or ranking) and that the pairs it does not pass
-    # on are exactly among the measured misses (topology.search.modes docstring, item 1).
+    # on are exactly among the measured misses (benchmarks/SEARCH_VALIDATION.md, item 1).
     space, obs, chi, t, mask = _observed(name)
     pairs = [p for p in predict_circles(space, obs, chi) if math.degrees(p.radius) >= 15
              and np.degrees(np.arccos(np.clip(p.center_a @ p.center_b, -1, 1))) > 10]
@@ -151,9 +151,9 @@ def test_masked_noisy_sw_skies(name, monkeypatch):
     coarse = md.AllPairsMode.coarse
 
     def recording(self, ctx, circ, valid, m_cut, work):
-        ia, ib, orient = coarse(self, ctx, circ, valid, m_cut, work)
-        passed[round(math.degrees(circ.radius), 4)] = (circ.centers[ia], circ.centers[ib], orient)
-        return ia, ib, orient
+        picked = coarse(self, ctx, circ, valid, m_cut, work)
+        passed[round(math.degrees(circ.radius), 4)] = (picked.center_a, picked.center_b, picked.orientation)
+        return picked
 
     monkeypatch.setattr(md.AllPairsMode, "coarse", recording)
     step = math.degrees(hp.nside2resol(16))
@@ -169,8 +169,8 @@ def test_masked_noisy_sw_skies(name, monkeypatch):
                 d = [min(max(_deg(a, p.center_a), _deg(b, p.center_b)), max(_deg(a, p.center_b), _deg(b, p.center_a)))
                      for a, b, oo in zip(ca, cb, o) if oo == (0 if p.orientation > 0 else 1)]
                 seen = min(d) < step
-                # a pair the coarse level does not pass on is one of the measured misses (module
-                # docstring of topology.search.modes, item 1), all with < 70% jointly kept
+                # a pair the coarse level does not pass on is one of the measured misses
+                # (benchmarks/SEARCH_VALIDATION.md, item 1), all with < 70% jointly kept
                 assert seen or ((name, round(r, 1)) in COARSE_MISSES and _fractions(p)[2] < 0.7), (name, r, min(d))
                 if not seen:
                     continue

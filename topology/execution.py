@@ -180,7 +180,7 @@ def run_tasks(tasks: list[Task], store, engine, show_progress: bool | None = Non
     Returns {"computed": n, "reused": n, "elapsed_s": t}."""
     import time
 
-    from .search.progress import progress
+    from .progress import progress
 
     t0 = time.perf_counter()
     todo = [t for t in tasks if not store.has(t.id, t.key)]

@@ -98,10 +98,6 @@ class Thresholds:
     measured_false_alarm: float  # fraction of null skies (leave-one-out) above the whole-range curve
     measured_false_alarm_error: float  # binomial sqrt(f(1-f)/N)
 
-    def exceeds(self, smax: np.ndarray) -> np.ndarray:
-        """Boolean per radius: S_max above the whole-range threshold."""
-        return np.asarray(smax) > self.whole_range
-
 
 def _quantile(null: np.ndarray, level: float) -> np.ndarray:
     return np.quantile(null, 1.0 - level, axis=0, method="higher")

@@ -1,5 +1,16 @@
-"""Durable task results for long runs: one file per finished task, written atomically, and a
-manifest of finished task ids, inside the run's output folder.
+"""Task results that survive an interruption, behind one protocol: ``has(task_id, key)``,
+``stale(task_id, key)``, ``put(task_id, result, key)``, ``get(task_id)``, ``finished()``.
+
+* :class:`MemoryStore`: in memory (notebooks, tests, a search of arrays);
+* :class:`TaskStore`: a run's folder, one file per finished task and a manifest (``topology run``);
+* :class:`FileStore`: one JSON file rewritten after every task (``topology search``), removed by
+  :meth:`FileStore.discard` once the search is complete.
+
+:func:`topology.execution.run_tasks` runs the tasks a store has not finished. The rest of this
+module (content digests, fingerprints, atomic writes) is what the stores are built on.
+
+TaskStore keeps durable results for long runs: one file per finished task, written atomically,
+and a manifest of finished task ids, inside the run's output folder.
 
 Layout of a store folder::
 
@@ -212,3 +223,56 @@ class TaskStore:
 
     def finished(self) -> set[str]:
         return set(self._finished)
+
+
+FILE_STORE_VERSION = 3  # of FileStore's JSON layout (2: a list of [radius, result] pairs)
+
+
+class FileStore:
+    """Results in one JSON file ``path``, {"fingerprint", "version", "results": {task_id: {"key",
+    "result"}}}, rewritten atomically after every :meth:`put` (results must be JSON-able; NaN
+    and infinities are kept). With ``resume`` an existing file of the same ``fingerprint`` and
+    version is loaded; any other file is ignored and overwritten by the first put."""
+
+    def __init__(self, path: str | Path, fingerprint: str, resume: bool = False):
+        self.path = Path(path)
+        self.fingerprint = fingerprint
+        self._results: dict[str, object] = {}
+        self._keys: dict[str, str] = {}
+        if resume and self.path.is_file():
+            try:
+                data = json.loads(self.path.read_text())
+            except (OSError, ValueError) as e:
+                raise InputError(f"cannot read checkpoint ({e}); delete it to start afresh", str(self.path)) from None
+            if (isinstance(data, dict) and data.get("fingerprint") == fingerprint
+                    and data.get("version") == FILE_STORE_VERSION):
+                for task_id, rec in data.get("results", {}).items():
+                    self._results[task_id] = rec["result"]
+                    self._keys[task_id] = rec.get("key", "")
+
+    def has(self, task_id: str, key: str = "") -> bool:
+        return task_id in self._results and self._keys.get(task_id, "") == key
+
+    def stale(self, task_id: str, key: str = "") -> bool:
+        """Finished, but from other inputs than ``key`` says."""
+        return task_id in self._results and self._keys.get(task_id, "") != key
+
+    def put(self, task_id: str, result, key: str = "") -> None:
+        self._results[task_id] = result
+        self._keys[task_id] = key
+        data = {"fingerprint": self.fingerprint, "version": FILE_STORE_VERSION,
+                "results": {t: {"key": self._keys[t], "result": r} for t, r in self._results.items()}}
+        atomic_bytes(self.path, json.dumps(data, allow_nan=True).encode())
+
+    def get(self, task_id: str):
+        return self._results[task_id]
+
+    def finished(self) -> set[str]:
+        return set(self._results)
+
+    def discard(self) -> None:
+        """Remove the file (a complete search needs no checkpoint)."""
+        try:
+            self.path.unlink()
+        except FileNotFoundError:
+            pass

@@ -1,4 +1,4 @@
-"""The matched-circle search: circles on a map, the S statistic, search modes, checkpoints.
+"""The matched-circle search: circles on a map, the S statistic, search modes, the job.
 
 Python API::
 
@@ -7,8 +7,12 @@ Python API::
 
     result = search_files("map.fits", "mask.fits", SearchSettings(mode="all-pairs"))
 
-Modules: sampling (circles on a map), statistic (S kernels), modes (antipodal, all-pairs,
-targeted), checkpoint (resume), progress (the progress bar), engine (the job).
+Modules, in the order of the flow: sampling (circles on a map), statistic (S kernels), context
+(what a mode works on: prepared map, settings, levels), allpairs (the all-pairs kernel of the
+coarse level), hierarchy (refinement of centre pairs level by level), targeted (orientation scan
+of predicted pairs), modes (antipodal, all-pairs, targeted: tasks and summaries), engine
+(settings, the job: tasks through topology.execution.run_tasks, checkpoint in topology.store),
+plot (the figure of a result).
 """
 
 from .engine import MODES, SearchSettings, parse_radii, search_files, search_sky, settings_from, validate

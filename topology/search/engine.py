@@ -1,8 +1,10 @@
-"""The search job: settings, validation, the loop over tasks with checkpoints and progress.
+"""The search job: settings, validation, and the mode's tasks run through the task runner of
+``topology run`` (:func:`topology.execution.run_tasks`) with a store of the store protocol.
 
 ``search_sky(sky, mask, settings)`` is the Python entry point (``SkyMap`` objects from
-:mod:`topology.maps`); ``search_files(map_path, mask_path, settings)`` reads the files first.
-Both return the JSON-able result of ``topology search --json``.
+:mod:`topology.maps`); ``search_files(map_path, mask_path, settings)`` reads the files first and
+keeps a checkpoint (:func:`file_checkpoint`, a :class:`topology.store.FileStore`) so that an
+interrupted search resumes. Both return the JSON-able result of ``topology search --json``.
 """
 
 from __future__ import annotations
@@ -13,12 +15,13 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputError, raise_if_stopped
-from . import modes as _modes
-from .checkpoint import FileCheckpoint, MemoryCheckpoint, search_fingerprint
-from .progress import progress
+from ..errors import InputError
+from ..execution import SerialEngine, Task, run_tasks
+from ..store import FILE_STORE_VERSION, FileStore, MemoryStore, file_digest, fingerprint
+from .context import SearchContext
+from .modes import AllPairsMode, AntipodalMode, TargetedMode
 
-MODES = {"antipodal": _modes.AntipodalMode, "all-pairs": _modes.AllPairsMode, "targeted": _modes.TargetedMode}
+MODES = {"antipodal": AntipodalMode, "all-pairs": AllPairsMode, "targeted": TargetedMode}
 
 
 @dataclass
@@ -31,7 +34,7 @@ class SearchSettings:
     fwhm_deg: float = 1.0
     nside_work: int = 128
     m_max: int = 64
-    n_phi: int | None = None  # None: enough samples for the map's band limit (modes.SearchContext.n_phi)
+    n_phi: int | None = None  # None: enough samples for the map's band limit (context.SearchContext.n_phi)
     centre_nside: int = 16  # coarse centre grid
     level_smoothing: float = 1.2  # kappa: FWHM_l = max(FWHM, kappa * step_l)
     n_keep: int = 64  # candidates per radius and orientation kept between levels
@@ -122,14 +125,18 @@ def validate(s: SearchSettings) -> SearchSettings:
     return s
 
 
-def default_checkpoint_path(map_path: str | Path, fp: str) -> Path:
-    """``.topology-search-<fingerprint>.json`` in the current folder."""
-    return Path(f".topology-search-{fp}.json")
+def task_id(key) -> str:
+    """The store's name of a task key: ``repr`` of a radius (a float, exact and stable), the index
+    of an observer position (targeted)."""
+    return repr(float(key)) if isinstance(key, float) else str(int(key))
 
 
-def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenario=None, checkpoint=None,
+def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenario=None, store=None,
                show_progress: bool | None = False, map_name: str = "") -> dict:
-    """Prepare the map, run the mode's tasks (skipping those the checkpoint has), summarise."""
+    """Prepare the map, run the mode's tasks that ``store`` (default a fresh
+    :class:`~topology.store.MemoryStore`) has not finished, serially, storing each result as it
+    finishes, and summarise. The store stays with the caller (:func:`search_read` discards its
+    file checkpoint once the search is complete)."""
     from ..maps import prepare_map
 
     t0 = time.perf_counter()
@@ -138,28 +145,14 @@ def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenar
         raise InputError("the targeted search needs a config with [space] (and [cosmology], [observer])", "--config")
     prepared = prepare_map(sky, mask, nside_work=s.nside_work, fwhm_deg=s.fwhm_deg, l_range=s.l_range,
                            l_weights=s.l_weights, mask_threshold=s.mask_threshold)
-    ctx = _modes.SearchContext(prepared, s, scenario)
+    ctx = SearchContext(prepared, s, scenario)
     mode = MODES[s.mode]()
-    tasks = mode.tasks(ctx)
-    store = checkpoint if checkpoint is not None else MemoryCheckpoint()
-    done = store.load()
-    bar = progress(len(tasks), f"topology search ({s.mode})", show_progress)
-    results = {}
-    try:
-        for key in tasks:
-            if key in done:
-                results[key] = done[key]
-                bar.update(1)
-                continue
-            res = mode.run_task(ctx, key)
-            results[key] = res
-            store.save(key, res)
-            bar.update(1)
-            raise_if_stopped()
-    finally:
-        bar.close()
+    keys = mode.tasks(ctx)
+    store = store if store is not None else MemoryStore()
+    tasks = [Task(id=task_id(k), fn=mode.run_task, kwargs={"ctx": ctx, "key": k}) for k in keys]
+    run_tasks(tasks, store, SerialEngine(), show_progress, label=f"topology search ({s.mode})")
+    results = {k: store.get(t.id) for k, t in zip(keys, tasks)}
     summary = mode.summarise(ctx, results)
-    store.finish()
     out = {
         "map": map_name or getattr(sky, "source", ""),
         "settings": s.as_dict(),
@@ -173,13 +166,18 @@ def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenar
     return out
 
 
-def file_checkpoint(map_path, mask_path, settings: SearchSettings, *, scenario=None, column: str | None = None,
-                    resume: bool = False, checkpoint_path=None) -> FileCheckpoint:
-    """The checkpoint of a search of files: keyed by a fingerprint of the settings, the content
-    of the map and mask files (not their names), the map column read and the scenario, so a
-    resume never mixes radii of another input."""
-    from ..store import file_digest
+def search_fingerprint(settings: dict, inputs: dict) -> str:
+    """Short fingerprint of the settings and the inputs ({role: content digest, ...}) and of the
+    checkpoint's layout (:data:`topology.store.FILE_STORE_VERSION`)."""
+    return fingerprint({"settings": settings, "inputs": inputs, "version": FILE_STORE_VERSION})[:16]
 
+
+def file_checkpoint(map_path, mask_path, settings: SearchSettings, *, scenario=None, column: str | None = None,
+                    resume: bool = False, checkpoint_path=None) -> FileStore:
+    """The checkpoint of a search of files, ``.topology-search-<fingerprint>.json`` in the current
+    folder unless ``checkpoint_path`` is given: keyed by a fingerprint of the settings, the
+    content of the map and mask files (not their names), the map column read and the scenario,
+    so a resume never mixes radii of another input."""
     ident = {}
     for name, p in (("map", map_path), ("mask", mask_path)):
         if p:
@@ -189,8 +187,8 @@ def file_checkpoint(map_path, mask_path, settings: SearchSettings, *, scenario=N
     if scenario is not None:
         ident["scenario"] = repr((scenario.space.describe(), scenario.chi, scenario.observer.point.tolist()))
     fp = search_fingerprint(settings.as_dict(), ident)
-    path = Path(checkpoint_path) if checkpoint_path else default_checkpoint_path(map_path, fp)
-    return FileCheckpoint(path, fp, resume=resume)
+    path = Path(checkpoint_path) if checkpoint_path else Path(f".topology-search-{fp}.json")
+    return FileStore(path, fp, resume=resume)
 
 
 def search_files(map_path, mask_path=None, settings: SearchSettings | None = None, *, field=None, scenario=None,
@@ -213,8 +211,10 @@ def search_read(sky, mask, map_path, mask_path, settings: SearchSettings, *, fie
     column = sky.header.get("COLUMN") if field is not None else None
     store = file_checkpoint(map_path, mask_path, settings, scenario=scenario, column=column, resume=resume,
                             checkpoint_path=checkpoint_path)
-    return search_sky(sky, mask, settings, scenario=scenario, checkpoint=store, show_progress=show_progress,
-                      map_name=str(map_path))
+    out = search_sky(sky, mask, settings, scenario=scenario, store=store, show_progress=show_progress,
+                     map_name=str(map_path))
+    store.discard()  # complete: nothing to resume
+    return out
 
 
 def settings_from(section: dict | None = None, **overrides) -> SearchSettings:

@@ -39,11 +39,6 @@ def centre_grid(nside: int) -> np.ndarray:
     return np.array(hp.pix2vec(nside, np.arange(12 * nside * nside))).T
 
 
-def default_n_phi(m_max: int) -> int:
-    """N_phi = 2 m_max + 2 (>= 2 m_max + 1, even): the band-limited circle is sampled at Nyquist."""
-    return 2 * int(m_max) + 2
-
-
 @dataclass
 class CircleSet:
     """Sampled circles of one radius.
@@ -75,9 +70,6 @@ class CircleSet:
 
     def __len__(self) -> int:
         return self.centers.shape[0]
-
-    def subset(self, index) -> "CircleSet":
-        return CircleSet(self.centers[index], self.radius, self.samples[index], self.kept[index], self.coeffs[index])
 
 
 def interpolate(map_ring: np.ndarray, mask: np.ndarray | None, points: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -244,21 +244,15 @@ def _masked_best(spec_a, spec_b, n: int, opposite: np.ndarray, min_overlap: floa
     return s, np.where(opposite, -tau, tau) % (2.0 * np.pi), frac[r, j]
 
 
-def best_twist_masked(fa, wa, fb, wb, min_overlap: float = 0.25, orient: np.ndarray | None = None):
-    """Masked S of row-aligned filtered circles: S (k, 2), contract twist (k, 2), jointly kept
-    fraction f (k, 2), both orientations (or only ``orient[i]`` per row; the other entries are -inf,
-    0, 0).
+def _masked_rows(spec_a, spec_b, n, min_overlap, orient):
+    """Masked S of row-aligned circles (their :func:`masked_spectra`): S (k, 2), contract twist
+    (k, 2), jointly kept fraction f (k, 2), both orientations (or only ``orient[i]`` per row; the
+    other entries are -inf, 0, 0).
 
     The shift chosen maximises the rank score sqrt(1 - (1 - S^2)^f) (:func:`rank_score`), not S:
     under the null the spread of S grows as f falls (fewer modes), so a short overlap cannot win by
     chance alone. The S reported is the S at that shift (parabola-refined over the neighbouring shifts).
     """
-    n = fa.shape[1]
-    spec_a, spec_b = masked_spectra(fa, wa), masked_spectra(fb, wb)
-    return _masked_rows(spec_a, spec_b, n, min_overlap, orient)
-
-
-def _masked_rows(spec_a, spec_b, n, min_overlap, orient):
     k = spec_a[0].shape[0]
     s_out = np.full((k, 2), -np.inf)
     t_out = np.zeros((k, 2))

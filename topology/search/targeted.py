@@ -1,0 +1,180 @@
+"""The targeted search: the predicted pairs of one family (config [space], [cosmology],
+[observer]) scanned over sky orientations R (z-y-z Euler grid; levels like the centre grids).
+
+For each R the circles are sampled at R n_A(phi_k) and R n_B(s phi_k + tau) (the contract of
+:mod:`topology.circles`), so each pair's S is taken at zero twist, same orientation; the
+combined statistic is the mean of the pair values S_comb(R) = (1/P) sum_p S_p(R) over the P
+usable pairs (radius in the radius range, both circles kept >= min_kept).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .. import geometry as geo
+from ..errors import InputError
+from . import statistic as st
+from .context import Level, SearchContext, add_work, candidate_record
+from .sampling import sample_points
+
+
+def orientation_grid(nside: int) -> np.ndarray:
+    """Euler angles (n, 3) z-y-z (rad): R z on the HEALPix pixel centres of ``nside`` (beta =
+    colatitude, alpha = longitude), gamma on a grid of step ~ the pixel size."""
+    import healpy as hp
+
+    theta, phi = hp.pix2ang(nside, np.arange(12 * nside * nside))
+    n_gamma = max(4, int(math.ceil(2.0 * np.pi / hp.nside2resol(nside))))
+    gamma = 2.0 * np.pi * np.arange(n_gamma) / n_gamma
+    a = np.repeat(phi, n_gamma)
+    b = np.repeat(theta, n_gamma)
+    g = np.tile(gamma, theta.size)
+    return np.stack([a, b, g], axis=1)
+
+
+def rotations(euler: np.ndarray) -> np.ndarray:
+    """(n, 3) z-y-z Euler angles -> (n, 3, 3) matrices R_z(a) R_y(b) R_z(g) (vectorised)."""
+    a, b, g = euler.T
+
+    def rz(t):
+        c, s = np.cos(t), np.sin(t)
+        z, o = np.zeros_like(t), np.ones_like(t)
+        return np.stack([np.stack([c, -s, z], -1), np.stack([s, c, z], -1), np.stack([z, z, o], -1)], -2)
+
+    def ry(t):
+        c, s = np.cos(t), np.sin(t)
+        z, o = np.zeros_like(t), np.ones_like(t)
+        return np.stack([np.stack([c, z, s], -1), np.stack([z, o, z], -1), np.stack([-s, z, c], -1)], -2)
+
+    return rz(a) @ ry(b) @ rz(g)
+
+
+def closest_gamma(r_old: np.ndarray, alpha: np.ndarray, beta: np.ndarray) -> np.ndarray:
+    """gamma making R_z(alpha) R_y(beta) R_z(gamma) closest to r_old (for each alpha, beta)."""
+    zero = np.zeros_like(alpha)
+    base = rotations(np.stack([alpha, beta, zero], axis=1))  # (n, 3, 3)
+    m = np.einsum("nji,jk->nik", base, r_old)  # base^T r_old ~ R_z(gamma)
+    return np.arctan2(m[:, 1, 0] - m[:, 0, 1], m[:, 0, 0] + m[:, 1, 1])
+
+
+def predicted_pairs(ctx: SearchContext, position) -> list:
+    """The scenario's predicted pairs seen from ``position`` with radii in the radius range."""
+    from ..circles import predict_circles
+
+    sc = ctx.scenario
+    try:
+        obs = geo.Observer.make(sc.space.geometry, position)
+    except InputError as e:
+        raise InputError(e.reason, "[search] positions") from None
+    lo, hi = min(ctx.settings.radii_deg), max(ctx.settings.radii_deg)
+    return [p for p in predict_circles(sc.space, obs, sc.chi) if lo - 1e-9 <= np.degrees(p.radius) <= hi + 1e-9]
+
+
+def evaluate(ctx: SearchContext, lv: Level, pairs, euler: np.ndarray, work: dict) -> tuple[np.ndarray, np.ndarray]:
+    """S_p(R) for rotations (n_rot, 3 Euler): returns (n_rot, P) pair values and usable flags."""
+    from ..circles import circle_points
+
+    s = ctx.settings
+    n_phi = ctx.n_phi(max(p.radius for p in pairs), lv)
+    phi = 2.0 * np.pi * np.arange(n_phi) / n_phi
+    base_a = np.stack([circle_points(p.center_a, p.radius, phi) for p in pairs])  # (P, N, 3)
+    base_b = np.stack([circle_points(p.center_b, p.radius, p.orientation * phi + p.twist) for p in pairs])
+    mp = ctx.level_map(lv)
+    out_s = np.empty((euler.shape[0], len(pairs)))
+    out_ok = np.empty((euler.shape[0], len(pairs)), dtype=bool)
+    chunk = max(1, 200_000 // (n_phi * len(pairs)))
+    for i0 in range(0, euler.shape[0], chunk):
+        R = rotations(euler[i0 : i0 + chunk])  # (r, 3, 3)
+        pa = np.einsum("rij,pkj->rpki", R, base_a).reshape(-1, n_phi, 3)
+        pb = np.einsum("rij,pkj->rpki", R, base_b).reshape(-1, n_phi, 3)
+        ctr = np.zeros((pa.shape[0], 3))
+        ca = sample_points(mp, pa, ctr, 0.0, n_phi, s.m_max, ctx.level_mask(lv))
+        cb = sample_points(mp, pb, ctr, 0.0, n_phi, s.m_max, ctx.level_mask(lv))
+        m_cut = st.effective_m_cut(np.vstack([ca.coeffs, cb.coeffs]), s.m_max, s.power_fraction)
+        sv, _, _ = st.s_at_zero(ca, cb, m_cut, s.min_overlap)
+        ok = (ca.kept_fraction >= s.min_kept) & (cb.kept_fraction >= s.min_kept)
+        r = R.shape[0]
+        out_s[i0 : i0 + r] = sv.reshape(r, -1)
+        out_ok[i0 : i0 + r] = ok.reshape(r, -1)
+        add_work(work, sv.size, 1, m_cut)
+    return out_s, out_ok
+
+
+def combine(sv: np.ndarray, ok: np.ndarray) -> np.ndarray:
+    """S_comb per rotation: the mean of the usable pair values (-inf where none is usable)."""
+    cnt = ok.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(cnt > 0, np.where(ok, sv, 0.0).sum(axis=1) / np.maximum(cnt, 1), -np.inf)
+
+
+def scan_orientations(ctx: SearchContext, levels: list[Level], pairs, work: dict) -> tuple[np.ndarray, list]:
+    """Best orientations (Euler angles, best first; at most ``n_keep``) after the last level, and
+    one {nside, fwhm_deg, orientations} record per level. Each level keeps the ``n_keep`` best and
+    tries, for each, the next grid's directions within one step and gammas within two steps."""
+    import healpy as hp
+
+    s = ctx.settings
+    lv = levels[0]
+    euler = orientation_grid(lv.nside)
+    sv, ok = evaluate(ctx, lv, pairs, euler, work)
+    comb = combine(sv, ok)
+    info = [{"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "orientations": int(euler.shape[0])}]
+    best = euler[np.argsort(-comb, kind="stable")[: s.n_keep]]
+    for prev, lv in zip(levels[:-1], levels[1:]):
+        cand = []
+        n_g = 2
+        for e in best:
+            zdir = np.array([np.sin(e[1]) * np.cos(e[0]), np.sin(e[1]) * np.sin(e[0]), np.cos(e[1])])
+            pix = hp.query_disc(lv.nside, zdir, prev.step)
+            if pix.size == 0:
+                pix = np.array([hp.vec2pix(lv.nside, *zdir)])
+            th, ph = hp.pix2ang(lv.nside, pix)
+            g0 = closest_gamma(rotations(e[None])[0], ph, th)
+            for dg in lv.step * np.arange(-n_g, n_g + 1):
+                cand.append(np.stack([ph, th, (g0 + dg) % (2 * np.pi)], axis=1))
+        cand = np.unique(np.round(np.vstack(cand), 9), axis=0)
+        sv, ok = evaluate(ctx, lv, pairs, cand, work)
+        comb = combine(sv, ok)
+        order = np.argsort(-comb, kind="stable")
+        best = cand[order[: s.n_keep]]
+        info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "orientations": int(cand.shape[0])})
+    return best, info
+
+
+def pair_records(pairs, R: np.ndarray, sv: np.ndarray, ok: np.ndarray, level_nside: int) -> list[dict]:
+    """The predicted pairs rotated by R with their S (NaN when not usable), without twist."""
+    out = []
+    for p, val, good in zip(pairs, sv, ok):
+        c = candidate_record(R @ p.center_a, R @ p.center_b, p.radius, 0.0, p.orientation,
+                             val if good else float("nan"), level_nside)
+        c.pop("twist_deg")
+        out.append({**c, "usable": bool(good)})
+    return out
+
+
+def targeted_candidates(ctx: SearchContext, best: dict) -> tuple[list, list]:
+    """Candidates and S_max rows in the contract of the search output, from the best position's
+    task result. Rotating the sky by R shifts the phase of circle A by a constant delta_A and of B
+    by delta_B, so the twist seen in the rotated frame is tau' = tau + delta_B - s delta_A; it is
+    measured from the rotated points."""
+    from ..circles import circle_phase, circle_points
+
+    R = np.asarray(best["rotation"])
+    pairs = predicted_pairs(ctx, best["position"])
+    phi = np.linspace(0.0, 2.0 * np.pi, 16, endpoint=False)
+    cands, s_max = [], {}
+    for p, rec in zip(pairs, best["pairs"]):
+        ca, cb = R @ p.center_a, R @ p.center_b
+        psi_a = circle_phase(ca, circle_points(p.center_a, p.radius, phi) @ R.T)
+        psi_b = circle_phase(cb, circle_points(p.center_b, p.radius, p.orientation * phi + p.twist) @ R.T)
+        tau = float(np.angle(np.mean(np.exp(1j * (psi_b - p.orientation * psi_a)))) % (2 * np.pi))
+        c = dict(rec)
+        c["twist_deg"] = float(np.degrees(tau) % 360.0)
+        cands.append(c)
+        key = (round(c["radius_deg"], 6), c["orientation"])
+        if np.isfinite(c["S"]) and (key not in s_max or c["S"] > s_max[key]):
+            s_max[key] = c["S"]
+    cands.sort(key=lambda c: -(c["S"] if np.isfinite(c["S"]) else -9))
+    return cands, [{"radius_deg": k[0], "orientation": k[1], "S_max": v} for k, v in sorted(s_max.items())]
