@@ -29,8 +29,10 @@ def run(args):
         out = prediction_json(sc, pairs)
     if args.plot:
         from ..plots import plot_circles
+        from ..spaces.registry import describe_space
 
-        atomic_write(args.plot, lambda tmp: plot_circles(pairs, tmp, title=f"{out['family']} {out['params']}"))
+        title = describe_space(out["family"], out["params"])
+        atomic_write(args.plot, lambda tmp: plot_circles(pairs, tmp, title=title))
     if args.json:
         print_json(out)
         return 0

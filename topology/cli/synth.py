@@ -126,11 +126,12 @@ def _run(args, cfg):
 
     from ..skies import synthesize
     from ..skies.io import pairs_document, preview_png, write_fits
+    from ..spaces.registry import describe_space
 
     res = synthesize(cfg)
     # everything is computed before the first file is written
-    png = preview_png(res.map, res.pairs, title=f"{res.sky.meta.get('family', 'isotropic')} "
-                      f"{res.sky.meta.get('params', {})}, seed {params['seed']}") if args.preview else None
+    title = f"{describe_space(res.sky.meta.get('family', 'isotropic'), res.sky.meta.get('params'))}, seed {params['seed']}"
+    png = preview_png(res.map, res.pairs, title=title) if args.preview else None
     doc = json.dumps(pairs_document(cfg, res), indent=2, allow_nan=False, default=json_default) + "\n" \
         if args.pairs else None
     atomic_write(args.out, _readable(lambda tmp: write_fits(tmp, res.map, res.header, dtype=args.dtype)))

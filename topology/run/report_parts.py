@@ -29,34 +29,57 @@ class Analysis:
     injected: np.ndarray | None = None
 
 
-def candidate_circles(cands, n=6):
-    """Candidate dicts as objects with unit-vector centres and a radius in radians (for figures)."""
+def candidate_circles(cands, n=6, *, detected=True):
+    """Candidate (or predicted) pair dicts as objects with unit-vector centres, a radius in
+    radians and a legend ``label`` (for figures). A candidate above threshold on a ``detected``
+    map is "detected", any other "best candidate (not significant)"; a dict without S (a
+    predicted pair) is "predicted"."""
     from ..geometry import lonlat_to_vec
 
+    def label(c):
+        if "S" not in c:
+            return f"predicted: radius {c['radius_deg']:.1f} deg"
+        kind = "detected" if c.get("above_threshold") and detected else "best candidate (not significant)"
+        s = f"S = {c['S']:.2f}" if c["S"] is not None and math.isfinite(c["S"]) else "S not measured"
+        return f"{kind}: radius {c['radius_deg']:.1f} deg, {s}"
+
     return [SimpleNamespace(center_a=lonlat_to_vec(*c["center_a"]), center_b=lonlat_to_vec(*c["center_b"]),
-                            radius=math.radians(c["radius_deg"])) for c in cands[:n]]
+                            radius=math.radians(c["radius_deg"]), label=label(c)) for c in cands[:n]]
 
 
 def sky_figure(plan, analysis: Analysis, m: dict, staging: Path) -> list[str] | None:
-    """The map with its best (or above-threshold) candidate circles, or None without a map."""
+    """The map with its best (or above-threshold) candidate circles, each named in the legend,
+    and the pairs its space predicts when it is an inline sky; None without a map."""
     from .. import report
 
     name = m["name"]
     values = analysis.map_values.get(name)
     spec = next(s for s in plan.maps if s.name == name)
+    frame, unit = "coordinates of the synthetic sky (observer's frame)", "microK"
     if values is None and spec.path:
         from ..maps import read_healpix
 
         sky = read_healpix(spec.path, field=spec.field, ordering=spec.ordering)
         values = np.where(sky.observed, sky.values, np.nan)
+        frames = {"G": "Galactic", "E": "ecliptic", "C": "equatorial", "Q": "equatorial"}
+        coordsys = str(sky.header.get("COORDSYS", "")).strip().upper()[:1]
+        frame = (f"{frames[coordsys]} coordinates (COORDSYS of the file)" if coordsys in frames
+                 else "the map's own coordinates (no COORDSYS in the file)")
+        unit = str(sky.header.get("TUNIT1", "")).strip() or "unit not stated in the file"
     if values is None:
         return None
-    shown = candidate_circles([c for c in m["candidates"] if c["above_threshold"]] or m["candidates"][:1])
+    detected = [c for c in m["candidates"] if c["above_threshold"]] if m["detected"] else []
+    shown = candidate_circles(detected or m["candidates"][:1], detected=m["detected"])
+    extra = "(no detection)"
+    if m["detected"]:
+        extra = (f"(detected: {len(detected)} pair{'s' if len(detected) > 1 else ''} above threshold"
+                 + (f", the {len(shown)} most significant shown)" if len(shown) < len(detected) else ")"))
     values = np.nan_to_num(np.asarray(values, float), nan=-1.6375e30)
     mask_map = T.run_mask(plan.mask, int(round(np.sqrt(values.size / 12))))
     return report.figure_sky(staging / f"sky_{name}", name, values, shown,
-                             title_extra="(detected)" if m["detected"] else "(no detection)",
-                             mask=None if mask_map is None else T.mask_at(mask_map, values.size))
+                             title_extra=extra,
+                             mask=None if mask_map is None else T.mask_at(mask_map, values.size),
+                             predicted=candidate_circles(m.get("predicted") or [], n=None), frame=frame, unit=unit)
 
 
 CAUTION = (

@@ -132,30 +132,26 @@ def mask_path(out) -> str:
 def preview_png(m: np.ndarray, pairs, title: str = "", n_lon: int = 900) -> bytes:
     """A Mollweide PNG of the map with the predicted circles (A solid, B dashed), as bytes.
 
-    Longitude grows to the left (astronomical convention of topology.plots.draw_circles).
+    Longitude grows to the left (astronomical convention of :mod:`topology.plots`); the colour
+    scale is symmetric, its limit rounded up to two significant figures.
     """
     import healpy as hp
 
-    from ..plots import draw_circles, pyplot
+    from ..plots import draw_circles, label_graticule, pyplot, sky_image, symmetric_limit
 
     plt = pyplot()
-    nside = hp.npix2nside(len(m))
-    lon = np.linspace(-np.pi, np.pi, n_lon)
-    lat = np.linspace(-np.pi / 2, np.pi / 2, n_lon // 2)
-    LON, LAT = np.meshgrid(lon, lat)
-    pix = hp.ang2pix(nside, np.pi / 2 - LAT, LON % (2 * np.pi))
-    img = np.asarray(m, dtype=float)[pix]
-    img = np.ma.masked_where(img == hp.UNSEEN, img)
-    good = img.compressed()
-    vmax = float(np.percentile(np.abs(good), 99.5)) if good.size else 1.0
+    values = np.asarray(m, dtype=float)
+    vmax = symmetric_limit(values[values != hp.UNSEEN])
     fig = plt.figure(figsize=(9, 5))
     ax = fig.add_subplot(111, projection="mollweide")
-    mesh = ax.pcolormesh(-LON, LAT, img, cmap="RdBu_r", vmin=-vmax, vmax=vmax, shading="auto", rasterized=True)
-    ax.set_xticklabels([])
-    ax.grid(True, alpha=0.3)
+    mesh = sky_image(ax, m, vmax, n_lon=n_lon)
+    label_graticule(ax)
     draw_circles(ax, pairs)
-    fig.colorbar(mesh, ax=ax, orientation="horizontal", fraction=0.05, pad=0.04, label="T [microK]")
-    ax.set_title(title + f"\n{len(pairs)} predicted matched-circle pairs (A solid, B dashed)", fontsize=10)
+    bar = fig.colorbar(mesh, ax=ax, orientation="horizontal", fraction=0.05, pad=0.06, label="T [microK]")
+    bar.set_ticks([-vmax, -vmax / 2, 0.0, vmax / 2, vmax])
+    bar.ax.tick_params(labelsize=9)
+    ax.set_title(title + f"\n{len(pairs)} predicted matched-circle pairs (A solid, B dashed); longitude grows to the left",
+                 fontsize=10)
     buf = _io.BytesIO()
     fig.savefig(buf, dpi=100, bbox_inches="tight", format="png", metadata={"Software": None})
     plt.close(fig)

@@ -74,3 +74,52 @@ def build_space(spec: dict, *, chi_rec_mpc: float | None = None, base_dir: Path 
     if geometry == "spherical":
         return spherical.SPHERICAL_FAMILIES[family](spec)
     return hyperbolic.make_hyperbolic(spec, base_dir=base_dir)
+
+
+# The common names of the flat families, as in the docstring of spaces/euclidean.py (the naming
+# of Riazuelo et al. 2004 and the COMPACT collaboration, written there from memory).
+FLAT_NAMES = {
+    "E1": "3-torus", "E2": "half-turn space", "E3": "quarter-turn space", "E4": "third-turn space",
+    "E5": "sixth-turn space", "E6": "Hantzsche-Wendt space", "E7": "Klein space",
+    "E8": "Klein space with horizontal flip", "E9": "Klein space with vertical flip",
+    "E10": "Klein space with half-turn", "E11": "chimney space", "E12": "chimney space with half-turn",
+    "E13": "chimney space with vertical flip", "E14": "chimney space with horizontal flip",
+    "E15": "chimney space with half-turn and flip", "E16": "slab space", "E17": "slab space with flip",
+}
+
+
+def _number(v) -> str:
+    return f"{float(v):.4g}"
+
+
+def describe_space(family: str, params: dict | None = None) -> str:
+    """A space in words for titles: family and parameters, no Python syntax.
+
+    'E2 (half-turn space), lengths 1.55, 1.7, 0.8 chi_rec', 'lens space L(5, 2)',
+    'dodecahedral space', 'isotropic sky (no topology)'. Flat lengths are in units of chi_rec
+    (as a built :class:`Space` holds them); angles of 90 deg, the default, are left out.
+    """
+    params = dict(params or {})
+    if family == "isotropic":
+        return "isotropic sky (no topology)"
+    if family in FLAT_NAMES:
+        words = [f"{family} ({FLAT_NAMES[family]})"]
+        if params.get("lengths"):
+            words.append("lengths " + ", ".join(_number(v) for v in params["lengths"]) + " chi_rec")
+        angles = params.get("angles")
+        if angles is not None and any(float(a) != 90.0 for a in angles):
+            words.append("angles " + ", ".join(_number(v) for v in angles) + " deg")
+        for key in ("angle", "tilt"):
+            if params.get(key) is not None and float(params[key]) != 90.0:
+                words.append(f"{key} {_number(params[key])} deg")
+        return ", ".join(words)
+    if family == "lens" and "p" in params and "q" in params:
+        return f"lens space L({params['p']}, {params['q']})"
+    if family == "prism" and "m" in params:
+        return f"prism space, m = {params['m']}"
+    if family in ("tetrahedral", "octahedral", "dodecahedral") and not params:
+        return f"{family} space"
+    if family == "hyperbolic" and params.get("generators"):
+        return f"hyperbolic space, generators {Path(str(params['generators'])).name}"
+    rest = ", ".join(f"{k} {', '.join(map(str, v)) if isinstance(v, (list, tuple)) else v}" for k, v in params.items())
+    return f"{family}, {rest}" if rest else str(family)
