@@ -255,3 +255,21 @@ def test_a_run_that_finished_nothing_leaves_an_empty_folder_empty(tmp_path, caps
     with pytest.raises(KeyboardInterrupt):
         run_module.run(run_module.plan_from_config(load_config(cfg), missing))
     assert not missing.exists()
+
+
+def test_run_refuses_a_coarse_map_and_a_map_with_too_little_sky_before_any_output(tmp_path, capsys):
+    cfg = _files_config(tmp_path)
+    out = tmp_path / "report"
+    hp.write_map(str(tmp_path / "sky.fits"), np.random.default_rng(3).normal(0, 70, 12 * 4 * 4), overwrite=True,
+                 dtype=np.float64)  # N_side 4 < nside_work 8
+    assert main(["run", str(cfg), "--out", str(out), "--quiet"]) == 2
+    line = _one_line_error(capsys)
+    assert "sky.fits" in line and "coarser than the working N_side 8" in line, line
+    assert not out.exists()
+    sky = np.random.default_rng(4).normal(0, 70, 12 * NSIDE * NSIDE)
+    sky[: int(0.9 * sky.size)] = hp.UNSEEN  # 10% of the sky observed, below min_sky_fraction 0.2
+    hp.write_map(str(tmp_path / "sky.fits"), sky, overwrite=True, dtype=np.float64)
+    assert main(["run", str(cfg), "--out", str(out), "--quiet"]) == 2
+    line = _one_line_error(capsys)
+    assert "10.0% of the sky" in line and "[mask] min_sky_fraction" in line, line
+    assert not out.exists()

@@ -144,23 +144,23 @@ def parse_radii_key(text: str, where: str) -> np.ndarray:
 
 def read_map_files(maps: list[MapSpec], mask: dict) -> None:
     """Read every FITS map and the mask once before any work, so that a bad file stops the run
-    before an output folder exists; records each map's N_side in its spec (the tasks read the
-    files again where they run)."""
-    from ..maps import mask_weights, read_healpix
+    before an output folder exists: each map's coverage by the mask and the sky fraction it
+    keeps (its own unobserved and masked pixels included) against ``min_sky_fraction``. Maps are
+    read one at a time (bounded memory); each map's N_side is recorded in its spec (the tasks
+    read the files again where they run)."""
+    from ..maps import check_sky_fraction, read_healpix
     from .tasks import run_mask
 
-    skies = []
+    mask_map = run_mask(mask, 0) if "path" in mask else None
     for i, m in enumerate(maps):
         if m.path:
             sky = read_healpix(m.path, field=m.field, ordering=m.ordering, what="map",
                                ordering_from=f"ordering in [[maps]] #{i + 1}")
             m.nside = int(sky.nside)
-            skies.append(sky)
-    if "path" in mask:
-        mask_map = run_mask(mask, 0)
-        for sky in skies:
-            mask_weights(mask_map, sky)  # coverage of each map; a note when the mask is regraded
-    elif mask.get("galactic_b_deg") is not None:
+            # coverage of the map by the mask (a note when the mask is regraded) and the kept sky
+            check_sky_fraction(sky, mask_map, float(mask["min_sky_fraction"]), setting="[mask] min_sky_fraction")
+            del sky
+    if mask_map is None and mask.get("galactic_b_deg") is not None:
         kept = 1.0 - math.sin(math.radians(float(mask["galactic_b_deg"])))  # sky fraction with |b| >= b0
         if kept < float(mask["min_sky_fraction"]):
             raise InputError(f"the band |b| < {mask['galactic_b_deg']} deg leaves {kept:.1%} of the sky, less than "
@@ -278,6 +278,15 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
         raise
     radii = np.array(settings.radii_deg, dtype=float)
     _check_map_resolution(maps, settings.nside_work)
+    if sim_nside < settings.nside_work:
+        raise InputError(f"null and injected skies of N_side {sim_nside} are coarser than the working N_side "
+                         f"{settings.nside_work} ([search] nside_work); give [instrument] nside >= "
+                         f"{settings.nside_work}", "[instrument] nside")
+    for m in maps:
+        own = (m.inline or {}).get("sky", {}).get("nside", instrument["nside"] or 64) if m.inline else None
+        if own is not None and own < settings.nside_work:
+            raise InputError(f"the inline sky {m.name!r} has N_side {own}, coarser than the working N_side "
+                             f"{settings.nside_work} ([search] nside_work)", "[[maps]] sky nside")
 
     significance = {k: cfg.get("significance", k) for k in (
         "n_null", "false_alarm", "efficiency_level", "seed", "injection_radii", "n_injections", "injection_family",
