@@ -228,17 +228,16 @@ class TaskStore:
 FILE_STORE_VERSION = 3  # of FileStore's JSON layout (2: a list of [radius, result] pairs)
 
 
-class FileStore:
+class FileStore(MemoryStore):
     """Results in one JSON file ``path``, {"fingerprint", "version", "results": {task_id: {"key",
     "result"}}}, rewritten atomically after every :meth:`put` (results must be JSON-able; NaN
     and infinities are kept). With ``resume`` an existing file of the same ``fingerprint`` and
     version is loaded; any other file is ignored and overwritten by the first put."""
 
     def __init__(self, path: str | Path, fingerprint: str, resume: bool = False):
+        super().__init__()
         self.path = Path(path)
         self.fingerprint = fingerprint
-        self._results: dict[str, object] = {}
-        self._keys: dict[str, str] = {}
         if resume and self.path.is_file():
             try:
                 data = json.loads(self.path.read_text())
@@ -250,25 +249,11 @@ class FileStore:
                     self._results[task_id] = rec["result"]
                     self._keys[task_id] = rec.get("key", "")
 
-    def has(self, task_id: str, key: str = "") -> bool:
-        return task_id in self._results and self._keys.get(task_id, "") == key
-
-    def stale(self, task_id: str, key: str = "") -> bool:
-        """Finished, but from other inputs than ``key`` says."""
-        return task_id in self._results and self._keys.get(task_id, "") != key
-
     def put(self, task_id: str, result, key: str = "") -> None:
-        self._results[task_id] = result
-        self._keys[task_id] = key
+        super().put(task_id, result, key)
         data = {"fingerprint": self.fingerprint, "version": FILE_STORE_VERSION,
                 "results": {t: {"key": self._keys[t], "result": r} for t, r in self._results.items()}}
         atomic_bytes(self.path, json.dumps(data, allow_nan=True).encode())
-
-    def get(self, task_id: str):
-        return self._results[task_id]
-
-    def finished(self) -> set[str]:
-        return set(self._results)
 
     def discard(self) -> None:
         """Remove the file (a complete search needs no checkpoint)."""

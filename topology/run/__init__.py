@@ -25,7 +25,7 @@ import time
 from dataclasses import replace
 
 from ..execution import Task, make_engine, run_tasks
-from ..store import MemoryStore, TaskStore, fingerprint
+from ..store import TaskStore, fingerprint
 from . import output
 from .plan import MapSpec, RunPlan, plan_from_config
 
@@ -112,7 +112,7 @@ def _execute(plan: RunPlan, folder, store, show_progress) -> dict:
         "inputs_sha256": plan.inputs,
         "timings_s": timings,
     }
-    if isinstance(store, MemoryStore):
+    if folder is None:  # a caller-given store (a notebook): nothing is written
         return {"maps": analysis.maps, "calibration": analysis.calibration, "provenance": provenance,
                 "analysis": analysis}
     summary = {"maps": analysis.maps, "calibration": analysis.calibration, "caution": kind.caution(plan),
