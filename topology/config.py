@@ -130,6 +130,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "min_overlap": Key(NUMBER, 0.25, "masked S needs this fraction of samples kept by both circles", _positive),
         "min_separation_deg": Key(NUMBER, 10.0, "all-pairs: centres closer than this (deg) are not a pair", _non_negative),
         "twist_oversample": Key(NUMBER, 2.0, "coarse twist grid: this * (m_cut + 1) twists", _positive),
+        "power_fraction": Key(NUMBER, 0.999, "the m cut-off keeps this fraction of the m-weighted circle power",
+                              _positive),
         "kernel_mem_mb": Key((int,), 128, "memory bound of one block of the all-pairs kernel (MB)", _positive),
         "l_range": Key((list,), None, "[l_min, l_max]: keep only these multipoles"),
         "l_weights": Key((str,), None, "text file of filter weights u_l, one per line from l = 0"),

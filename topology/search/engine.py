@@ -15,6 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..config import SCHEMA
 from ..errors import InputError
 from ..execution import SerialEngine, Task, run_tasks
 from ..store import FILE_STORE_VERSION, FileStore, MemoryStore, file_digest, fingerprint
@@ -24,40 +25,10 @@ from .modes import AllPairsMode, AntipodalMode, TargetedMode
 MODES = {"antipodal": AntipodalMode, "all-pairs": AllPairsMode, "targeted": TargetedMode}
 
 
-@dataclass
-class SearchSettings:
-    """Every setting of a search (degrees at this edge). Defaults suit a first look at a
-    Planck-like map: a 1 deg beam on an N_side 128 working map, m <= 64, radii 5-90 deg."""
-
-    mode: str = "antipodal"
-    radii_deg: tuple = tuple(float(r) for r in range(5, 91))
-    fwhm_deg: float = 1.0
-    nside_work: int = 128
-    m_max: int = 64
-    n_phi: int | None = None  # None: enough samples for the map's band limit (context.SearchContext.n_phi)
-    centre_nside: int = 16  # coarse centre grid
-    level_smoothing: float = 1.2  # kappa: FWHM_l = max(FWHM, kappa * step_l)
-    n_keep: int = 64  # candidates per radius and orientation kept between levels
-    n_pool: int = 8  # all-pairs: n_pool * n_keep best coarse pairs before removing neighbours
-    n_report: int = 3  # candidates per radius and orientation reported
-    n_candidates: int = 20  # best candidates overall in the output
-    min_kept: float = 0.5  # circles keeping a smaller fraction are skipped
-    min_overlap: float = 0.25  # masked S needs this fraction of samples kept by both circles
-    min_separation_deg: float = 10.0  # all-pairs: closer centres are not a pair
-    twist_oversample: float = 2.0  # coarse twists: oversample * (m_cut + 1)
-    power_fraction: float = 0.999  # m_cut keeps this fraction of the m-weighted circle power
-    kernel_mem_mb: int = 128  # bound on the all-pairs product block
-    l_range: tuple | None = None
-    l_weights: tuple | None = None
-    mask_threshold: float = 0.5
-    ordering: str | None = None
-    orientation_nside: int = 4  # targeted: coarse orientation grid
-    positions: tuple | None = None  # targeted: observer positions (the config's observer if None)
-
-    def as_dict(self) -> dict:
-        d = asdict(self)
-        d["radii_deg"] = [float(r) for r in self.radii_deg]
-        return d
+def _default(key: str):
+    """The default of a ``[search]`` key: :data:`topology.config.SCHEMA` is the one source of
+    the search's keys, defaults and help."""
+    return SCHEMA["search"][key].default
 
 
 def parse_radii(text: str) -> tuple:
@@ -76,6 +47,43 @@ def parse_radii(text: str) -> tuple:
         raise InputError(f"needs START <= STOP and STEP > 0, got {text!r}", where)
     n = int(np.floor((b - a) / step + 1e-9)) + 1
     return tuple(float(round(a + i * step, 10)) for i in range(n))
+
+
+@dataclass
+class SearchSettings:
+    """Every setting of a search (degrees at this edge); each default and its meaning is the
+    ``[search]`` schema's (``topology keys``). They suit a first look at a Planck-like map: a
+    1 deg beam on an N_side 128 working map, m <= 64, radii 5-90 deg."""
+
+    mode: str = _default("mode")
+    radii_deg: tuple = parse_radii(_default("radii"))
+    fwhm_deg: float = _default("fwhm_deg")
+    nside_work: int = _default("nside_work")
+    m_max: int = _default("m_max")
+    n_phi: int | None = _default("n_phi")
+    centre_nside: int = _default("centre_nside")
+    level_smoothing: float = _default("level_smoothing")
+    n_keep: int = _default("n_keep")
+    n_pool: int = _default("n_pool")
+    n_report: int = _default("n_report")
+    n_candidates: int = _default("n_candidates")
+    min_kept: float = _default("min_kept")
+    min_overlap: float = _default("min_overlap")
+    min_separation_deg: float = _default("min_separation_deg")
+    twist_oversample: float = _default("twist_oversample")
+    power_fraction: float = _default("power_fraction")
+    kernel_mem_mb: int = _default("kernel_mem_mb")
+    l_range: tuple | None = _default("l_range")
+    l_weights: tuple | None = _default("l_weights")
+    mask_threshold: float = _default("mask_threshold")
+    ordering: str | None = _default("ordering")
+    orientation_nside: int = _default("orientation_nside")
+    positions: tuple | None = _default("positions")
+
+    def as_dict(self) -> dict:
+        d = asdict(self)
+        d["radii_deg"] = [float(r) for r in self.radii_deg]
+        return d
 
 
 def validate(s: SearchSettings) -> SearchSettings:
