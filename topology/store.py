@@ -82,6 +82,17 @@ def fingerprint(*parts) -> str:
     return hashlib.sha256(text.encode()).hexdigest()
 
 
+def json_default(o):
+    """``default=`` of json.dump for numpy scalars and arrays (TypeError for anything else)."""
+    import numpy as np
+
+    if isinstance(o, np.generic):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
 def _fsync_dir(path: Path) -> None:
     try:
         fd = os.open(path, os.O_RDONLY)

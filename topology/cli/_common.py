@@ -8,22 +8,12 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
+from ..store import json_default  # noqa: F401 - the one numpy-to-JSON default, used by commands
 
 
 def print_json(obj) -> None:
     json.dump(obj, sys.stdout, indent=2, allow_nan=False, default=json_default)
     sys.stdout.write("\n")
-
-
-def json_default(o):
-    """``default=`` of json.dump for numpy scalars and arrays (TypeError for anything else)."""
-    import numpy as np
-
-    if isinstance(o, np.generic):
-        return o.item()
-    if isinstance(o, np.ndarray):
-        return o.tolist()
-    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
 
 
 def check_writable(path: str | Path, what: str = "output") -> Path:

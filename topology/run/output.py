@@ -31,10 +31,9 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
-
 from .. import __version__
 from ..errors import InputError, note
+from ..store import json_default
 
 MARKER = ".topology-run"
 
@@ -265,15 +264,6 @@ def claim(out: str | Path, *, force: bool = False, resume: bool = False, inputs=
 # ---------------------------------------------------------------------------------------------
 # the report transaction and provenance
 # ---------------------------------------------------------------------------------------------
-def json_default(o):
-    """``json.dumps`` default for numpy scalars and arrays."""
-    if isinstance(o, np.generic):
-        return o.item()
-    if isinstance(o, np.ndarray):
-        return o.tolist()
-    raise TypeError(type(o).__name__)
-
-
 def versions() -> dict:
     """Versions of Python and of the packages that shape the results."""
     import importlib.metadata as md

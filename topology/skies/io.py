@@ -33,14 +33,9 @@ DTYPES = {"float32": np.float32, "float64": np.float64}
 
 
 def _json(obj) -> str:
-    def default(o):
-        if isinstance(o, np.generic):
-            return o.item()
-        if isinstance(o, np.ndarray):
-            return o.tolist()
-        raise TypeError(type(o).__name__)
+    from ..store import json_default
 
-    return json.dumps(obj, separators=(",", ":"), default=default, allow_nan=False)
+    return json.dumps(obj, separators=(",", ":"), default=json_default, allow_nan=False)
 
 
 def _ascii(s: str) -> str:
