@@ -268,17 +268,18 @@ class TargetedMode(Mode):
         pairs = tg.predicted_pairs(ctx, position)
         work = new_work()
         if not pairs:
-            return {"position": position, "pairs": [], "S_combined": None, "euler_deg": None, "work": work,
-                    "levels": []}
+            return {"position": position, "pairs": [], "S_combined": None, "n_pairs_used": 0, "euler_deg": None,
+                    "work": work, "levels": []}
         levels = self.levels(ctx)
         best, info = tg.scan_orientations(ctx, levels, pairs, work)
         # final values at the best orientation
-        sv, ok = tg.evaluate(ctx, levels[-1], pairs, best[:1], new_work())
-        comb = float(tg.combine(sv, ok)[0])
+        sv, f, ok = tg.evaluate(ctx, levels[-1], pairs, best[:1], new_work())
+        comb, used = tg.combine(sv, f, ok)
         R = tg.rotations(best[:1])[0]
-        return {"position": position, "pairs": tg.pair_records(pairs, R, sv[0], ok[0], levels[-1].nside),
-                "S_combined": comb, "euler_deg": [float(v) for v in np.degrees(best[0])], "work": work,
-                "levels": info, "rotation": R.tolist()}
+        return {"position": position, "pairs": tg.pair_records(pairs, R, sv[0], f[0], ok[0], levels[-1].nside),
+                "S_combined": float(comb[0]) if used[0] else None, "n_pairs_used": int(used[0]),
+                "euler_deg": [float(v) for v in np.degrees(best[0])], "work": work, "levels": info,
+                "rotation": R.tolist()}
 
     def summarise(self, ctx, results: dict) -> dict:
         work = total_work(results.values())
@@ -290,5 +291,6 @@ class TargetedMode(Mode):
         return {"candidates": cands, "s_max": s_max, "work": work,
                 "targeted": {"family": ctx.scenario.space.family, "best_position": best["position"],
                              "best_euler_deg": best["euler_deg"], "S_combined": best["S_combined"],
-                             "positions": [{k: r[k] for k in ("position", "S_combined", "euler_deg")}
-                                           for r in results.values()]}}
+                             "n_pairs": len(best["pairs"]), "n_pairs_used": best["n_pairs_used"],
+                             "positions": [{k: r.get(k) for k in ("position", "S_combined", "n_pairs_used",
+                                                                  "euler_deg")} for r in results.values()]}}

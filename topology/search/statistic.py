@@ -404,3 +404,14 @@ def fft_max_over_twist(a: np.ndarray, b: np.ndarray, n_tau: int) -> np.ndarray:
 def block_rows_for(n_tau: int, n_cols: int, mem_bytes: int) -> int:
     """Rows per block so the float32 product (rows * n_tau, 2 n_cols) stays under mem_bytes."""
     return int(max(1, mem_bytes // (4 * n_tau * 2 * max(n_cols, 1))))
+
+
+def s_at_zero_overlap(circ_a, circ_b, m_cut: int | None = None, min_overlap: float = 0.25) -> tuple[np.ndarray, np.ndarray]:
+    """S at zero twist of row-aligned circles (:func:`s_at_zero`) and their jointly kept fraction
+    f = (1/N) sum_k w_A,k w_B,k (n,): f = 1 for full circles; S is -inf (undefined, as in the
+    masked twist grid) where fewer than ``min_overlap`` N samples are jointly kept."""
+    s, _, _ = s_at_zero(circ_a, circ_b, m_cut, min_overlap)
+    both = circ_a.kept & circ_b.kept
+    f = both.mean(axis=1)
+    defined = both.sum(axis=1) >= min_overlap * circ_a.n_phi  # the test of s_at_zero
+    return np.where(defined, s, -np.inf), f

@@ -2,9 +2,18 @@
 [observer]) scanned over sky orientations R (z-y-z Euler grid; levels like the centre grids).
 
 For each R the circles are sampled at R n_A(phi_k) and R n_B(s phi_k + tau) (the contract of
-:mod:`topology.circles`), so each pair's S is taken at zero twist, same orientation; the
-combined statistic is the mean of the pair values S_comb(R) = (1/P) sum_p S_p(R) over the P
-usable pairs (radius in the radius range, both circles kept >= min_kept).
+:mod:`topology.circles`), so each pair's S (Cornish, Spergel & Starkman 2004; the masked
+real-space form of :mod:`.statistic`) is taken at zero twist, same orientation, over the jointly
+kept fraction f_p of its samples (f_p = 1 for full circles). A pair is usable when its radius is
+in the radius range, both circles keep >= ``min_kept`` and f_p >= ``min_overlap``; the others
+are left out. The combined statistic is the mean over the P_used usable pairs of the
+chance-equivalent values of the radius scan (:func:`.statistic.rank_score`, where the
+equal-tail derivation is):
+
+    S_eq,p = sign(S_p) sqrt(1 - (1 - S_p^2)^f_p),    S_comb(R) = (1/P_used) sum_p S_eq,p(R).
+
+Each S_eq,p has the null spread of a full circle of the same radius, so cut and full pairs
+enter on one scale; for full circles S_eq,p = S_p and S_comb is the mean S.
 """
 
 from __future__ import annotations
@@ -72,8 +81,9 @@ def predicted_pairs(ctx: SearchContext, position) -> list:
     return [p for p in predict_circles(sc.space, obs, sc.chi) if lo - 1e-9 <= np.degrees(p.radius) <= hi + 1e-9]
 
 
-def evaluate(ctx: SearchContext, lv: Level, pairs, euler: np.ndarray, work: dict) -> tuple[np.ndarray, np.ndarray]:
-    """S_p(R) for rotations (n_rot, 3 Euler): returns (n_rot, P) pair values and usable flags."""
+def evaluate(ctx: SearchContext, lv: Level, pairs, euler: np.ndarray, work: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pair values for rotations (n_rot, 3 Euler): S, jointly kept fraction f and usable flags,
+    each (n_rot, P). Usable: both circles keep >= min_kept and f >= min_overlap."""
     from ..circles import circle_points
 
     s = ctx.settings
@@ -83,6 +93,7 @@ def evaluate(ctx: SearchContext, lv: Level, pairs, euler: np.ndarray, work: dict
     base_b = np.stack([circle_points(p.center_b, p.radius, p.orientation * phi + p.twist) for p in pairs])
     mp = ctx.level_map(lv)
     out_s = np.empty((euler.shape[0], len(pairs)))
+    out_f = np.empty((euler.shape[0], len(pairs)))
     out_ok = np.empty((euler.shape[0], len(pairs)), dtype=bool)
     chunk = max(1, 200_000 // (n_phi * len(pairs)))
     for i0 in range(0, euler.shape[0], chunk):
@@ -93,20 +104,22 @@ def evaluate(ctx: SearchContext, lv: Level, pairs, euler: np.ndarray, work: dict
         ca = sample_points(mp, pa, ctr, 0.0, n_phi, s.m_max, ctx.level_mask(lv))
         cb = sample_points(mp, pb, ctr, 0.0, n_phi, s.m_max, ctx.level_mask(lv))
         m_cut = st.effective_m_cut(np.vstack([ca.coeffs, cb.coeffs]), s.m_max, s.power_fraction)
-        sv, _, _ = st.s_at_zero(ca, cb, m_cut, s.min_overlap)
-        ok = (ca.kept_fraction >= s.min_kept) & (cb.kept_fraction >= s.min_kept)
+        sv, f = st.s_at_zero_overlap(ca, cb, m_cut, s.min_overlap)
+        ok = (ca.kept_fraction >= s.min_kept) & (cb.kept_fraction >= s.min_kept) & np.isfinite(sv)
         r = R.shape[0]
         out_s[i0 : i0 + r] = sv.reshape(r, -1)
+        out_f[i0 : i0 + r] = f.reshape(r, -1)
         out_ok[i0 : i0 + r] = ok.reshape(r, -1)
         add_work(work, sv.size, 1, m_cut)
-    return out_s, out_ok
+    return out_s, out_f, out_ok
 
 
-def combine(sv: np.ndarray, ok: np.ndarray) -> np.ndarray:
-    """S_comb per rotation: the mean of the usable pair values (-inf where none is usable)."""
+def combine(sv: np.ndarray, f: np.ndarray, ok: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """S_comb per rotation, the mean of S_eq = rank_score(S, f) over the usable pairs (-inf where
+    none is usable), and the number of pairs that entered (n_rot,)."""
     cnt = ok.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(cnt > 0, np.where(ok, sv, 0.0).sum(axis=1) / np.maximum(cnt, 1), -np.inf)
+    eq = np.where(ok, st.rank_score(np.where(ok, sv, 0.0), f), 0.0)
+    return np.where(cnt > 0, eq.sum(axis=1) / np.maximum(cnt, 1), -np.inf), cnt
 
 
 def scan_orientations(ctx: SearchContext, levels: list[Level], pairs, work: dict) -> tuple[np.ndarray, list]:
@@ -118,8 +131,7 @@ def scan_orientations(ctx: SearchContext, levels: list[Level], pairs, work: dict
     s = ctx.settings
     lv = levels[0]
     euler = orientation_grid(lv.nside)
-    sv, ok = evaluate(ctx, lv, pairs, euler, work)
-    comb = combine(sv, ok)
+    comb, _ = combine(*evaluate(ctx, lv, pairs, euler, work))
     info = [{"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "orientations": int(euler.shape[0])}]
     best = euler[np.argsort(-comb, kind="stable")[: s.n_keep]]
     for prev, lv in zip(levels[:-1], levels[1:]):
@@ -135,28 +147,30 @@ def scan_orientations(ctx: SearchContext, levels: list[Level], pairs, work: dict
             for dg in lv.step * np.arange(-n_g, n_g + 1):
                 cand.append(np.stack([ph, th, (g0 + dg) % (2 * np.pi)], axis=1))
         cand = np.unique(np.round(np.vstack(cand), 9), axis=0)
-        sv, ok = evaluate(ctx, lv, pairs, cand, work)
-        comb = combine(sv, ok)
+        comb, _ = combine(*evaluate(ctx, lv, pairs, cand, work))
         order = np.argsort(-comb, kind="stable")
         best = cand[order[: s.n_keep]]
         info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "orientations": int(cand.shape[0])})
     return best, info
 
 
-def pair_records(pairs, R: np.ndarray, sv: np.ndarray, ok: np.ndarray, level_nside: int) -> list[dict]:
-    """The predicted pairs rotated by R with their S (NaN when not usable), without twist."""
+def pair_records(pairs, R: np.ndarray, sv: np.ndarray, f: np.ndarray, ok: np.ndarray, level_nside: int) -> list[dict]:
+    """The predicted pairs rotated by R, without twist, each with its S, jointly kept fraction
+    ``overlap`` (f), S_eq = rank_score(S, f) and ``usable`` (S and S_eq NaN when not usable)."""
     out = []
-    for p, val, good in zip(pairs, sv, ok):
+    eq = st.rank_score(np.where(ok, sv, 0.0), f)
+    for p, val, frac, e, good in zip(pairs, sv, f, eq, ok):
         c = candidate_record(R @ p.center_a, R @ p.center_b, p.radius, 0.0, p.orientation,
                              val if good else float("nan"), level_nside)
         c.pop("twist_deg")
-        out.append({**c, "usable": bool(good)})
+        out.append({**c, "overlap": float(frac), "S_eq": float(e) if good else float("nan"), "usable": bool(good)})
     return out
 
 
 def targeted_candidates(ctx: SearchContext, best: dict) -> tuple[list, list]:
     """Candidates and S_max rows in the contract of the search output, from the best position's
-    task result. Rotating the sky by R shifts the phase of circle A by a constant delta_A and of B
+    task result: the pairs best first by S_eq (unusable ones last), each with S, ``overlap`` (f)
+    and S_eq; S_max is the best S_eq per radius and orientation, as in the radius scan. Rotating the sky by R shifts the phase of circle A by a constant delta_A and of B
     by delta_B, so the twist seen in the rotated frame is tau' = tau + delta_B - s delta_A; it is
     measured from the rotated points."""
     from ..circles import circle_phase, circle_points
@@ -174,7 +188,7 @@ def targeted_candidates(ctx: SearchContext, best: dict) -> tuple[list, list]:
         c["twist_deg"] = float(np.degrees(tau) % 360.0)
         cands.append(c)
         key = (round(c["radius_deg"], 6), c["orientation"])
-        if np.isfinite(c["S"]) and (key not in s_max or c["S"] > s_max[key]):
-            s_max[key] = c["S"]
-    cands.sort(key=lambda c: -(c["S"] if np.isfinite(c["S"]) else -9))
+        if c["usable"] and (key not in s_max or c["S_eq"] > s_max[key]):
+            s_max[key] = c["S_eq"]
+    cands.sort(key=lambda c: -(c["S_eq"] if c["usable"] else -9))
     return cands, [{"radius_deg": k[0], "orientation": k[1], "S_max": v} for k, v in sorted(s_max.items())]
