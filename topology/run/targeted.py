@@ -3,8 +3,10 @@
 With ``[search] mode = "targeted"`` the run tests each space of ``[search] targets`` (tables in
 the ``[space]`` format, optionally with an observer ``position``; the background is the run's
 ``[cosmology]``). For each target the statistic is the targeted search's combined value
-S_comb = (1/P) sum_p S_p, the mean S of the target's P predicted pairs at the best orientation
-of the space (and best observer position), see :class:`topology.search.modes.TargetedMode`.
+S_comb = (1/P_used) sum_p S_eq,p, the mean chance-equivalent S (S_eq = sign(S) sqrt(1 - (1 -
+S^2)^f) for a jointly kept fraction f; S_eq = S on full circles) of the target's P_used usable
+predicted pairs at the best orientation of the space (and best observer position), see
+:mod:`topology.search.targeted`.
 
 * Null calibration: every null sky is searched for every target; per target, the local
   threshold is the (1 - p) quantile of the null S_comb and the look-elsewhere threshold over the
@@ -176,13 +178,16 @@ def analyse(plan, store) -> Analysis:
                          "p_value": p_k, "p_value_local": float(p_local[k]), "detected": detected_k,
                          "efficiency": float(eff[k]), "efficiency_error": float(eff_err[k]),
                          "excluded": bool(not detected_k and eff[k] >= level),
+                         "n_pairs": res["targets"][k].get("n_pairs"),
+                         "n_pairs_used": res["targets"][k].get("n_pairs_used"),
                          "best_euler_deg": res["targets"][k].get("best_euler_deg"),
                          "best_position": res["targets"][k].get("best_position")})
             for c in res["candidates"][k][:3]:
-                cands.append({kk: c[kk] for kk in ("center_a", "center_b", "radius_deg", "twist_deg", "orientation", "S")}
+                cands.append({kk: c[kk] for kk in ("center_a", "center_b", "radius_deg", "twist_deg", "orientation", "S",
+                                                   "overlap", "S_eq")}
                              | {"target": name, "p_value": p_k, "p_value_local": float(p_local[k]),
                                 "above_threshold": detected_k})
-        cands.sort(key=lambda c: (not c["above_threshold"], c["p_value"], -(c["S"] if np.isfinite(c["S"]) else -9)))
+        cands.sort(key=lambda c: (not c["above_threshold"], c["p_value"], -(c["S_eq"] if np.isfinite(c["S_eq"]) else -9)))
         maps_out.append({
             "name": spec.name, "source": spec.path or "inline synthetic sky", "detected": is_detected,
             "candidates": cands, "false_alarm": fa, "n_null": n_null, "alpha_min_deg": None,
@@ -207,8 +212,10 @@ def latex(t, plan) -> str:
     """The target outcomes as a LaTeX table with the statistic and levels in its caption."""
     from ..report.latex import cell, escape, latex_table
 
-    caption = (r"Targeted matched-circle tests. $S_{\rm comb}$ is the mean m-weighted S statistic "
-               r"(Cornish, Spergel \& Starkman 2004) of the predicted pairs at the best orientation; "
+    caption = (r"Targeted matched-circle tests. $S_{\rm comb}$ is the mean over the usable predicted pairs at "
+               r"the best orientation of the m-weighted S statistic (Cornish, Spergel \& Starkman 2004) in its "
+               r"chance-equivalent form $S_{\rm eq} = {\rm sign}(S)\sqrt{1 - (1 - S^2)^f}$ for a jointly kept "
+               r"fraction $f$ of the circles ($S_{\rm eq} = S$ on full circles); "
                f"thresholds at false-alarm probability {plan.false_alarm:g} over all targets, "
                f"from {plan.n_null} isotropic skies; efficiency from {plan.n_injections} skies of each space; a "
                f"space is excluded when it is not detected and the efficiency is at least "
@@ -232,7 +239,7 @@ def figure_targets(base, name: str, m: dict, analysis: Analysis) -> list[str]:
     ax.plot(x, th.whole_range, "r_", markersize=30, mew=2, label=f"threshold (false alarm {th.false_alarm:g})")
     ax.plot(x, [r["S_combined"] for r in m["targets"]], "k*", markersize=12, label=name)
     ax.set_xticks(x, analysis.calibration["targets"], rotation=20, fontsize=7)
-    ax.set_ylabel("S_comb (mean S of the predicted pairs)")
+    ax.set_ylabel("S_comb (mean S_eq of the usable predicted pairs)")
     ax.legend(fontsize=8, loc="lower right")
     ax.set_title(f"{name}: targeted statistic against {th.n_null} null skies", fontsize=10)
     return save_figure(fig, base)
