@@ -131,6 +131,11 @@ def test_targeted_recovers_orientation(tmp_path, monkeypatch, capsys):
     assert main(["search", str(tmp_path / "t.fits"), "--config", str(cfg), "--json", "--quiet"]) == 0
     out = json.loads(capsys.readouterr().out)
     assert out["targeted"]["S_combined"] >= 0.9
+    # full sky: every pair enters with f = 1 and S_eq = S, so S_comb is the plain mean S over all
+    # predicted pairs, the statistic before S_eq was introduced
+    assert out["targeted"]["n_pairs_used"] == out["targeted"]["n_pairs"] == len(out["candidates"]) == 3
+    assert all(c["usable"] and c["overlap"] == 1.0 and c["S_eq"] == c["S"] for c in out["candidates"])
+    assert out["targeted"]["S_combined"] == pytest.approx(np.mean([c["S"] for c in out["candidates"]]), rel=1e-12)
     truth = predict_circles(space, obs, 1.0)
     for c in out["candidates"]:
         d, dt = min((match(c, p) for p in truth), key=lambda e: e[0])
