@@ -80,7 +80,9 @@ def test_spherical_injection_task_runs_and_finds_its_circles(tmp_path):
         "execution": {"engine": "serial"},
     }
     plan = plan_from_config(config_from_dict(json.loads(json.dumps(data))), tmp_path / "out")
-    res = task_injection(plan, 45.0, "inj/45/0000")
+    # the older one-family key is a one-element list of injected families
+    assert plan.significance["injection_families"] == [{"family": "lens", "p": 6, "q": 1}]
+    res = task_injection(plan, 0, 45.0, "inj/45/0000")  # the seed of the sky this test was written on
     assert res["omega_k"] < 0
     smax = np.asarray(res["s_max"])
     i = int(np.argmin(np.abs(plan.radii_deg - res["radius_true_deg"])))
@@ -88,3 +90,49 @@ def test_spherical_injection_task_runs_and_finds_its_circles(tmp_path):
     # at N_side 32, l_max 40 the m-weighted S of an exact SW pair is ~0.86-0.88 (pixel and beam
     # effects at high m); random pairs stay below ~0.77 here
     assert smax[i] > 0.8 and smax[i] > smax[far].max() + 0.05, smax
+
+
+def _antipodal_fraction(spec, n_observers=6, seed=4):
+    """Fraction of random observers (the injection's own draw) whose largest pairs are all back to
+    back, from the predicted circles (CSS 1998)."""
+    unit = injection._unit_space(injection.injection_spec(spec))
+    rng = np.random.default_rng(seed)
+    chi = 3.0 if unit.geometry == "flat" else 0.5 * math.pi - 0.05
+    hits = 0
+    for _ in range(n_observers):
+        space, obs, cosmo = injection.scaled(injection.injection_spec(spec), 40.0, rng, COSMO)
+        chi = 1.0 if space.geometry == "flat" else cosmo.chi_rec_over_curvature_radius
+        pairs = predict_circles(space, obs, chi)
+        top = [p for p in pairs if p.radius > pairs[0].radius - 1e-3]
+        hits += all(float(p.center_a @ p.center_b) < -0.999 for p in top)
+    return hits / n_observers
+
+
+@pytest.mark.parametrize("spec, kind", [
+    ("E1", "back-to-back"),
+    ({"family": "dodecahedral"}, "back-to-back"),
+    ({"family": "lens", "p": 8, "q": 1}, "back-to-back"),
+    ({"family": "E2", "lengths": [1.0, 1.0, 0.5]}, "general"),
+    ({"family": "lens", "p": 7, "q": 2}, "general"),
+])
+def test_kind_of_pairs_matches_the_predicted_circles(spec, kind):
+    # back-to-back: every random observer sees its largest pairs back to back (pure and Clifford
+    # translations); general: most observers do not (a half-turn seen off its axis, an
+    # inhomogeneous lens space)
+    assert injection.spec_kind(injection.injection_spec(spec)) == kind
+    frac = _antipodal_fraction(spec)
+    assert frac == 1.0 if kind == "back-to-back" else frac <= 1 / 3
+
+
+def test_injection_families_key_alias_and_repeats():
+    specs = injection.injection_specs(["E1", {"family": "E2", "lengths": [1, 1, 0.5]}])
+    keys = [injection.family_key(s) for s in specs]
+    assert keys[0].startswith("E1-") and keys[1].startswith("E2-") and keys[0] != keys[1]
+    # 1 and 1.0 are the same length; another shape is another family (new task ids)
+    assert injection.family_key({"family": "E2", "lengths": [1.0, 1.0, 0.5]}) == keys[1]
+    assert injection.family_key({"family": "E2", "lengths": [1.0, 1.0, 0.6]}) != keys[1]
+    assert injection.injection_specs(None, "E1") == specs[:1]
+    with pytest.raises(InputError, match="listed twice"):
+        injection.injection_specs(["E1", {"family": "E1", "lengths": [1.0, 1.0, 1.0]}])
+    with pytest.raises(InputError, match="non-empty list"):
+        injection.injection_specs([])

@@ -21,7 +21,11 @@ TINY = {
     "mask": {"galactic_b_deg": 10.0},
     "instrument": {"fwhm_deg": 4.0, "noise_uk": 1.0, "nside": 16, "lmax": 32},
     "search": {"radii": "27:47:5", "nside_work": 16, "fwhm_deg": 6.0, "m_max": 12, "centre_nside": 4},
-    "significance": {"n_null": 9, "false_alarm": 0.2, "n_injections": 3, "injection_radii": "32:42:10", "seed": 5},
+    # two injected families (back-to-back E1, half-turn E2 seen off its axis), 2 skies per radius
+    # and family: 2 of 2 give a one-sided 68% lower limit of 0.32^(1/2) = 0.566 >= 0.5
+    "significance": {"n_null": 9, "false_alarm": 0.2, "n_injections": 2, "injection_radii": "32:42:10", "seed": 5,
+                     "efficiency_level": 0.5, "efficiency_confidence": 0.68,
+                     "injection_families": ["E1", {"family": "E2", "lengths": [1.0, 1.0, 0.5]}]},
     "bounds": {"families": [{"family": "E1", "lengths": [1.9, 1.9, 1.9]}], "p_max": 6, "m_max": 3},
     "execution": {"engine": "serial"},
 }
@@ -80,6 +84,66 @@ def test_torus_is_found_at_its_radius(tiny_run):
     assert min(best["twist_deg"], 360 - best["twist_deg"]) < 10
     assert abs(np.dot(_vec(best["center_a"]), _vec(best["center_b"])) + 1) < 1e-6
     assert torus["bounds"] is None  # a detected map gives no bound
+
+
+def test_candidates_ranked_and_tested_on_s_eq(tiny_run):
+    # the score that decides detection (S_eq, which S_max per radius is) ranks and tests the
+    # candidates; p = (1 + #null >= S_eq) / (1 + N) at the candidate's radius (Davison & Hinkley
+    # 1997, eq. 4.11), from the stored null skies
+    import pickle
+
+    plan, summary = tiny_run
+    null = np.array([pickle.load(open(plan.out_dir / "store" / "tasks" / f"null_{i:05d}.pkl", "rb"))["result"]["s_max"]
+                     for i in range(plan.n_null)])
+    thr = np.array(summary["calibration"]["threshold_whole_range"])
+    for m in summary["maps"]:
+        cands = m["candidates"]
+        assert cands
+        s_eq = [c["S_eq"] for c in cands]
+        assert s_eq == sorted(s_eq, reverse=True)
+        for c in cands:
+            assert 0.0 < c["overlap"] <= 1.0 and c["S_eq"] <= c["S"] + 1e-12  # S_eq <= S for f <= 1
+            i = int(np.argmin(np.abs(plan.radii_deg - c["radius_deg"])))
+            assert c["above_threshold"] == (c["S_eq"] > thr[i])
+            assert c["p_value_local"] == pytest.approx((1 + np.sum(null[:, i] >= c["S_eq"])) / (1 + plan.n_null))
+        assert any(c["above_threshold"] for c in cands) == m["detected"]
+
+
+def test_each_injected_family_has_its_skies_efficiency_and_alpha_min(tiny_run):
+    from scipy.stats import beta
+
+    plan, summary = tiny_run
+    ids = [t.id for t in build_tasks(plan) if t.id.startswith("inj/")]
+    assert len(ids) == 2 * 2 * 2 and {i.split("/")[1].split("-")[0] for i in ids} == {"E1", "E2"}
+    fams = summary["calibration"]["families"]
+    assert [f["kind"] for f in fams] == ["back-to-back", "general"]
+    for f in fams:
+        k = np.array(f["recovered"])
+        # check: Clopper & Pearson 1934, Biometrika 26, 404: one-sided 68% lower limit B^-1(0.32; k, n - k + 1)
+        lower = np.where(k > 0, beta.ppf(0.32, np.maximum(k, 1), 2 - k + 1), 0.0)
+        assert np.allclose(f["efficiency_lower"], lower)
+        expect = None  # the smallest radius from which the lower limit holds up to the largest
+        for r, good in sorted(zip(plan.injection_radii_deg, lower >= 0.5), reverse=True):
+            if not good:
+                break
+            expect = float(r)
+        assert f["alpha_min_deg"] == expect
+    iso = summary["maps"][1]
+    assert iso["alpha_min_by_family"] == {f["label"]: f["alpha_min_deg"] for f in fams}
+    from astropy.table import Table
+
+    table = Table.read(plan.out_dir / "efficiency.ecsv", format="ascii.ecsv")
+    assert list(table["injected_family"]) == [fams[0]["label"]] * 2 + [fams[1]["label"]] * 2
+    assert np.allclose(table["lower"], fams[0]["efficiency_lower"] + fams[1]["efficiency_lower"])
+    if iso["bounds"] is not None:
+        src = iso["bounds"]["flat"]["sources"]
+        assert src["cubic torus E1"]["calibration"] == "own"
+        assert src["cubic torus E1"]["alpha_min_deg"] == fams[0]["alpha_min_deg"]
+        amins = [f["alpha_min_deg"] for f in fams]
+        assert src["any flat space"]["alpha_min_deg"] == (None if None in amins else max(amins))
+        for row in iso["bounds"]["spherical"]:  # homogeneous rows borrow E1, the others E2
+            assert row["source"]["calibration"] == "borrowed"
+            assert row["source"]["alpha_min_deg"] == amins[0 if row["homogeneous"] else 1]
 
 
 def _vec(lonlat):

@@ -1,4 +1,4 @@
-"""Thresholds, look-elsewhere correction, p-values, efficiency and alpha_min.
+"""Thresholds, look-elsewhere correction, p-values, efficiency (exact binomial limits) and alpha_min.
 
 The null statistics here are correlated Gaussian draws standing in for S_max curves; the
 checks are the binomial behaviour the method promises (common practice)."""
@@ -73,15 +73,50 @@ def test_efficiency_and_alpha_min():
     det[:, 3:] = True  # always found at >= 40 deg
     det[:19, 2] = True  # 95% at 30 deg
     det[:10, 1] = True  # 50% at 20 deg
-    eff, err = sig.efficiency(det)
-    assert eff.tolist() == [0, 0.5, 0.95, 1, 1, 1]
-    assert err[1] == pytest.approx(np.sqrt(0.25 / 20))
-    assert sig.alpha_min(radii, eff, 0.95) == 30.0
-    assert sig.alpha_min(radii, eff, 0.99) == 40.0
+    eff = sig.efficiency(det, 0.95)
+    assert eff.fraction.tolist() == [0, 0.5, 0.95, 1, 1, 1]
+    assert eff.recovered.tolist() == [0, 10, 19, 20, 20, 20]
+    # check: Clopper & Pearson 1934, Biometrika 26, 404: n of n gives the one-sided lower limit
+    # (1 - c)^(1/n) = 0.05^(1/20) = 0.8609, 0 of n the upper limit 1 - 0.05^(1/20) = 0.1391
+    assert eff.lower[3] == pytest.approx(0.05 ** (1 / 20), rel=1e-9)
+    assert eff.upper[0] == pytest.approx(1 - 0.05 ** (1 / 20), rel=1e-9)
+    assert eff.lower[0] == 0.0 and eff.upper[3] == 1.0
+    # the point estimate reaches 0.95 at 30 deg, the lower limit nowhere: 20 of 20 give 0.861
+    assert sig.alpha_min(radii, eff.fraction, 0.95) == 30.0
+    assert sig.alpha_min(radii, eff.lower, 0.95) is None
+    assert sig.alpha_min(radii, eff.lower, 0.85) == 40.0
     # a dip above the crossing moves alpha_min up to where efficiency holds for good
     eff2 = np.array([1, 1, 0.5, 1, 1, 1])
     assert sig.alpha_min(radii, eff2, 0.95) == 40.0
     assert sig.alpha_min(radii, np.array([1, 1, 1, 1, 1, 0.2]), 0.95) is None
+
+
+def test_clopper_pearson_limits_against_closed_forms_and_scipy():
+    from scipy.stats import beta, binom
+
+    # check: Clopper & Pearson 1934, Biometrika 26, 404; 4 of 4 at one-sided 95%: 0.05^(1/4) = 0.4729
+    lo, hi = sig.clopper_pearson(np.array([4]), 4, 0.95)
+    assert lo[0] == pytest.approx(0.4729, abs=1e-4) and hi[0] == 1.0
+    for n in (1, 5, 11, 59):
+        lo, hi = sig.clopper_pearson(np.array([0, n]), n, 0.95)
+        # check: Clopper & Pearson 1934, Biometrika 26, 404: 0 of n, upper = 1 - alpha^(1/n)
+        assert hi[0] == pytest.approx(1 - 0.05 ** (1 / n), rel=1e-9)
+        # check: Clopper & Pearson 1934, Biometrika 26, 404: n of n, lower = alpha^(1/n)
+        assert lo[1] == pytest.approx(0.05 ** (1 / n), rel=1e-9)
+    # check: Clopper & Pearson 1934, Biometrika 26, 404: the limits are beta quantiles, and at
+    # the lower limit P(X >= k) = 1 - c, at the upper P(X <= k) = 1 - c (binomial tails by scipy)
+    k = np.array([1, 3, 7, 12])
+    lo, hi = sig.clopper_pearson(k, 20, 0.9)
+    assert np.allclose(lo, beta.ppf(0.1, k, 20 - k + 1)) and np.allclose(hi, beta.ppf(0.9, k + 1, 20 - k))
+    assert np.allclose(binom.sf(k - 1, 20, lo), 0.1) and np.allclose(binom.cdf(k, 20, hi), 0.1)
+
+
+def test_injections_needed_for_a_reachable_level():
+    # n of n gives (1 - c)^(1/n): 0.95 at 95% needs ln 0.05 / ln 0.95 = 58.4 -> 59 injections
+    assert sig.injections_needed(0.95, 0.95) == 59
+    assert sig.best_lower_limit(59, 0.95) >= 0.95 > sig.best_lower_limit(58, 0.95)
+    assert sig.injections_needed(0.9, 0.95) == 29  # ln 0.05 / ln 0.9 = 28.4
+    assert sig.injections_needed(0.5, 0.95) == 5  # 0.05^(1/5) = 0.549, 0.05^(1/4) = 0.473
 
 
 def test_small_calibration_keeps_nominal_rate_on_average():

@@ -176,14 +176,21 @@ SCHEMA.update({
     "significance": {
         "n_null": Key((int,), 100, "isotropic null skies searched like the data", _positive),
         "false_alarm": Key(NUMBER, 0.05, "false-alarm probability of a detection over the whole radius range", _unit_interval),
-        "efficiency_level": Key(NUMBER, 0.95, "detection efficiency that defines alpha_min", _unit_interval),
+        "efficiency_level": Key(NUMBER, 0.9, "detection efficiency that defines alpha_min: the one-sided lower "
+                                "limit (Clopper-Pearson, at efficiency_confidence) must reach it", _unit_interval),
+        "efficiency_confidence": Key(NUMBER, 0.95, "confidence of the one-sided exact binomial lower limit on the "
+                                     "efficiency (n of n recovered give (1 - c)^(1/n))", _unit_interval),
         "seed": Key((int,), 0, "run seed: every null and injected sky derives its seed from it and its task id", _non_negative),
         "injection_radii": Key((str,), "15:75:10", "radii of injected circles START:STOP:STEP (degrees, < 90)"),
-        "n_injections": Key((int,), 20, "injected skies per radius", _positive),
-        "injection_family": Key((str, dict), "E1", "family of the injected skies: 'E1' (cubic torus, side 2 chi_rec "
-                                "cos(alpha)) or a compact flat or spherical family in the [space] format, e.g. "
-                                "{family = \"E2\", lengths = [1, 1, 0.8]}, scaled so its largest circles have the "
-                                "injected radius"),
+        "n_injections": Key((int,), 30, "injected skies per radius and per injected family", _positive),
+        "injection_families": Key((list,), ["E1", {"family": "E2", "lengths": [1.0, 1.0, 0.5]}],
+                                  "families of the injected skies, each with its own efficiency curve and alpha_min: "
+                                  "'E1' (cubic torus) or compact flat or spherical families in the [space] format, "
+                                  "scaled so their largest circles have the injected radius, seen from random "
+                                  "observers (default: the cubic torus, back-to-back pairs, and a half-turn space "
+                                  "E2 whose largest pairs are not back to back from off-axis observers)"),
+        "injection_family": Key((str, dict), None, "one injected family (the same as injection_families = [it]; "
+                                "give one of the two keys)"),
         "radius_tolerance_deg": Key(NUMBER, None, "an injected circle counts as found within this of its radius (default one radius step)", _non_negative),
     },
     "bounds": {

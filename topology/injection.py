@@ -16,6 +16,13 @@ distance d_min the (random) observer sees:
 Observers: flat, uniform in the box spanned by the largest length; spherical, uniform on S^3;
 orientation uniform on SO(3). Hyperbolic families have their size fixed by the curvature and
 cannot be scaled to a radius: they are refused.
+
+A run injects several families (``[significance] injection_families``), each with its own
+efficiency curve and alpha_min. Each family has a *kind of pairs* (:func:`pair_kind`):
+"back-to-back" when every observer sees only back-to-back pairs (pure translations E1, Clifford
+translations of homogeneous spherical spaces), else "general" (screws and glides seen off their
+axis, inhomogeneous lens spaces); a bound on a space whose family was not injected borrows the
+alpha_min of an injected family of its own kind (:mod:`topology.run.calibration`).
 """
 
 from __future__ import annotations
@@ -27,11 +34,65 @@ import numpy as np
 from . import geometry as geo
 from .errors import InputError
 
-WHERE = "[significance] injection_family"
+WHERE = "[significance] injection_families"
+BACK_TO_BACK, GENERAL = "back-to-back", "general"
+
+
+def injection_specs(families, single=None) -> list[dict]:
+    """The family specs of ``[significance] injection_families`` (or of the one-family key
+    ``injection_family``, as a one-element list), checked for repeats."""
+    if single is not None:
+        families = [single]
+    if not isinstance(families, list) or not families:
+        raise InputError("must be a non-empty list of families, e.g. [\"E1\", {family = \"E2\", lengths = "
+                         "[1, 1, 0.5]}]", WHERE)
+    specs = [injection_spec(v) for v in families]
+    keys = [family_key(s) for s in specs]
+    for i, k in enumerate(keys):
+        if k in keys[:i]:
+            raise InputError(f"the family {describe(specs[i])} is listed twice", WHERE)
+    return specs
+
+
+def family_key(spec: dict) -> str:
+    """A short, stable name of an injected family for task ids and tables: the family and a
+    digest of its whole spec, e.g. 'E2-1a2b3c4d' (a changed spec gives new task ids)."""
+    import hashlib
+    import json
+
+    def plain(v):  # 1 and 1.0 are the same length
+        if isinstance(v, dict):
+            return {k: plain(x) for k, x in v.items()}
+        if isinstance(v, (list, tuple)):
+            return [plain(x) for x in v]
+        return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else v
+
+    digest = hashlib.sha256(json.dumps(plain(spec), sort_keys=True).encode()).hexdigest()[:8]
+    return f"{spec['family']}-{digest}"
+
+
+def pair_kind(space) -> str:
+    """"back-to-back" when every observer sees only back-to-back pairs: a flat space of pure
+    translations (E1) or a homogeneous spherical space (Clifford translations; Gausmann et al.
+    2001); else "general"."""
+    if space.geometry == "flat":
+        return BACK_TO_BACK if space.family == "E1" else GENERAL
+    if space.geometry == "spherical":
+        return BACK_TO_BACK if getattr(space, "homogeneous", False) else GENERAL
+    return GENERAL
+
+
+def spec_kind(spec: dict) -> str:
+    """:func:`pair_kind` of an injected family spec."""
+    return pair_kind(_unit_space(spec))
+
+
+def spec_geometry(spec: dict) -> str:
+    return _unit_space(spec).geometry
 
 
 def injection_spec(value) -> dict:
-    """The family spec of ``[significance] injection_family`` (a name or a [space]-style table)."""
+    """The family spec of one injected family (a name or a [space]-style table)."""
     if isinstance(value, str):
         if value == "E1":
             return {"family": "E1", "lengths": [1.0, 1.0, 1.0]}
@@ -53,6 +114,10 @@ def describe(spec: dict) -> str:
     lengths = spec.get("lengths")
     if spec.get("family") == "E1" and lengths and np.allclose(lengths, lengths[0]) and not spec.get("angles"):
         return "cubic-torus (E1)"
+    if spec.get("family") == "E2" and set(spec) <= {"family", "lengths"} and lengths:
+        return f"half-turn E2 (lengths {', '.join(f'{float(v):g}' for v in lengths)})"
+    if spec.get("family") == "E3" and set(spec) <= {"family", "lengths"} and lengths:
+        return f"quarter-turn E3 (lengths {', '.join(f'{float(v):g}' for v in lengths)})"
     args = ", ".join(f"{k}={v}" for k, v in spec.items() if k != "family")
     return f"{spec['family']}({args})" if args else spec["family"]
 

@@ -14,6 +14,12 @@ each radius of each null (isotropic) sky, searched with the same settings as the
 * p-values carry the +1 correction, p = (1 + #{null >= observed}) / (1 + N) (Davison &
   Hinkley 1997, "Bootstrap methods", eq. 4.11), so that p is never zero.
 * Binomial uncertainty on a false-alarm fraction f from N skies: sqrt(f (1 - f) / N).
+* Detection efficiency of k recovered out of n injections: the exact binomial (Clopper &
+  Pearson 1934, Biometrika 26, 404) one-sided limits at confidence c, lower = B^-1(1 - c; k,
+  n - k + 1) and upper = B^-1(c; k + 1, n - k) (beta quantiles; lower 0 at k = 0, upper 1 at
+  k = n). n of n gives lower = (1 - c)^(1/n), so a level e is reachable only with
+  n >= ln(1 - c) / ln(e) injections. alpha_min requires the lower limit, not the fraction, to
+  reach the efficiency level.
 """
 
 from __future__ import annotations
@@ -142,16 +148,62 @@ def global_p_value(smax: np.ndarray, smax_null: np.ndarray, *, smooth: bool = Tr
     return float((1.0 + np.sum(t >= t_data)) / (1.0 + null.shape[0]))
 
 
-def efficiency(detected: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Detection fraction and its binomial error per radius; detected (n_inj, n_radius) bools."""
+def clopper_pearson(k, n: int, confidence: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
+    """One-sided exact binomial limits (lower, upper) at ``confidence`` for k successes of n:
+    lower = B^-1(1 - c; k, n - k + 1), upper = B^-1(c; k + 1, n - k), with B^-1 the beta
+    quantile (Clopper & Pearson 1934, Biometrika 26, 404); lower = 0 at k = 0, upper = 1 at k = n."""
+    from scipy.stats import beta
+
+    k = np.asarray(k, dtype=float)
+    if n < 1 or not 0.0 < confidence < 1.0:
+        raise ValueError("need n >= 1 and 0 < confidence < 1")
+    with np.errstate(invalid="ignore"):
+        lower = np.where(k > 0, beta.ppf(1.0 - confidence, np.maximum(k, 1e-300), n - k + 1.0), 0.0)
+        upper = np.where(k < n, beta.ppf(confidence, k + 1.0, np.maximum(n - k, 1e-300)), 1.0)
+    return lower, upper
+
+
+def best_lower_limit(n: int, confidence: float = 0.95) -> float:
+    """The largest lower limit n injections can give (all n recovered): (1 - c)^(1/n)."""
+    return float((1.0 - confidence) ** (1.0 / n))
+
+
+def injections_needed(level: float, confidence: float = 0.95) -> int:
+    """Fewest injections per radius whose lower limit can reach ``level``: the least n with
+    (1 - c)^(1/n) >= level, n = ceil(ln(1 - c) / ln(level))."""
+    if level <= 0.0:
+        return 1
+    n = max(1, int(math.ceil(math.log(1.0 - confidence) / math.log(level) - 1e-12)))
+    while best_lower_limit(n, confidence) < level:  # guard the rounding at an exact integer
+        n += 1
+    return n
+
+
+@dataclass(frozen=True)
+class Efficiency:
+    """Detection efficiency per radius: recovered counts out of n, the fraction and its one-sided
+    Clopper-Pearson limits at ``confidence``."""
+
+    recovered: np.ndarray
+    n: int
+    fraction: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    confidence: float
+
+
+def efficiency(detected: np.ndarray, confidence: float = 0.95) -> Efficiency:
+    """Detection fraction and its exact one-sided limits per radius; detected (n_inj, n_radius) bools."""
     d = np.asarray(detected, dtype=bool)
     n = d.shape[0]
-    f = d.mean(axis=0)
-    return f, np.sqrt(np.maximum(f * (1.0 - f), 0.0) / n)
+    k = d.sum(axis=0)
+    lower, upper = clopper_pearson(k, n, confidence)
+    return Efficiency(k.astype(int), n, k / n, lower, upper, confidence)
 
 
 def alpha_min(radii_deg, eff: np.ndarray, level: float) -> float | None:
-    """Smallest radius above which the efficiency is >= level at every radius of the grid.
+    """Smallest radius above which the efficiency is >= level at every radius of the grid; give
+    the lower limit of :func:`efficiency` (Clopper-Pearson), not the fraction, for a bound.
 
     Returns None when the efficiency at the largest radius is already below the level (the
     search excludes nothing)."""

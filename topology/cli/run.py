@@ -28,18 +28,26 @@ def headline(m: dict) -> str:
         return f"{m['name']}: " + "; ".join(parts)
     if m["detected"]:
         best = m["candidates"][0] if m["candidates"] else None
-        what = (f"circles of radius {best['radius_deg']:.1f} deg, S = {best['S']:.3f}, global p = {best['p_value']:.3g}"
-                if best else "")
+        what = (f"circles of radius {best['radius_deg']:.1f} deg, S_eq = {best.get('S_eq', best['S']):.3f}"
+                + (f" (S = {best['S']:.3f}, f = {best['overlap']:.2f})" if "overlap" in best else "")
+                + f", global p = {best['p_value']:.3g}" if best else "")
         return f"{m['name']}: DETECTED ({what})"
-    if m["alpha_min_deg"] is None:
-        return f"{m['name']}: no detection; the efficiency never reaches the level, so no alpha_min and no bound"
+    by_family = m.get("alpha_min_by_family") or {"injected family": m["alpha_min_deg"]}
+    amin = ", ".join(f"{k} {'none' if a is None else f'{a:.1f} deg'}" for k, a in by_family.items())
     b = m["bounds"]
+    if b is None:
+        return f"{m['name']}: no detection; alpha_min: {amin}: no injected family reaches the level, so no bound"
+    parts = []
+    cubic = b["flat"]["cubic_torus_inscribed_radius_over_chi_rec"]
+    if cubic is not None:
+        parts.append(f"cubic torus R_i > {cubic:.3f} chi_rec")
     dodec = next((s for s in b["spherical"] if s["family"] == "dodecahedral"), None)
-    extra = ""
     if dodec and dodec.get("min_omega_k") is not None:
-        extra = f"; dodecahedral space: R_c > {dodec['min_curvature_radius_over_chi_rec']:.3f} chi_rec (Omega_K > {dodec['min_omega_k']:.4f})"
-    return (f"{m['name']}: no detection; alpha_min = {m['alpha_min_deg']:.1f} deg; cubic torus R_i > "
-            f"{b['flat']['cubic_torus_inscribed_radius_over_chi_rec']:.3f} chi_rec{extra}")
+        src = dodec.get("source")
+        parts.append(f"dodecahedral space: R_c > {dodec['min_curvature_radius_over_chi_rec']:.3f} chi_rec (Omega_K > "
+                     f"{dodec['min_omega_k']:.4f}" + (f", alpha_min borrowed from {src['injected_family']}"
+                                                      if src and src["calibration"] == "borrowed" else "") + ")")
+    return f"{m['name']}: no detection; alpha_min: {amin}" + "".join(f"; {p}" for p in parts)
 
 
 def run(args):

@@ -97,17 +97,33 @@ def figure_sky(base: Path, name: str, sky_map, pairs, title_extra="", mask=None,
     return save_figure(fig, base)
 
 
-def figure_efficiency(base: Path, radii_deg, eff, err, level, alpha_min_deg, false_alarm) -> list[str]:
+def figure_efficiency(base: Path, families: list[dict], radii_deg, level: float, false_alarm: float,
+                      confidence: float) -> list[str]:
+    """Detection efficiency against radius, one colour per injected family: the recovered
+    fraction, bars from its one-sided lower to upper exact binomial limit (Clopper & Pearson
+    1934) at ``confidence``, and each family's alpha_min (where the lower limit reaches the level)."""
     plt = pyplot()
-    fig, ax = plt.subplots(figsize=(7, 4))
-    ax.errorbar(radii_deg, eff, yerr=err, fmt="o-", ms=4, capsize=2, label="injected circles recovered")
-    ax.axhline(level, color="r", ls="--", label=f"level {level:g}")
-    if alpha_min_deg is not None:
-        ax.axvline(alpha_min_deg, color="g", ls=":", label=f"alpha_min = {alpha_min_deg:.1f} deg")
+    fig, ax = plt.subplots(figsize=(7.5, 4.2))
+    r = np.asarray(radii_deg, float)
+    step = 0.15 * (np.min(np.diff(r)) if r.size > 1 else 1.0)
+    for i, f in enumerate(families):
+        colour = CIRCLE_COLOURS[i % len(CIRCLE_COLOURS)] if i else "C0"
+        x = r + (i - 0.5 * (len(families) - 1)) * step  # side by side, not over each other
+        eff, lo, hi = (np.asarray(f[k], float) for k in ("efficiency", "efficiency_lower", "efficiency_upper"))
+        amin = f["alpha_min_deg"]
+        ax.errorbar(x, eff, yerr=[eff - lo, hi - eff], fmt="o-", ms=4, capsize=2, color=colour,
+                    label=f"{f['label']} ({f['kind']} pairs): alpha_min = "
+                          + ("none" if amin is None else f"{amin:.1f} deg"))
+        ax.plot(x, lo, "v", color=colour, ms=5)
+        if amin is not None:
+            ax.axvline(amin, color=colour, ls=":", lw=1.2)
+    ax.axhline(level, color="r", ls="--", label=f"efficiency level {level:g} (the lower limit must reach it)")
     ax.set_ylim(-0.03, 1.05)
     ax.set_xlabel("injected circle radius [deg]")
     ax.set_ylabel(f"detection efficiency at false alarm {false_alarm:g}")
-    ax.legend(fontsize=8)
+    ax.set_title(f"recovered fraction; bars and triangles: one-sided {confidence:.0%} exact binomial limits "
+                 "(Clopper & Pearson 1934)", fontsize=9)
+    ax.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.16), frameon=False)
     return save_figure(fig, base)
 
 

@@ -36,10 +36,18 @@ def write_index(folder: Path, summary: dict, tables: dict[str, Table], figures: 
              ".caution{background:#fff4e0;border:1px solid #e0b060;padding:0.5em 1em}</style></head><body>",
              "<h1>Matched-circle search report</h1>",
              f"<p class='caution'><b>What these results assume.</b> {html.escape(caution)}</p>", "<h2>Maps</h2><ul>"]
+    def deg(a):
+        return "none" if a is None else f"{a:.1f} deg"
+
     for m in summary["maps"]:
-        amin = "none" if m["alpha_min_deg"] is None else f"{m['alpha_min_deg']:.1f} deg"
+        by_family = m.get("alpha_min_by_family")
+        if by_family:
+            amin = "; ".join(f"{html.escape(label)}: {deg(a)}" for label, a in by_family.items())
+            amin = f"alpha_min per injected family: {amin}"
+        else:
+            amin = f"alpha_min = {deg(m['alpha_min_deg'])}"
         parts.append(f"<li><b>{html.escape(m['name'])}</b>: {'DETECTED' if m['detected'] else 'no detection'}; "
-                     f"alpha_min = {amin}; global p-value of the best candidate = {m.get('global_p_value', float('nan')):.3g}</li>")
+                     f"{amin}; global p-value of the best candidate = {m.get('global_p_value', float('nan')):.3g}</li>")
     parts.append("</ul>")
     for key, names in figures.items():
         png = [n for n in names if n.endswith(".png")]

@@ -66,6 +66,50 @@ def space_tex(row) -> str:
     return escape(row["space"])
 
 
+def _tag(i: int) -> str:
+    return "ABCDEFGHIJKLMNOPQRSTUVWXYZ"[i % 26]
+
+
+def source_tags(*tables) -> dict:
+    """{injected family label: letter} in order of first appearance in the tables' rows."""
+    tags: dict = {}
+    for t in tables:
+        if "injected_family" not in t.colnames:
+            continue
+        for r in t:
+            label = r["injected_family"]
+            if label is not np.ma.masked and str(label) and str(label) not in tags:
+                tags[str(label)] = _tag(len(tags))
+    return tags
+
+
+def alpha_cell(row, tags: dict) -> str:
+    """The alpha_min of a bounds row with the letter of its injected family; a dagger marks a
+    borrowed alpha_min (an assumption)."""
+    if "alpha_min" not in row.colnames:
+        return "--"
+    a = row["alpha_min"]
+    label = row["injected_family"]
+    tag = tags.get(str(label), "") if label is not np.ma.masked else ""
+    mark = r"$^\dagger$" if str(row["calibration"]) == "borrowed" else ""
+    return f"{cell(None if a is np.ma.masked else float(a), '.1f')} {tag}{mark}".strip()
+
+
+def sources_caption(tags: dict, alpha_by_label: dict | None = None) -> str:
+    """The caption text that names the injected families of the alpha_min column."""
+    if not tags:
+        return ""
+    parts = []
+    for label, tag in tags.items():
+        a = (alpha_by_label or {}).get(label, "?")
+        a_tex = "not reached" if a is None else ("" if a == "?" else f"$\\alpha_{{\\min}} = {a:.1f}^\\circ$")
+        parts.append(f"{tag} = injected {escape(label)}" + (f" ({a_tex})" if a_tex else ""))
+    return (" The $\\alpha_{\\min}$ column gives the radius each row is bounded with and the injected family it "
+            "comes from: " + "; ".join(parts) + ". A dagger ($^\\dagger$) marks a borrowed $\\alpha_{\\min}$: that "
+            "space's own family was not injected, and its bound assumes that its circles are found as well as "
+            "those of the named family, an assumption, not a measurement.")
+
+
 def bounds_caption(summary: dict) -> str:
     """What the bounds show: alpha_min, chi_rec, the flat headline and the convention."""
     a = summary["alpha_min_deg"]
@@ -73,33 +117,45 @@ def bounds_caption(summary: dict) -> str:
     conv = (escape(summary["convention"]).replace(r"Omega\_K", r"$\Omega_K$").replace(r"Omega\_Lambda", r"$\Omega_\Lambda$")
             .replace(r"omega\_b h\textasciicircum{}2", r"$\omega_b h^2$").replace(r"omega\_c h\textasciicircum{}2", r"$\omega_c h^2$")
             .replace(r"z\_*", r"$z_*$").replace(r"h\textasciicircum{}2", r"$h^2$"))
-    return (f"Bounds from the absence of matched circles of radius $\\alpha \\geq {a:g}^\\circ$ "
-            f"($\\chi_{{\\rm rec}} = {summary['chi_rec_mpc']:.0f}$ Mpc). Flat spaces: shortest loop "
-            f"$> {f['min_loop_over_lss_diameter']:.4f} \\times 2\\chi_{{\\rm rec}}$, cubic torus "
-            f"$R_i > {f['cubic_torus_inscribed_radius_over_chi_rec']:.4f}\\,\\chi_{{\\rm rec}}$. "
-            f"Convention: {conv}.")
+    loop, cubic = f["min_loop_over_lss_diameter"], f["cubic_torus_inscribed_radius_over_chi_rec"]
+    flat = []
+    if loop is not None:
+        flat.append(f"shortest loop $> {loop:.4f} \\times 2\\chi_{{\\rm rec}}$")
+    if cubic is not None:
+        flat.append(f"cubic torus $R_i > {cubic:.4f}\\,\\chi_{{\\rm rec}}$")
+    if a is not None and "sources" not in f:
+        start = f"Bounds from the absence of matched circles of radius $\\alpha \\geq {a:g}^\\circ$ "
+    else:
+        start = "Bounds from the absence of matched circles of radius $\\alpha \\geq \\alpha_{\\min}$ "
+    return (start + f"($\\chi_{{\\rm rec}} = {summary['chi_rec_mpc']:.0f}$ Mpc)."
+            + (f" Flat spaces: {', '.join(flat)}." if flat else "")
+            + f" Convention: {conv}.")
 
 
 def bounds_latex(curved, flat, summary: dict, extra_caption: str = "") -> str:
     """The bounds as LaTeX: a table of flat spaces (any flat space, the cubic torus, configured
     spaces with their verdicts) and a long table of curved spaces (one row per distinct space,
-    configured ones with their verdicts). Needs booktabs and longtable."""
-    caption = bounds_caption(summary) + extra_caption
+    configured ones with their verdicts), each row with its alpha_min and the injected family
+    it comes from (lettered in the caption). Needs booktabs and longtable."""
+    tags = source_tags(flat, curved)
+    caption = bounds_caption(summary) + sources_caption(tags, summary.get("alpha_min_by_family")) + extra_caption
     quantity = {"shortest loop / (2 chi_rec)": r"$d_{\min}/2\chi_{\rm rec}$",
                 "inscribed radius R_i / chi_rec": r"$R_i/\chi_{\rm rec}$", "scale factor of the shape": "scale $s$"}
     flat_rows = [[escape(r["space"]), quantity.get(str(r["quantity"]), escape(r["quantity"])), cell(r["bound"], ".4f"),
                   cell(r["bound_mpc"] / 1000.0 if r["bound_mpc"] is not np.ma.masked else None, ".2f"),
-                  cell(r["verdict"])] for r in flat]
-    flat_tex = latex_table(["space", "quantity", "bound", "[Gpc]", "verdict"], flat_rows,
+                  alpha_cell(r, tags), cell(r["verdict"])] for r in flat]
+    flat_head = ["space", "quantity", "bound", "[Gpc]", r"$\alpha_{\min}$ [deg]", "verdict"]
+    keep = (lambda row: row) if tags else (lambda row: row[:-2] + row[-1:])  # one given alpha_min: no column
+    flat_tex = latex_table(keep(flat_head), [keep(r) for r in flat_rows],
                            "Flat spaces: each quantity is larger than its bound (a configured shape is allowed "
-                           "when scaled by more than $s$). " + caption, "llrrl")
+                           "when scaled by more than $s$). " + caption, "llrr" + ("ll" if tags else "l"))
     curved_rows = [[space_tex(r), cell(r["shortest_displacement"], ".4f"),
                     cell(r["max_chi_rec_over_curvature_radius"], ".4f"), cell(r["omega_k_bound"], ".4f"),
                     cell(r["min_curvature_radius_mpc"] / 1000.0 if r["min_curvature_radius_mpc"] is not np.ma.masked
-                         else None, ".1f"), cell(r["verdict"])] for r in curved]
+                         else None, ".1f"), alpha_cell(r, tags), cell(r["verdict"])] for r in curved]
     header = ["space", r"$d_{\min}/R_c$", r"$\max \chi_{\rm rec}/R_c$", r"$\Omega_K$ bound",
-              r"$\min R_c$ [Gpc]", "verdict"]
-    curved_tex = latex_table(header, curved_rows,
+              r"$\min R_c$ [Gpc]", r"$\alpha_{\min}$ [deg]", "verdict"]
+    curved_tex = latex_table(keep(header), [keep(r) for r in curved_rows],
                              r"Curved spaces: $\Omega_K$ above the bound (spherical) or below it (hyperbolic). "
-                             + caption, "lrrrrl", long=True)
+                             + caption, "lrrrr" + ("ll" if tags else "l"), long=True)
     return flat_tex + "\n" + curved_tex

@@ -13,17 +13,28 @@ from ..cosmology import C_KM_S
 
 
 def candidates_table(maps: list[dict]) -> Table:
+    """The candidates of every map, ranked by S_eq (the score that decides detection), with S,
+    the kept fraction f, S_eq, the local p at their radius and the look-elsewhere p."""
     rows = []
     for m in maps:
         for c in m["candidates"]:
             rows.append((m["name"], c["radius_deg"], c["center_a"][0], c["center_a"][1], c["center_b"][0],
-                         c["center_b"][1], c["twist_deg"], c["orientation"], c["S"], c["p_value"], c.get("p_value_local", np.nan)))
-    names = ("map", "radius", "lon_a", "lat_a", "lon_b", "lat_b", "twist", "orientation", "S", "p_value", "p_value_local")
-    dtype = ("U64", float, float, float, float, float, float, "U8", float, float, float)
+                         c["center_b"][1], c["twist_deg"], c["orientation"], c["S"], c.get("overlap", np.nan),
+                         c.get("S_eq", np.nan), c.get("p_value_local", np.nan), c["p_value"],
+                         bool(c.get("above_threshold", False))))
+    names = ("map", "radius", "lon_a", "lat_a", "lon_b", "lat_b", "twist", "orientation", "S", "f", "S_eq",
+             "p_value_local", "p_value", "above_threshold")
+    dtype = ("U64", float, float, float, float, float, float, "U8", float, float, float, float, float, bool)
     t = Table(rows=rows, names=names, dtype=dtype) if rows else Table(names=names, dtype=dtype)
     for col in ("radius", "lon_a", "lat_a", "lon_b", "lat_b", "twist"):
         t[col].unit = u.deg
-    t.meta["description"] = "best matched-circle candidates per map; p_value corrected for the look-elsewhere effect"
+    t["f"].description = "fraction of the circle points both circles keep (the mask)"
+    t["S_eq"].description = "S_eq = sqrt(1 - (1 - S^2)^f): the full-circle S of the same chance probability"
+    t["p_value_local"].description = "p at the candidate's radius: (1 + #null S_max >= S_eq) / (1 + N)"
+    t["p_value"].description = "look-elsewhere p over the whole radius range (standardised maximum)"
+    t["above_threshold"].description = "S_eq above the whole-range threshold (the test of detection)"
+    t.meta["description"] = ("best matched-circle candidates per map, ranked by S_eq; p_value corrected for the "
+                             "look-elsewhere effect")
     return t
 
 
@@ -42,12 +53,22 @@ def thresholds_table(radii_deg, th, smax_null) -> Table:
     return t
 
 
-def efficiency_table(radii_deg, eff, err, n_inj: int, level: float) -> Table:
-    t = Table()
-    t["radius"] = np.asarray(radii_deg, float) * u.deg
-    t["efficiency"] = eff
-    t["efficiency_error"] = err
-    t.meta.update(n_injections_per_radius=int(n_inj), efficiency_level=level)
+def efficiency_table(families: list[dict], radii_deg, level: float, confidence: float) -> Table:
+    """Detection efficiency per injected family and radius: recovered of n, the fraction and its
+    one-sided exact binomial limits (Clopper & Pearson 1934) at ``confidence``."""
+    rows = []
+    for f in families:
+        for k, r in enumerate(radii_deg):
+            rows.append((f["label"], f["kind"], float(r), int(f["recovered"][k]), int(f["n_injections"]),
+                         f["efficiency"][k], f["efficiency_lower"][k], f["efficiency_upper"][k]))
+    names = ("injected_family", "pairs", "radius", "recovered", "n", "efficiency", "lower", "upper")
+    t = Table(rows=rows, names=names, dtype=("U96", "U16", float, int, int, float, float, float))
+    t["radius"].unit = u.deg
+    t["lower"].description = f"one-sided {confidence:g} lower limit (Clopper & Pearson 1934)"
+    t["upper"].description = f"one-sided {confidence:g} upper limit (Clopper & Pearson 1934)"
+    t.meta.update(efficiency_level=level, efficiency_confidence=confidence,
+                  alpha_min_deg={f["label"]: f["alpha_min_deg"] for f in families},
+                  rule="alpha_min: the smallest radius above which the lower limit stays >= efficiency_level")
     return t
 
 
@@ -58,9 +79,9 @@ def target_tables(maps: list[dict], calibration: dict, th, null, *, false_alarm:
     for m in maps:
         for r in m["targets"]:
             rows.append((m["name"], r["target"], r["S_combined"], r["threshold"], r["p_value"], r["efficiency"],
-                         r["efficiency_error"], "detected" if r["detected"] else ("excluded" if r["excluded"] else
-                                                                               "not excluded")))
-    names = ("map", "target", "S_combined", "S_threshold", "p_value", "efficiency", "efficiency_error", "outcome")
+                         r["efficiency_lower"], "detected" if r["detected"] else ("excluded" if r["excluded"] else
+                                                                                "not excluded")))
+    names = ("map", "target", "S_combined", "S_threshold", "p_value", "efficiency", "efficiency_lower", "outcome")
     t = Table(rows=rows, names=names, dtype=("U64", "U128", float, float, float, float, float, "U16"))
     t.meta.update(false_alarm=false_alarm, n_null=n_null, efficiency_level=efficiency_level,
                   n_injections_per_target=n_injections)
@@ -75,7 +96,8 @@ def target_tables(maps: list[dict], calibration: dict, th, null, *, false_alarm:
     et = Table()
     et["target"] = calibration["targets"]
     et["efficiency"] = calibration["efficiency"]
-    et["efficiency_error"] = calibration["efficiency_error"]
+    et["efficiency_lower"] = calibration["efficiency_lower"]
+    et["efficiency_upper"] = calibration["efficiency_upper"]
     et.meta.update(n_injections_per_target=n_injections, efficiency_level=efficiency_level)
     return t, tt, et
 
@@ -117,22 +139,48 @@ def _meta(summary: dict) -> dict:
             "cosmology": dict(summary["cosmology"]), "source": "topology.bounds (CSS 1998 circle radii)"}
 
 
+def _source(src: dict | None, summary: dict) -> dict:
+    """The calibration columns of a bounds row: the alpha_min it uses, the injected family it
+    comes from and whether that is its own family or borrowed (an assumption); a summary of
+    ``topology bound`` has one alpha_min, given by the user."""
+    if src is None:
+        return {"alpha_min": summary["alpha_min_deg"], "injected_family": "", "calibration": "given"}
+    return {"alpha_min": src["alpha_min_deg"], "injected_family": src["injected_family"],
+            "calibration": src["calibration"]}
+
+
+def _source_columns(rows) -> list:
+    return [
+        _column(rows, "alpha_min", "alpha_min", float, u.deg, "the alpha_min this row is bounded with"),
+        _column(rows, "injected_family", "injected_family", "U96",
+                desc="the injected family whose efficiency gave that alpha_min"),
+        _column(rows, "calibration", "calibration", "U10",
+                desc="own: the row's own family was injected; borrowed: the alpha_min of another injected family, "
+                     "an assumption that this space's circles are found as well; given: alpha_min given"),
+    ]
+
+
 def flat_bounds_table(summary: dict) -> Table:
     """Flat spaces: the bound on any flat space (shortest loop), the cubic torus, and every
-    configured flat space with its verdict and the smallest allowed scale of its shape."""
+    configured flat space with its verdict and the smallest allowed scale of its shape; each row
+    with the alpha_min it uses and the injected family that alpha_min comes from."""
     f = summary["flat"]
+    sources = f.get("sources", {})
+    chi = summary["chi_rec_mpc"]
+    cubic = f["cubic_torus_inscribed_radius_over_chi_rec"]
     rows = [{"space": "any flat space", "quantity": "shortest loop / (2 chi_rec)",
-             "bound": f["min_loop_over_lss_diameter"], "bound_mpc": f["min_loop_mpc"], "verdict": "bound"},
-            {"space": "cubic torus E1", "quantity": "inscribed radius R_i / chi_rec",
-             "bound": f["cubic_torus_inscribed_radius_over_chi_rec"],
-             "bound_mpc": f["cubic_torus_inscribed_radius_over_chi_rec"] * summary["chi_rec_mpc"], "verdict": "bound"}]
-    configured = ([f["configured"]] if "configured" in f else []) + [
-        e["flat"] for e in summary.get("families", []) if "flat" in e]
-    for c in configured:
+             "bound": f["min_loop_over_lss_diameter"], "bound_mpc": f["min_loop_mpc"], "verdict": "bound",
+             **_source(sources.get("any flat space"), summary)},
+            {"space": "cubic torus E1", "quantity": "inscribed radius R_i / chi_rec", "bound": cubic,
+             "bound_mpc": None if cubic is None else cubic * chi, "verdict": "bound",
+             **_source(sources.get("cubic torus E1"), summary)}]
+    configured = ([(f["configured"], None)] if "configured" in f else []) + [
+        (e["flat"], e.get("source")) for e in summary.get("families", []) if "flat" in e]
+    for c, src in configured:
         rows.append({"space": space_label(c["family"], c["params"]), "quantity": "scale factor of the shape",
-                     "bound": c["min_scale_factor"], "verdict": _verdict(c),
+                     "bound": c.get("min_scale_factor"), "verdict": _verdict(c),
                      "shortest_displacement": c.get("shortest_displacement_over_chi_rec"),
-                     "largest_circle": c.get("largest_circle_radius_deg")})
+                     "largest_circle": c.get("largest_circle_radius_deg"), **_source(src, summary)})
     t = Table([
         _column(rows, "space", "space", "U96"),
         _column(rows, "quantity", "quantity", "U40"),
@@ -144,6 +192,7 @@ def flat_bounds_table(summary: dict) -> Table:
         _column(rows, "largest_circle", "largest_circle", float, u.deg,
                 "configured space: radius of its largest matched circles"),
         _column(rows, "verdict", "verdict", "U12", desc="excluded / allowed at alpha_min (configured spaces)"),
+        *_source_columns(rows),
     ])
     t.meta.update(_meta(summary))
     return t
@@ -158,14 +207,16 @@ def bounds_table(summary: dict) -> Table:
         rows.append(dict(r, geometry="spherical",
                          space=space_label(r["family"], {k: r[k] for k in ("p", "q", "m") if k in r}),
                          isometric_q=" ".join(str(q) for q in iso) if iso else None,
-                         omega_k_bound=r["min_omega_k"], verdict="bound"))
-    configured = [summary[k] for k in ("spherical_configured", "hyperbolic") if k in summary]
-    configured += [e[k] for e in summary.get("families", []) for k in ("spherical_configured", "hyperbolic") if k in e]
-    for r in configured:
-        geometry = "hyperbolic" if "max_omega_k" in r else "spherical"
+                         omega_k_bound=r["min_omega_k"], verdict="bound", **_source(r.get("source"), summary)))
+    configured = [(summary[k], None, k) for k in ("spherical_configured", "hyperbolic") if k in summary]
+    configured += [(e[k], e.get("source"), k) for e in summary.get("families", [])
+                   for k in ("spherical_configured", "hyperbolic") if k in e]
+    for r, src, key in configured:
+        geometry = "hyperbolic" if key == "hyperbolic" else "spherical"
         rows.append(dict(r, **{k: v for k, v in r["params"].items() if k in ("p", "q", "m")}, geometry=geometry,
                          space=space_label(r["family"], r["params"]) + " (configured)",
-                         omega_k_bound=r.get("min_omega_k", r.get("max_omega_k")), verdict=_verdict(r)))
+                         omega_k_bound=r.get("min_omega_k", r.get("max_omega_k")), verdict=_verdict(r),
+                         **_source(src, summary)))
     hubble_mpc = C_KM_S / (100.0 * summary["cosmology"]["h"])
     for r in rows:
         ok = r["omega_k_bound"]
@@ -191,7 +242,9 @@ def bounds_table(summary: dict) -> Table:
                 "R_c = (c/H0)/sqrt(|Omega_K|) at the Omega_K bound"),
         _column(rows, "verdict", "verdict", "U12",
                 desc="bound (a family's limit) or, for a configured space, excluded / allowed / not tested "
-                     "(not tested: the background has another curvature)"),
+                     "(not tested: the background has another curvature, or its injected family never reaches "
+                     "the efficiency level)"),
+        *_source_columns(rows),
     ])
     t.meta.update(_meta(summary))
     flat = summary["flat"]

@@ -83,6 +83,10 @@ class RunPlan:
         return float(self.significance["efficiency_level"])
 
     @property
+    def efficiency_confidence(self) -> float:
+        return float(self.significance["efficiency_confidence"])
+
+    @property
     def radius_step_deg(self) -> float:
         return float(np.min(np.diff(self.radii_deg))) if self.radii_deg.size > 1 else 0.0
 
@@ -289,8 +293,8 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
                              f"{settings.nside_work} ([search] nside_work)", "[[maps]] sky nside")
 
     significance = {k: cfg.get("significance", k) for k in (
-        "n_null", "false_alarm", "efficiency_level", "seed", "injection_radii", "n_injections", "injection_family",
-        "radius_tolerance_deg")}
+        "n_null", "false_alarm", "efficiency_level", "efficiency_confidence", "seed", "injection_radii",
+        "n_injections", "radius_tolerance_deg")}
     sig.check_null_count(int(significance["n_null"]), float(significance["false_alarm"]))
     injection_radii = parse_radii_key(significance["injection_radii"], "[significance] injection_radii")
     if injection_radii.max() >= 90:
@@ -298,11 +302,18 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
     if injection_radii.min() < radii.min() - 1e-9 or injection_radii.max() > radii.max() + 1e-9:
         raise InputError(f"injection radii {injection_radii.min():g}..{injection_radii.max():g} deg lie outside the "
                          f"searched radii {radii.min():g}..{radii.max():g} deg", "[significance] injection_radii")
-    significance["injection_family"] = injection.injection_spec(significance["injection_family"])
+    significance["injection_families"] = injection_families(cfg)
     if targets:
         targeted.check_injectable(targets, cfg.section("cosmology"), cfg.base_dir, sim_lmax)
     else:
-        injection.check(significance["injection_family"], cosmo, injection_radii, sim_lmax)
+        for k, spec in enumerate(significance["injection_families"]):
+            try:
+                injection.check(spec, cosmo, injection_radii, sim_lmax)
+            except InputError as e:
+                where = (e.where or "").replace(injection.WHERE, f"{injection.WHERE} #{k + 1}")
+                raise InputError(e.reason, where) from None
+    check_reachable(int(significance["n_injections"]), float(significance["efficiency_level"]),
+                    float(significance["efficiency_confidence"]))
     if significance["radius_tolerance_deg"] is None:
         significance["radius_tolerance_deg"] = float(np.min(np.diff(radii))) if radii.size > 1 else 1.0
 
@@ -322,6 +333,37 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
                    execution=execution, targets=targets, inputs=inputs,
                    config_path=str(cfg.path.resolve()) if cfg.path else None, sim_nside=sim_nside,
                    sim_lmax=sim_lmax)
+
+
+def injection_families(cfg: Config) -> list[dict]:
+    """The injected families: ``[significance] injection_families``, or the one family of the
+    older key ``injection_family`` as a one-element list (giving both is an error)."""
+    from .. import injection
+
+    given = cfg.sections.get("significance", {})
+    if "injection_family" in given and "injection_families" in given:
+        raise InputError("give injection_families (a list) or injection_family (one family), not both",
+                         "[significance] injection_family")
+    if "injection_family" in given:
+        try:
+            return injection.injection_specs(None, given["injection_family"])
+        except InputError as e:
+            raise InputError(e.reason, "[significance] injection_family") from None
+    return injection.injection_specs(cfg.get("significance", "injection_families"))
+
+
+def check_reachable(n_injections: int, level: float, confidence: float) -> None:
+    """A note when ``n_injections`` per radius can never give a lower limit >= ``level`` (then no
+    alpha_min and no bound can come out): n of n recovered gives (1 - c)^(1/n) (Clopper & Pearson
+    1934). A note, not an error, so that quick trial runs still go through."""
+    best = sig.best_lower_limit(n_injections, confidence)
+    if best < level:
+        from ..errors import note
+
+        need = sig.injections_needed(level, confidence)
+        note(f"[significance] n_injections = {n_injections} per radius can give an efficiency lower limit of at most "
+             f"{best:.3f} ({confidence:g} one-sided, all recovered), below efficiency_level = {level:g}: no alpha_min "
+             f"and no bound can come out; give n_injections >= {need}")
 
 
 def _check_map_resolution(maps: list[MapSpec], nside_work: int) -> None:

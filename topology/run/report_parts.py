@@ -40,7 +40,9 @@ def candidate_circles(cands, n=6, *, detected=True):
         if "S" not in c:
             return f"predicted: radius {c['radius_deg']:.1f} deg"
         kind = "detected" if c.get("above_threshold") and detected else "best candidate (not significant)"
-        s = f"S = {c['S']:.2f}" if c["S"] is not None and math.isfinite(c["S"]) else "S not measured"
+        score = c.get("S_eq", c["S"])
+        s = (f"S_eq = {score:.2f}" + (f" (S = {c['S']:.2f}, f = {c['overlap']:.2f})" if "overlap" in c else "")
+             if score is not None and math.isfinite(score) else "S not measured")
         return f"{kind}: radius {c['radius_deg']:.1f} deg, {s}"
 
     return [SimpleNamespace(center_a=lonlat_to_vec(*c["center_a"]), center_b=lonlat_to_vec(*c["center_b"]),
@@ -89,7 +91,10 @@ CAUTION = (
     "temperature terms, CAMB spectrum or the shipped table) with the configured beam, white noise "
     "and mask, searched with identical settings; the false-alarm probability {false_alarm} holds over "
     "the whole radius range (standardised-maximum look-elsewhere correction) with the binomial error of {n_null} "
-    "skies; alpha_min is where the recovery of injected {injection} circles reaches {level:.0%}. "
+    "skies; alpha_min is, for each injected family ({injection}), where the one-sided {confidence:.0%} "
+    "exact binomial (Clopper & Pearson 1934) lower limit on its recovery reaches {level:.0%}; a bound "
+    "on a space whose family was not injected borrows the alpha_min of an injected one, an "
+    "assumption stated beside it. "
     "The injected and null skies contain only the listed temperature terms, no foregrounds and no "
     "correlated noise. Bounds assume the listed background cosmology. Any claim in a paper needs "
     "the user's own validation on their data, mask and instrument model."
@@ -102,5 +107,5 @@ def caution(plan, injection: str | None = None) -> str:
 
     return CAUTION.format(n_null=plan.significance["n_null"], terms="+".join(plan.instrument["terms"]).upper(),
                           false_alarm=f"{plan.false_alarm:g}",
-                          injection=injection or describe(plan.significance["injection_family"]),
-                          level=plan.efficiency_level)
+                          injection=injection or "; ".join(describe(f) for f in plan.significance["injection_families"]),
+                          level=plan.efficiency_level, confidence=plan.efficiency_confidence)

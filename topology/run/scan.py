@@ -21,8 +21,8 @@ from pathlib import Path
 import numpy as np
 
 from .. import significance as sig
-from ..errors import InputError
 from ..execution import Task
+from . import calibration
 from . import tasks as T
 from . import report_parts
 from .report_parts import Analysis, sky_figure
@@ -33,34 +33,61 @@ N_CANDIDATES = 10  # candidates per map in the summary and tables
 def build_tasks(plan) -> list[Task]:
     out = [Task(T.data_id(m.name), T.task_data, {"plan": plan, "name": m.name}) for m in plan.maps]
     out += [Task(T.null_id(i), T.task_null, {"plan": plan, "task_id": T.null_id(i)}) for i in range(plan.n_null)]
-    for r in plan.injection_radii_deg:
-        for j in range(plan.n_injections):
-            tid = T.injection_id(r, j)
-            out.append(Task(tid, T.task_injection, {"plan": plan, "radius_deg": float(r), "task_id": tid}))
+    for tid, family, r in calibration.injection_tasks(plan):
+        out.append(Task(tid, T.task_injection, {"plan": plan, "family": family, "radius_deg": r, "task_id": tid}))
     return out
 
 
+def map_candidates(res: dict, radii: np.ndarray, null: np.ndarray, whole_range: np.ndarray) -> list[dict]:
+    """The candidates of one searched map, ranked and tested on the score that decides detection:
+    S_eq = sqrt(1 - (1 - S^2)^f) (S_max per radius is S_eq). Each carries S, the kept fraction f
+    ("overlap"), S_eq, the local p at its radius (against the null S_max there) and the global p
+    (look-elsewhere: :func:`topology.significance.global_p_value` of a curve that is S_eq at its
+    radius and nothing elsewhere); ``above_threshold`` is S_eq above the whole-range threshold,
+    the test of ``detected``."""
+    # the pairs that define S_max (the best-ranked pair per radius and orientation), then the
+    # other reported pairs: the same statistic as the null skies', so their p-values are comparable
+    source = [e["best"] for e in res["s_max"] if e.get("best")]
+    seen = {_pair_key(c) for c in source}
+    source += [c for c in res.get("candidates", []) if _pair_key(c) not in seen]
+    cands = []
+    for c in source:
+        s_eq = c.get("S_eq", c["S"])  # a full-circle pair (no mask) has S_eq = S
+        if s_eq is None or not np.isfinite(s_eq):
+            continue
+        i = int(np.argmin(np.abs(radii - c["radius_deg"])))
+        curve = np.full(len(radii), -np.inf)
+        curve[i] = s_eq
+        p_local = float(sig.local_p_values(np.array([[s_eq]]), null[:, i:i + 1])[0, 0])
+        cands.append({k: c[k] for k in ("center_a", "center_b", "radius_deg", "twist_deg", "orientation", "S")}
+                     | {"overlap": float(c.get("overlap", 1.0)), "S_eq": float(s_eq),
+                        "p_value": sig.global_p_value(curve, null), "p_value_local": p_local,
+                        "above_threshold": bool(s_eq > whole_range[i])})
+    cands.sort(key=lambda c: (-c["S_eq"], c["p_value"]))
+    return cands[:N_CANDIDATES]
+
+
+def _pair_key(c: dict) -> tuple:
+    return (round(c["radius_deg"], 6), tuple(np.round(c["center_a"], 4)), tuple(np.round(c["center_b"], 4)),
+            c["orientation"])
+
+
 def analyse(plan, store) -> Analysis:
-    """Thresholds, p-values, efficiency, alpha_min and bounds from the stored task results."""
-    from ..bounds import bound_summary
-    from ..injection import describe
+    """Thresholds, p-values, efficiency and alpha_min per injected family, and bounds (each from
+    its own family's alpha_min or a stated borrowed one) from the stored task results."""
+    from ..errors import note
 
     radii = plan.radii_deg
     false_alarm, level = plan.false_alarm, plan.efficiency_level
     null = np.array([store.get(T.null_id(i))["s_max"] for i in range(plan.n_null)])
     null = np.where(np.isfinite(null), null, -1.0)
     thresholds = sig.thresholds(radii, null, false_alarm)
-
-    tolerance = float(plan.significance["radius_tolerance_deg"])
-    injection_radii = plan.injection_radii_deg
-    recovered = np.zeros((plan.n_injections, len(injection_radii)), dtype=bool)
-    for k, r in enumerate(injection_radii):
-        near = np.abs(radii - r) <= tolerance + 1e-9
-        for j in range(plan.n_injections):
-            s = np.asarray(store.get(T.injection_id(r, j))["s_max"])
-            recovered[j, k] = bool(np.any(s[near] > thresholds.whole_range[near]))
-    eff, eff_err = sig.efficiency(recovered)
-    amin = sig.alpha_min(injection_radii, eff, level)
+    families = calibration.family_efficiencies(plan, store, thresholds.whole_range)
+    for f in families:
+        if f["at_lowest_radius"]:
+            note(f"alpha_min of the injected {f['label']} is the lowest injected radius "
+                 f"({f['alpha_min_deg']:g} deg): the bound may be stronger; inject lower radii")
+    headline = families[0]["alpha_min_deg"]
 
     cosmo = plan.cosmology
     maps_out, map_values = [], {}
@@ -69,71 +96,36 @@ def analyse(plan, store) -> Analysis:
         smax = T.smax_by_radius(res, radii)
         smax_finite = np.where(np.isfinite(smax), smax, -1.0)
         is_detected = bool(np.any(smax_finite > thresholds.whole_range))
-        # the pairs that define S_max (the best-ranked pair per radius and orientation): the same
-        # statistic as the null skies', so their p-values are comparable
-        source = [e["best"] for e in res["s_max"] if e.get("best")] or res["candidates"]
-        cands = []
-        for c in source:
-            i = int(np.argmin(np.abs(radii - c["radius_deg"])))
-            curve = np.full(len(radii), -1.0)
-            curve[i] = c["S"]
-            p_local = float(sig.local_p_values(np.array([[c["S"]]]), null[:, i:i + 1])[0, 0])
-            cands.append({k: c[k] for k in ("center_a", "center_b", "radius_deg", "twist_deg", "orientation", "S")}
-                         | {"p_value": sig.global_p_value(curve, null), "p_value_local": p_local,
-                            "above_threshold": bool(c["S"] > thresholds.whole_range[i])})
-        cands.sort(key=lambda c: (not c["above_threshold"], c["p_value"], -c["S"]))
-        cands = cands[:N_CANDIDATES]
-        if is_detected or amin is None:
-            bounds = None
-        else:
-            bounds = bound_summary(amin, cosmo, p_max=int(plan.bounds["p_max"]), m_max=int(plan.bounds["m_max"]))
-            bounds["families"] = family_bounds(plan, amin, cosmo)
+        cands = map_candidates(res, radii, null, thresholds.whole_range)
+        bounds = None if is_detected else calibration.map_bounds(plan, families, cosmo)
         maps_out.append({
             "name": spec.name, "source": spec.path or "inline synthetic sky", "detected": is_detected,
             "candidates": cands, "false_alarm": false_alarm, "n_null": plan.n_null,
-            "alpha_min_deg": amin, "global_p_value": sig.global_p_value(smax_finite, null),
+            "alpha_min_deg": headline,
+            "alpha_min_by_family": {f["label"]: f["alpha_min_deg"] for f in families},
+            "global_p_value": sig.global_p_value(smax_finite, null),
             "s_max": [None if not np.isfinite(v) else float(v) for v in smax],
             "bounds": bounds,
             "predicted": res.get("predicted", []),
             "note": ("circles detected: no bound is derived from this map" if is_detected else
-                     ("the efficiency never reaches the level: no alpha_min, no bound" if amin is None else "")),
+                     ("no injected family reaches the efficiency level: no alpha_min, no bound" if bounds is None
+                      else "")),
         })
         map_values[spec.name] = res.get("map_values")
-    calibration = {
+    calibration_out = {
         "radii_deg": radii.tolist(), "threshold_whole_range": thresholds.whole_range.tolist(),
         "threshold_local": thresholds.local.tolist(), "local_level": thresholds.local_level,
         "z_threshold": thresholds.z_threshold, "measured_false_alarm": thresholds.measured_false_alarm,
         "measured_false_alarm_error": thresholds.measured_false_alarm_error,
-        "injection_radii_deg": injection_radii.tolist(), "efficiency": eff.tolist(), "efficiency_error": eff_err.tolist(),
-        "n_injections": plan.n_injections, "efficiency_level": level, "alpha_min_deg": amin,
-        "injection_family": plan.significance["injection_family"],
-        "injection": describe(plan.significance["injection_family"]),
+        "injection_radii_deg": plan.injection_radii_deg.tolist(), "n_injections": plan.n_injections,
+        "efficiency_level": level, "efficiency_confidence": plan.efficiency_confidence,
+        "efficiency_interval": (f"one-sided exact binomial (Clopper & Pearson 1934) limits at "
+                                f"{plan.efficiency_confidence:g} confidence; alpha_min needs the lower limit >= "
+                                f"{level:g}"),
+        "alpha_min_deg": headline,
+        "families": [{k: v for k, v in f.items() if k != "key"} | {"task_key": f["key"]} for f in families],
     }
-    return Analysis(maps_out, calibration, thresholds, null, map_values)
-
-
-def family_bounds(plan, amin: float, cosmo) -> list[dict]:
-    """Per configured family: excluded or not, and the scale / curvature bound."""
-    from ..bounds import bound_summary
-    from ..config import Config
-    from .plan import bound_families
-
-    cfg = Config({"bounds": {"families": plan.bounds["families"]}}, Path(plan.base_dir) / "run.toml")
-    out = []
-    for space, obs in bound_families(cfg, cosmo):
-        try:
-            b = bound_summary(amin, cosmo, space=space, observer=obs, p_max=2, m_max=2)
-        except InputError as e:
-            out.append({"family": space.family, "params": space.params, "error": str(e)})
-            continue
-        entry = {"family": space.family, "params": space.params}
-        if "configured" in b.get("flat", {}):
-            entry["flat"] = b["flat"]["configured"]
-        for key in ("spherical_configured", "hyperbolic"):
-            if b.get(key):
-                entry[key] = b[key]
-        out.append(entry)
-    return out
+    return Analysis(maps_out, calibration_out, thresholds, null, map_values)
 
 
 def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tuple[dict, dict]:
@@ -151,9 +143,9 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
     t = report.thresholds_table(radii, thresholds, null)
     t.write(staging / "thresholds.ecsv", format="ascii.ecsv")
     tables["thresholds"] = t
-    t = report.efficiency_table(plan.injection_radii_deg, np.array(calibration["efficiency"]),
-                                np.array(calibration["efficiency_error"]), calibration["n_injections"],
-                                calibration["efficiency_level"])
+    families = calibration["families"]
+    t = report.efficiency_table(families, plan.injection_radii_deg, calibration["efficiency_level"],
+                                calibration["efficiency_confidence"])
     t.write(staging / "efficiency.ecsv", format="ascii.ecsv")
     tables["efficiency"] = t
 
@@ -163,11 +155,8 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
         bt.write(staging / "bounds.ecsv", format="ascii.ecsv")
         ft = report.flat_bounds_table(first_bounds)
         ft.write(staging / "flat_bounds.ecsv", format="ascii.ecsv")
-        level_tex = format(calibration["efficiency_level"], ".0%").replace("%", r"\%")
-        cap_extra = (f" Circles of radius $\\alpha \\geq \\alpha_{{\\min}} = {first_bounds['alpha_min_deg']:.1f}^\\circ$ are "
-                     f"excluded at false-alarm probability {plan.false_alarm:g} with detection efficiency "
-                     f"$\\geq$ {level_tex}, calibrated on {plan.n_null} isotropic skies.")
-        (staging / "bounds.tex").write_text(report.bounds_latex(bt, ft, first_bounds, extra_caption=cap_extra))
+        (staging / "bounds.tex").write_text(report.bounds_latex(bt, ft, first_bounds,
+                                                                extra_caption=exclusion_caption(plan)))
         tables["bounds: flat spaces"] = ft
         tables["bounds: curved spaces"] = bt
         fig = report.figure_omega_k(staging / "omega_k", first_bounds)
@@ -187,10 +176,23 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
         if fig:
             figures[f"{name}: sky with best candidate circles"] = fig
     figures["detection efficiency"] = report.figure_efficiency(
-        staging / "efficiency", plan.injection_radii_deg, np.array(calibration["efficiency"]),
-        np.array(calibration["efficiency_error"]), calibration["efficiency_level"], calibration["alpha_min_deg"],
-        plan.false_alarm)
+        staging / "efficiency", families, plan.injection_radii_deg, calibration["efficiency_level"], plan.false_alarm,
+        calibration["efficiency_confidence"])
     return tables, figures
+
+
+def exclusion_caption(plan) -> str:
+    """The LaTeX caption sentence that says what "excluded" means: the exact lower limit of the
+    efficiency, not the recovered fraction, reaches the level."""
+    from ..report.latex import escape
+
+    level = escape(format(plan.efficiency_level, ".0%"))
+    conf = escape(format(plan.efficiency_confidence, ".0%"))
+    return (f" A radius $\\alpha \\geq \\alpha_{{\\min}}$ is excluded at false-alarm probability {plan.false_alarm:g} "
+            f"(calibrated on {plan.n_null} isotropic skies) when the one-sided {conf} lower limit on the detection "
+            f"efficiency of its injected family (exact binomial, Clopper \\& Pearson 1934; {plan.n_injections} "
+            f"injected skies per radius and family), not the recovered fraction, is at least {level} at that radius "
+            f"and every larger injected one.")
 
 
 def caution(plan) -> str:

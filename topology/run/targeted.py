@@ -15,9 +15,10 @@ predicted pairs at the best orientation of the space (and best observer position
   smoothing across radius, which has no meaning across targets).
 * Sensitivity: ``[significance] n_injections`` skies of each target space itself (random
   orientation, the configured observer position), observed like the data and searched for
-  that target: its efficiency is the fraction above its threshold.
+  that target: its efficiency is the fraction above its threshold, with one-sided exact
+  binomial limits (Clopper & Pearson 1934) at ``efficiency_confidence``.
 * Outcome per map and target: detected (S_comb above the threshold), or excluded (not detected
-  and the efficiency at least ``efficiency_level``), or not excluded. No alpha_min is derived in
+  and the lower limit of the efficiency at least ``efficiency_level``), or not excluded. No alpha_min is derived in
   this mode: a radius scan (antipodal or all-pairs) does that.
 """
 
@@ -161,7 +162,8 @@ def analyse(plan, store) -> Analysis:
     th = sig.thresholds(np.arange(len(targets)), null, fa, smooth=False)
     inj = np.array([[store.get(T.target_injection_id(k, j))["s_comb"] for k in range(len(targets))]
                     for j in range(n_inj)], dtype=float)
-    eff, eff_err = sig.efficiency(inj > th.whole_range[None, :])
+    e = sig.efficiency(inj > th.whole_range[None, :], plan.efficiency_confidence)
+    eff, eff_lo, eff_hi = e.fraction, e.lower, e.upper
 
     maps_out, map_values = [], {}
     for spec in plan.maps:
@@ -176,8 +178,10 @@ def analyse(plan, store) -> Analysis:
             rows.append({"target": name, "family": targets[k]["family"], "S_combined": float(s[k]),
                          "threshold": float(th.whole_range[k]), "threshold_local": float(th.local[k]),
                          "p_value": p_k, "p_value_local": float(p_local[k]), "detected": detected_k,
-                         "efficiency": float(eff[k]), "efficiency_error": float(eff_err[k]),
-                         "excluded": bool(not detected_k and eff[k] >= level),
+                         "efficiency": float(eff[k]), "efficiency_lower": float(eff_lo[k]),
+                         "efficiency_upper": float(eff_hi[k]),
+                         # excluded: the exact lower limit (Clopper & Pearson 1934), not the fraction
+                         "excluded": bool(not detected_k and eff_lo[k] >= level),
                          "n_pairs": res["targets"][k].get("n_pairs"),
                          "n_pairs_used": res["targets"][k].get("n_pairs_used"),
                          "best_euler_deg": res["targets"][k].get("best_euler_deg"),
@@ -193,14 +197,16 @@ def analyse(plan, store) -> Analysis:
             "candidates": cands, "false_alarm": fa, "n_null": n_null, "alpha_min_deg": None,
             "global_p_value": sig.global_p_value(s, null, smooth=False), "targets": rows, "bounds": None,
             "predicted": res.get("predicted", []),
-            "note": "targeted search: each target space is detected, excluded (not detected with efficiency >= "
-                    f"{level:.0%}) or not excluded; no alpha_min in this mode",
+            "note": "targeted search: each target space is detected, excluded (not detected, with the one-sided "
+                    f"{plan.efficiency_confidence:.0%} lower limit on its efficiency >= {level:.0%}) or not excluded; "
+                    "no alpha_min in this mode",
         })
         map_values[spec.name] = res.get("map_values")
     calib = {"targets": names, "threshold_whole_range": th.whole_range.tolist(), "threshold_local": th.local.tolist(),
              "z_threshold": th.z_threshold, "measured_false_alarm": th.measured_false_alarm,
              "measured_false_alarm_error": th.measured_false_alarm_error, "efficiency": eff.tolist(),
-             "efficiency_error": eff_err.tolist(), "n_injections": n_inj, "efficiency_level": level,
+             "efficiency_lower": eff_lo.tolist(), "efficiency_upper": eff_hi.tolist(), "n_injections": n_inj,
+             "efficiency_level": level, "efficiency_confidence": plan.efficiency_confidence,
              "alpha_min_deg": None}
     return Analysis(maps_out, calib, th, null, map_values, inj)
 
@@ -218,7 +224,9 @@ def latex(t, plan) -> str:
                r"fraction $f$ of the circles ($S_{\rm eq} = S$ on full circles); "
                f"thresholds at false-alarm probability {plan.false_alarm:g} over all targets, "
                f"from {plan.n_null} isotropic skies; efficiency from {plan.n_injections} skies of each space; a "
-               f"space is excluded when it is not detected and the efficiency is at least "
+               f"space is excluded when it is not detected and the one-sided "
+               f"{escape(format(plan.efficiency_confidence, '.0%'))} lower limit on its efficiency (exact binomial, "
+               f"Clopper \\& Pearson 1934), not the recovered fraction, is at least "
                f"{escape(format(plan.efficiency_level, '.0%'))}.")
     header = ["map", "space", r"$S_{\rm comb}$", r"$S_{\rm thr}$", "$p$", "efficiency", "outcome"]
     rows = [[cell(row["map"]), cell(row["target"]), cell(row["S_combined"], ".3f"), cell(row["S_threshold"], ".3f"),

@@ -3,7 +3,9 @@ each taking the whole :class:`~topology.run.plan.RunPlan`.
 
 * ``data/<name>``: search one data map (a FITS file or an inline synthetic sky);
 * ``null/<i>``: an isotropic sky with the data's spectrum, beam, noise and mask, searched alike;
-* ``inj/<radius>/<j>`` (radius scan) or ``inj/target<k>/<j>`` (targeted run): a sky of a
+* ``inj/<family>/<radius>/<j>`` (radius scan; ``<family>`` is
+  :func:`topology.injection.family_key`, the family and a digest of its spec, so a resumed run
+  never mixes the skies of two families) or ``inj/target<k>/<j>`` (targeted run): a sky of a
   multiply connected space, observed and searched alike.
 
 Task ids are made only by the functions below; every random draw of a task comes from the run
@@ -32,8 +34,9 @@ def null_id(index: int) -> str:
     return f"null/{index:05d}"
 
 
-def injection_id(radius_deg: float, index: int) -> str:
-    return f"inj/{radius_deg:g}/{index:04d}"
+def injection_id(family: str, radius_deg: float, index: int) -> str:
+    """Id of injected sky ``index`` of family ``family`` (:func:`topology.injection.family_key`)."""
+    return f"inj/{family}/{radius_deg:g}/{index:04d}"
 
 
 def target_injection_id(target: int, index: int) -> str:
@@ -185,8 +188,8 @@ def task_null(plan, task_id: str) -> dict:
     return {"s_max": smax_by_radius(res, plan.radii_deg), "seed": seed, "elapsed_s": res["elapsed_s"]}
 
 
-def task_injection(plan, radius_deg: float, task_id: str) -> dict:
-    """One injected sky (:mod:`topology.injection`): the configured family scaled so that its
+def task_injection(plan, family: int, radius_deg: float, task_id: str) -> dict:
+    """One injected sky (:mod:`topology.injection`): injected family number ``family`` scaled so that its
     largest circles have a radius drawn uniformly within half a search step of the nominal one
     (so the efficiency covers circles between the grid radii too), observed and searched."""
     from .. import injection
@@ -195,7 +198,7 @@ def task_injection(plan, radius_deg: float, task_id: str) -> dict:
     rng = np.random.default_rng(task_seed(plan.significance["seed"], task_id + "/geometry"))
     half = 0.5 * plan.radius_step_deg
     radius_true = float(np.clip(radius_deg + rng.uniform(-half, half), 0.5, 89.5))
-    space, observer, cosmo_inj = injection.scaled(plan.significance["injection_family"], radius_true, rng,
+    space, observer, cosmo_inj = injection.scaled(plan.significance["injection_families"][family], radius_true, rng,
                                                   run_cosmology(plan))
     m = simulate(plan, space, observer, cosmo_inj, seed)
     res = search_values(m, plan, task_id)
