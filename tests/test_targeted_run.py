@@ -54,7 +54,15 @@ def test_thresholds_are_the_null_quantiles_and_exclusion_follows_efficiency(targ
     th = summary["calibration"]
     assert th["efficiency"][0] >= 2 / 3  # skies of L(8,1) itself are recovered
     iso = summary["maps"][1]["targets"][0]
-    assert iso["excluded"] == (iso["efficiency"] >= 0.6)
+    # excluded needs the exact one-sided 95% lower limit, not the fraction, to reach the level
+    # check: Clopper & Pearson 1934, Biometrika 26, 404: B^-1(0.05; k, n - k + 1); 3 of 3 give
+    # 0.05^(1/3) = 0.368 < 0.6, so 3 skies can never exclude at 0.6
+    from scipy.stats import beta
+
+    k = round(iso["efficiency"] * 3)
+    assert iso["efficiency_lower"] == pytest.approx(0.0 if k == 0 else beta.ppf(0.05, k, 3 - k + 1))
+    assert beta.ppf(0.05, 3, 1) == pytest.approx(0.05 ** (1 / 3))
+    assert iso["excluded"] == (iso["efficiency_lower"] >= 0.6) and not iso["excluded"]
     for name in ("summary.json", "index.html", "bounds.tex", "thresholds.ecsv", "efficiency.ecsv",
                  "candidates.ecsv", "targets_lens.png", "sky_iso.png"):
         assert (out / name).is_file(), name

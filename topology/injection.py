@@ -67,7 +67,7 @@ def family_key(spec: dict) -> str:
             return [plain(x) for x in v]
         return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else v
 
-    digest = hashlib.sha256(json.dumps(plain(spec), sort_keys=True).encode()).hexdigest()[:8]
+    digest = hashlib.sha256(json.dumps(plain(spec), sort_keys=True, default=str).encode()).hexdigest()[:8]
     return f"{spec['family']}-{digest}"
 
 

@@ -44,10 +44,10 @@ def latex_table(header: list[str], rows: list[list[str]], caption: str, align: s
     head = " & ".join(header) + r" \\"
     body = [" & ".join(r) + r" \\" for r in rows]
     if long:
-        return "\n".join([r"\begingroup\small\setlength{\tabcolsep}{4pt}", rf"\begin{{longtable}}{{{align}}}", rf"\caption{{{caption}}}\\",
+        return "\n".join([r"\begingroup\small\setlength{\tabcolsep}{3pt}", rf"\begin{{longtable}}{{{align}}}", rf"\caption{{{caption}}}\\",
                           r"\toprule", head, r"\midrule", r"\endfirsthead", r"\toprule", head, r"\midrule",
                           r"\endhead", r"\bottomrule", r"\endlastfoot", *body, r"\end{longtable}", r"\endgroup", ""])
-    return "\n".join([r"\begin{table}[htbp]", r"\centering", r"\small\setlength{\tabcolsep}{4pt}", rf"\caption{{{caption}}}",
+    return "\n".join([r"\begin{table}[htbp]", r"\centering", r"\small\setlength{\tabcolsep}{3pt}", rf"\caption{{{caption}}}",
                       rf"\begin{{tabular}}{{{align}}}", r"\toprule", head, r"\midrule", *body, r"\bottomrule",
                       r"\end{tabular}", r"\end{table}", ""])
 
@@ -84,15 +84,13 @@ def source_tags(*tables) -> dict:
 
 
 def alpha_cell(row, tags: dict) -> str:
-    """The alpha_min of a bounds row with the letter of its injected family; a dagger marks a
-    borrowed alpha_min (an assumption)."""
-    if "alpha_min" not in row.colnames:
+    """The letter of the injected family whose alpha_min bounds a row (the caption gives its
+    value); a dagger marks a borrowed alpha_min (an assumption)."""
+    if "injected_family" not in row.colnames or row["injected_family"] is np.ma.masked:
         return "--"
-    a = row["alpha_min"]
-    label = row["injected_family"]
-    tag = tags.get(str(label), "") if label is not np.ma.masked else ""
+    tag = tags.get(str(row["injected_family"]), "")
     mark = r"$^\dagger$" if str(row["calibration"]) == "borrowed" else ""
-    return f"{cell(None if a is np.ma.masked else float(a), '.1f')} {tag}{mark}".strip()
+    return f"{tag}{mark}" or "--"
 
 
 def sources_caption(tags: dict, alpha_by_label: dict | None = None) -> str:
@@ -104,8 +102,7 @@ def sources_caption(tags: dict, alpha_by_label: dict | None = None) -> str:
         a = (alpha_by_label or {}).get(label, "?")
         a_tex = "not reached" if a is None else ("" if a == "?" else f"$\\alpha_{{\\min}} = {a:.1f}^\\circ$")
         parts.append(f"{tag} = injected {escape(label)}" + (f" ({a_tex})" if a_tex else ""))
-    return (" The $\\alpha_{\\min}$ column gives the radius each row is bounded with and the injected family it "
-            "comes from: " + "; ".join(parts) + ". A dagger ($^\\dagger$) marks a borrowed $\\alpha_{\\min}$: that "
+    return (" The $\\alpha_{\\min}$ column names the injected family whose $\\alpha_{\\min}$ bounds each row: " + "; ".join(parts) + ". A dagger ($^\\dagger$) marks a borrowed $\\alpha_{\\min}$: that "
             "space's own family was not injected, and its bound assumes that its circles are found as well as "
             "those of the named family, an assumption, not a measurement.")
 
@@ -138,24 +135,27 @@ def bounds_latex(curved, flat, summary: dict, extra_caption: str = "") -> str:
     configured ones with their verdicts), each row with its alpha_min and the injected family
     it comes from (lettered in the caption). Needs booktabs and longtable."""
     tags = source_tags(flat, curved)
+    order = list((summary.get("alpha_min_by_family") or {}).keys())  # letters in the injected order
+    tags = {label: _tag(i) for i, label in enumerate(sorted(tags, key=lambda k: order.index(k) if k in order
+                                                           else len(order)))}
     caption = bounds_caption(summary) + sources_caption(tags, summary.get("alpha_min_by_family")) + extra_caption
     quantity = {"shortest loop / (2 chi_rec)": r"$d_{\min}/2\chi_{\rm rec}$",
                 "inscribed radius R_i / chi_rec": r"$R_i/\chi_{\rm rec}$", "scale factor of the shape": "scale $s$"}
     flat_rows = [[escape(r["space"]), quantity.get(str(r["quantity"]), escape(r["quantity"])), cell(r["bound"], ".4f"),
                   cell(r["bound_mpc"] / 1000.0 if r["bound_mpc"] is not np.ma.masked else None, ".2f"),
                   alpha_cell(r, tags), cell(r["verdict"])] for r in flat]
-    flat_head = ["space", "quantity", "bound", "[Gpc]", r"$\alpha_{\min}$ [deg]", "verdict"]
+    flat_head = ["space", "quantity", "bound", "[Gpc]", r"$\alpha_{\min}$", "verdict"]
     keep = (lambda row: row) if tags else (lambda row: row[:-2] + row[-1:])  # one given alpha_min: no column
     flat_tex = latex_table(keep(flat_head), [keep(r) for r in flat_rows],
                            "Flat spaces: each quantity is larger than its bound (a configured shape is allowed "
                            "when scaled by more than $s$). " + caption, "llrr" + ("ll" if tags else "l"))
-    curved_rows = [[space_tex(r), cell(r["shortest_displacement"], ".4f"),
-                    cell(r["max_chi_rec_over_curvature_radius"], ".4f"), cell(r["omega_k_bound"], ".4f"),
+    curved_rows = [[space_tex(r), cell(r["shortest_displacement"], ".4f"), cell(r["omega_k_bound"], ".4f"),
                     cell(r["min_curvature_radius_mpc"] / 1000.0 if r["min_curvature_radius_mpc"] is not np.ma.masked
                          else None, ".1f"), alpha_cell(r, tags), cell(r["verdict"])] for r in curved]
-    header = ["space", r"$d_{\min}/R_c$", r"$\max \chi_{\rm rec}/R_c$", r"$\Omega_K$ bound",
-              r"$\min R_c$ [Gpc]", r"$\alpha_{\min}$ [deg]", "verdict"]
+    header = ["space", r"$d_{\min}/R_c$", r"$\Omega_K$ bound",
+              r"$\min R_c$ [Gpc]", r"$\alpha_{\min}$", "verdict"]
     curved_tex = latex_table(keep(header), [keep(r) for r in curved_rows],
-                             r"Curved spaces: $\Omega_K$ above the bound (spherical) or below it (hyperbolic). "
-                             + caption, "lrrrr" + ("ll" if tags else "l"), long=True)
+                             r"Curved spaces: $\Omega_K$ above the bound (spherical) or below it (hyperbolic); "
+                             r"bounds.ecsv also gives the largest allowed $\chi_{\rm rec}/R_c$. "
+                             + caption, "lrrr" + ("ll" if tags else "l"), long=True)
     return flat_tex + "\n" + curved_tex

@@ -169,10 +169,11 @@ def flat_bounds_table(summary: dict) -> Table:
     chi = summary["chi_rec_mpc"]
     cubic = f["cubic_torus_inscribed_radius_over_chi_rec"]
     rows = [{"space": "any flat space", "quantity": "shortest loop / (2 chi_rec)",
-             "bound": f["min_loop_over_lss_diameter"], "bound_mpc": f["min_loop_mpc"], "verdict": "bound",
+             "bound": f["min_loop_over_lss_diameter"], "bound_mpc": f["min_loop_mpc"],
+             "verdict": "bound" if f["min_loop_over_lss_diameter"] is not None else "no bound",
              **_source(sources.get("any flat space"), summary)},
             {"space": "cubic torus E1", "quantity": "inscribed radius R_i / chi_rec", "bound": cubic,
-             "bound_mpc": None if cubic is None else cubic * chi, "verdict": "bound",
+             "bound_mpc": None if cubic is None else cubic * chi, "verdict": "bound" if cubic is not None else "no bound",
              **_source(sources.get("cubic torus E1"), summary)}]
     configured = ([(f["configured"], None)] if "configured" in f else []) + [
         (e["flat"], e.get("source")) for e in summary.get("families", []) if "flat" in e]
@@ -207,7 +208,8 @@ def bounds_table(summary: dict) -> Table:
         rows.append(dict(r, geometry="spherical",
                          space=space_label(r["family"], {k: r[k] for k in ("p", "q", "m") if k in r}),
                          isometric_q=" ".join(str(q) for q in iso) if iso else None,
-                         omega_k_bound=r["min_omega_k"], verdict="bound", **_source(r.get("source"), summary)))
+                         omega_k_bound=r["min_omega_k"], **_source(r.get("source"), summary),
+                         verdict="no bound" if r.get("source") and r["source"]["alpha_min_deg"] is None else "bound"))
     configured = [(summary[k], None, k) for k in ("spherical_configured", "hyperbolic") if k in summary]
     configured += [(e[k], e.get("source"), k) for e in summary.get("families", [])
                    for k in ("spherical_configured", "hyperbolic") if k in e]
@@ -241,7 +243,8 @@ def bounds_table(summary: dict) -> Table:
         _column(rows, "min_curvature_radius_mpc", "rc_mpc", float, u.Mpc,
                 "R_c = (c/H0)/sqrt(|Omega_K|) at the Omega_K bound"),
         _column(rows, "verdict", "verdict", "U12",
-                desc="bound (a family's limit) or, for a configured space, excluded / allowed / not tested "
+                desc="bound (a family's limit; no bound: its injected family never reaches the efficiency level) "
+                     "or, for a configured space, excluded / allowed / not tested "
                      "(not tested: the background has another curvature, or its injected family never reaches "
                      "the efficiency level)"),
         *_source_columns(rows),

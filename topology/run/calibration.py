@@ -21,6 +21,7 @@ one, and says so (``calibration = "borrowed"`` and the assumption in words):
 from __future__ import annotations
 
 import copy
+import math
 
 import numpy as np
 
@@ -193,7 +194,7 @@ def configured_bounds(plan, families: list[dict], cosmo) -> list[dict]:
     spaces = bound_families(cfg, cosmo)
     cache: dict = {}
     out = []
-    for i, (space, _) in enumerate(spaces):
+    for i, (space, obs) in enumerate(spaces):
         src = source_for(families, injection.pair_kind(space), space.geometry, own=space.family)
         a = src["alpha_min_deg"]
         if a is None:
@@ -206,5 +207,34 @@ def configured_bounds(plan, families: list[dict], cosmo) -> list[dict]:
                 cache[a] = family_bounds(plan, a, cosmo)
             entry = copy.deepcopy(cache[a][i])
         entry["source"] = src
+        if space.geometry == "flat":
+            back_to_back_verdict(entry, space, obs, families)
         out.append(entry)
     return out
+
+
+def back_to_back_verdict(entry: dict, space, observer, families: list[dict]) -> None:
+    """A flat space whose own family was not excluded may still be excluded by its back-to-back
+    pairs alone (pure translations look the same in any family): when one of them has a radius
+    >= the alpha_min of an injected back-to-back flat family, the verdict is excluded, borrowed
+    from that family and said so."""
+    from ..circles import predict_circles
+
+    flat = entry.get("flat", {})
+    if flat.get("excluded"):
+        return
+    src = source_for(families, injection.BACK_TO_BACK, "flat", own="E1")
+    if src["alpha_min_deg"] is None:
+        return
+    radii = [math.degrees(p.radius) for p in predict_circles(space, observer, 1.0)
+             if float(p.center_a @ p.center_b) < -1.0 + 1e-6]
+    if radii and max(radii) >= src["alpha_min_deg"]:
+        flat.pop("note", None)
+        entry.pop("note", None)
+        flat["excluded"] = True
+        flat["excluded_by"] = (f"back-to-back pairs of radius {max(radii):.1f} deg >= alpha_min "
+                               f"{src['alpha_min_deg']:g} deg of the injected {src['injected_family']}")
+        entry["flat"] = flat
+        entry["source"] = src | {"calibration": BORROWED,
+                                 "assumption": f"excluded by its back-to-back pairs alone, assumed found as well as "
+                                               f"those of the injected {src['injected_family']}"}
