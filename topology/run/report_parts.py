@@ -40,9 +40,11 @@ def candidate_circles(cands, n=6, *, detected=True):
         if "S" not in c:
             return f"predicted: radius {c['radius_deg']:.1f} deg"
         kind = "detected" if c.get("above_threshold") and detected else "best candidate (not significant)"
-        score = c.get("S_eq", c["S"])
-        s = (f"S_eq = {score:.2f}" + (f" (S = {c['S']:.2f}, f = {c['overlap']:.2f})" if "overlap" in c else "")
-             if score is not None and math.isfinite(score) else "S not measured")
+        score = c.get("S_eq")
+        if score is not None and math.isfinite(score) and "overlap" in c:  # ranked and tested on S_eq
+            s = f"S_eq = {score:.2f} (S = {c['S']:.2f}, f = {c['overlap']:.2f})"
+        else:
+            s = f"S = {c['S']:.2f}" if c["S"] is not None and math.isfinite(c["S"]) else "S not measured"
         return f"{kind}: radius {c['radius_deg']:.1f} deg, {s}"
 
     return [SimpleNamespace(center_a=lonlat_to_vec(*c["center_a"]), center_b=lonlat_to_vec(*c["center_b"]),
