@@ -105,7 +105,7 @@ def figure_efficiency(base: Path, families: list[dict], radii_deg, level: float,
     plt = pyplot()
     fig, ax = plt.subplots(figsize=(7.5, 4.2))
     r = np.asarray(radii_deg, float)
-    step = 0.15 * (np.min(np.diff(r)) if r.size > 1 else 1.0)
+    step = min(0.15 * (np.min(np.diff(r)) if r.size > 1 else 1.0), 0.4)  # degrees between families
     for i, f in enumerate(families):
         colour = CIRCLE_COLOURS[i % len(CIRCLE_COLOURS)] if i else "C0"
         x = r + (i - 0.5 * (len(families) - 1)) * step  # side by side, not over each other

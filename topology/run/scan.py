@@ -64,7 +64,12 @@ def map_candidates(res: dict, radii: np.ndarray, null: np.ndarray, whole_range: 
                         "p_value": sig.global_p_value(curve, null), "p_value_local": p_local,
                         "above_threshold": bool(s_eq > whole_range[i])})
     cands.sort(key=lambda c: (-c["S_eq"], c["p_value"]))
-    return cands[:N_CANDIDATES]
+    # every candidate above threshold is kept (so that a detected map lists its detection, even
+    # one at a radius of high threshold), then the best others; the list stays ranked by S_eq
+    above = [c for c in cands if c["above_threshold"]]
+    others = [c for c in cands if not c["above_threshold"]]
+    keep = {id(c) for c in above} | {id(c) for c in others[:max(0, N_CANDIDATES - len(above))]}
+    return [c for c in cands if id(c) in keep]
 
 
 def _pair_key(c: dict) -> tuple:
