@@ -4,14 +4,18 @@
 2. ``null/<i>``: isotropic skies searched with identical settings; their S_max per radius
    calibrate the thresholds (:mod:`topology.significance`: per radius and over the whole radius
    range, standardised-maximum look-elsewhere correction) and the candidates' p-values;
-3. ``inj/<radius>/<j>``: multiply connected skies with circles of known radius (default: a cubic
-   torus E1 of side 2 chi_rec cos(alpha), randomly oriented, which has three back-to-back pairs
-   of radius alpha, with alpha drawn uniformly within half a search step of the nominal radius),
-   observed and searched like the data; an injection is recovered when S_max within the radius
-   tolerance (default one search step) of the nominal radius exceeds the whole-range threshold.
-   The efficiency per radius gives alpha_min, the smallest radius above which it stays >= the
-   configured level;
-4. bounds from alpha_min (:mod:`topology.bounds`) for every map without a detection.
+3. ``inj/<family>/<radius>/<j>``: for each injected family (:mod:`topology.run.calibration`;
+   default a cubic torus E1, whose pairs are back to back, and a half-turn space E2 seen off its
+   axis, whose largest pairs are not), skies scaled so that the largest circles have a radius
+   drawn uniformly within half a search step of the nominal one, observed and searched like the
+   data; an injection is recovered when S_max within the radius tolerance (default one search
+   step) of the nominal radius exceeds the whole-range threshold. Per family, alpha_min is the
+   smallest radius from which the one-sided exact binomial lower limit on the efficiency
+   (Clopper & Pearson 1934) stays >= the configured level;
+4. bounds (:mod:`topology.bounds`) for every map without a detection, each from the alpha_min of
+   its own injected family or a borrowed one, said beside it.
+
+Candidates are ranked and tested on S_eq, the score of S_max (:func:`map_candidates`).
 """
 
 from __future__ import annotations
