@@ -355,15 +355,16 @@ def injection_families(cfg: Config) -> list[dict]:
 def check_reachable(n_injections: int, level: float, confidence: float) -> None:
     """A note when ``n_injections`` per radius can never give a lower limit >= ``level`` (then no
     alpha_min and no bound can come out): n of n recovered gives (1 - c)^(1/n) (Clopper & Pearson
-    1934). A note, not an error, so that quick trial runs still go through."""
+    1934). A warning (one line when the command ends; dropped after an error, whose one line
+    says what matters), not an error, so that quick trial runs still go through."""
     best = sig.best_lower_limit(n_injections, confidence)
     if best < level:
-        from ..errors import note
+        import warnings
 
         need = sig.injections_needed(level, confidence)
-        note(f"[significance] n_injections = {n_injections} per radius can give an efficiency lower limit of at most "
+        warnings.warn(f"[significance] n_injections = {n_injections} per radius can give an efficiency lower limit of at most "
              f"{best:.3f} ({confidence:g} one-sided, all recovered), below efficiency_level = {level:g}: no alpha_min "
-             f"and no bound can come out; give n_injections >= {need}")
+             f"and no bound can come out; give n_injections >= {need}", stacklevel=2)
 
 
 def _check_map_resolution(maps: list[MapSpec], nside_work: int) -> None:

@@ -84,7 +84,7 @@ def _pair_key(c: dict) -> tuple:
 def analyse(plan, store) -> Analysis:
     """Thresholds, p-values, efficiency and alpha_min per injected family, and bounds (each from
     its own family's alpha_min or a stated borrowed one) from the stored task results."""
-    from ..errors import note
+    import warnings
 
     radii = plan.radii_deg
     false_alarm, level = plan.false_alarm, plan.efficiency_level
@@ -94,8 +94,8 @@ def analyse(plan, store) -> Analysis:
     families = calibration.family_efficiencies(plan, store, thresholds.whole_range)
     for f in families:
         if f["at_lowest_radius"]:
-            note(f"alpha_min of the injected {f['label']} is the lowest injected radius "
-                 f"({f['alpha_min_deg']:g} deg): the bound may be stronger; inject lower radii")
+            warnings.warn(f"alpha_min of the injected {f['label']} is the lowest injected radius "
+                          f"({f['alpha_min_deg']:g} deg): the bound may be stronger; inject lower radii", stacklevel=2)
     headline = families[0]["alpha_min_deg"]
 
     cosmo = plan.cosmology
