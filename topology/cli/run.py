@@ -36,7 +36,7 @@ def headline(m: dict) -> str:
     amin = ", ".join(f"{k} {'none' if a is None else f'{a:.1f} deg'}" for k, a in by_family.items())
     b = m["bounds"]
     if b is None:
-        return f"{m['name']}: no detection; alpha_min: {amin}: no injected family reaches the level, so no bound"
+        return f"{m['name']}: no detection; alpha_min: {amin}; {m.get('note') or 'no bound'}"
     parts = []
     cubic = b["flat"]["cubic_torus_inscribed_radius_over_chi_rec"]
     if cubic is not None:
@@ -47,6 +47,8 @@ def headline(m: dict) -> str:
         parts.append(f"dodecahedral space: R_c > {dodec['min_curvature_radius_over_chi_rec']:.3f} chi_rec (Omega_K > "
                      f"{dodec['min_omega_k']:.4f}" + (f", alpha_min borrowed from {src['injected_family']}"
                                                       if src and src["calibration"] == "borrowed" else "") + ")")
+    if m.get("note"):
+        parts.append(m["note"])
     return f"{m['name']}: no detection; alpha_min: {amin}" + "".join(f"; {p}" for p in parts)
 
 

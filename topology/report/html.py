@@ -47,7 +47,8 @@ def write_index(folder: Path, summary: dict, tables: dict[str, Table], figures: 
         else:
             amin = f"alpha_min = {deg(m['alpha_min_deg'])}"
         parts.append(f"<li><b>{html.escape(m['name'])}</b>: {'DETECTED' if m['detected'] else 'no detection'}; "
-                     f"{amin}; global p-value of the best candidate = {m.get('global_p_value', float('nan')):.3g}</li>")
+                     f"{amin}; global p-value of the best candidate = {m.get('global_p_value', float('nan')):.3g}"
+                     + (f"<br><i>{html.escape(m['note'])}</i>" if m.get("note") else "") + "</li>")
     parts.append("</ul>")
     for key, names in figures.items():
         png = [n for n in names if n.endswith(".png")]

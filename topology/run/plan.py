@@ -312,8 +312,6 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
             except InputError as e:
                 where = (e.where or "").replace(injection.WHERE, f"{injection.WHERE} #{k + 1}")
                 raise InputError(e.reason, where) from None
-    check_reachable(int(significance["n_injections"]), float(significance["efficiency_level"]),
-                    float(significance["efficiency_confidence"]))
     if significance["radius_tolerance_deg"] is None:
         significance["radius_tolerance_deg"] = float(np.min(np.diff(radii))) if radii.size > 1 else 1.0
 
@@ -352,19 +350,18 @@ def injection_families(cfg: Config) -> list[dict]:
     return injection.injection_specs(cfg.get("significance", "injection_families"))
 
 
-def check_reachable(n_injections: int, level: float, confidence: float) -> None:
-    """A note when ``n_injections`` per radius can never give a lower limit >= ``level`` (then no
-    alpha_min and no bound can come out): n of n recovered gives (1 - c)^(1/n) (Clopper & Pearson
-    1934). A warning (one line when the command ends; dropped after an error, whose one line
-    says what matters), not an error, so that quick trial runs still go through."""
+def reachable_note(n_injections: int, level: float, confidence: float) -> str | None:
+    """What to say when ``n_injections`` per radius can never give a lower limit >= ``level``
+    (then no alpha_min and no bound can come out): n of n recovered gives (1 - c)^(1/n) (Clopper
+    & Pearson 1934). Said in the summary, the report and the command's closing lines, not as an
+    error, so that quick trial runs still go through."""
     best = sig.best_lower_limit(n_injections, confidence)
-    if best < level:
-        import warnings
-
-        need = sig.injections_needed(level, confidence)
-        warnings.warn(f"[significance] n_injections = {n_injections} per radius can give an efficiency lower limit of at most "
-             f"{best:.3f} ({confidence:g} one-sided, all recovered), below efficiency_level = {level:g}: no alpha_min "
-             f"and no bound can come out; give n_injections >= {need}", stacklevel=2)
+    if best >= level:
+        return None
+    need = sig.injections_needed(level, confidence)
+    return (f"[significance] n_injections = {n_injections} per radius can give an efficiency lower limit of at most "
+            f"{best:.3f} ({confidence:g} one-sided, all recovered), below efficiency_level = {level:g}: no alpha_min "
+            f"and no bound can come out; give n_injections >= {need}")
 
 
 def _check_map_resolution(maps: list[MapSpec], nside_work: int) -> None:

@@ -84,7 +84,7 @@ def _pair_key(c: dict) -> tuple:
 def analyse(plan, store) -> Analysis:
     """Thresholds, p-values, efficiency and alpha_min per injected family, and bounds (each from
     its own family's alpha_min or a stated borrowed one) from the stored task results."""
-    import warnings
+    from .plan import reachable_note
 
     radii = plan.radii_deg
     false_alarm, level = plan.false_alarm, plan.efficiency_level
@@ -92,10 +92,9 @@ def analyse(plan, store) -> Analysis:
     null = np.where(np.isfinite(null), null, -1.0)
     thresholds = sig.thresholds(radii, null, false_alarm)
     families = calibration.family_efficiencies(plan, store, thresholds.whole_range)
-    for f in families:
-        if f["at_lowest_radius"]:
-            warnings.warn(f"alpha_min of the injected {f['label']} is the lowest injected radius "
-                          f"({f['alpha_min_deg']:g} deg): the bound may be stronger; inject lower radii", stacklevel=2)
+    notes = [n for n in [reachable_note(plan.n_injections, level, plan.efficiency_confidence)] if n]
+    notes += [f"alpha_min of the injected {f['label']} is the lowest injected radius ({f['alpha_min_deg']:g} deg): "
+              "the bound may be stronger; inject lower radii" for f in families if f["at_lowest_radius"]]
     headline = families[0]["alpha_min_deg"]
 
     cosmo = plan.cosmology
@@ -116,9 +115,9 @@ def analyse(plan, store) -> Analysis:
             "s_max": [None if not np.isfinite(v) else float(v) for v in smax],
             "bounds": bounds,
             "predicted": res.get("predicted", []),
-            "note": ("circles detected: no bound is derived from this map" if is_detected else
-                     ("no injected family reaches the efficiency level: no alpha_min, no bound" if bounds is None
-                      else "")),
+            "note": "; ".join(["circles detected: no bound is derived from this map" if is_detected else
+                               ("no injected family reaches the efficiency level: no alpha_min, no bound"
+                                if bounds is None else "")] + ([] if is_detected else notes)).strip("; "),
         })
         map_values[spec.name] = res.get("map_values")
     calibration_out = {
@@ -131,7 +130,7 @@ def analyse(plan, store) -> Analysis:
         "efficiency_interval": (f"one-sided exact binomial (Clopper & Pearson 1934) limits at "
                                 f"{plan.efficiency_confidence:g} confidence; alpha_min needs the lower limit >= "
                                 f"{level:g}"),
-        "alpha_min_deg": headline,
+        "alpha_min_deg": headline, "notes": notes,
         "families": [{k: v for k, v in f.items() if k != "key"} | {"task_key": f["key"]} for f in families],
     }
     return Analysis(maps_out, calibration_out, thresholds, null, map_values)
