@@ -124,6 +124,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "level_smoothing": Key(NUMBER, 1.2, "coarse levels smooth to max(FWHM, this * grid step)", _positive),
         "n_keep": Key((int,), 64, "candidates per radius and orientation kept between levels", _positive),
         "n_pool": Key((int,), 8, "all-pairs: n_pool * n_keep best coarse pairs before removing neighbours", _positive),
+        "n_partners": Key((int,), 2, "all-pairs on a cut sky: best partners of every coarse centre passed on", _positive),
         "n_report": Key((int,), 3, "candidates per radius and orientation in the output", _positive),
         "n_candidates": Key((int,), 20, "best candidates overall in the output", _positive),
         "min_kept": Key(NUMBER, 0.5, "circles with a smaller unmasked fraction are skipped (and counted)", _positive),

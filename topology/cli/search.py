@@ -134,12 +134,14 @@ def _run(args):
         t = out["targeted"]
         print(f"family {t.get('family')}: best S_combined = {t.get('S_combined')} at Euler angles {t.get('best_euler_deg')} deg")
     if out["candidates"]:
-        print(f"{'S':>7} {'radius':>8} {'centre A (lon, lat)':>22} {'centre B (lon, lat)':>22} {'twist':>8} {'orient.':>9}")
+        print("ranked by S_eq, the full-circle S of the same chance probability (S over a kept fraction f)")
+        print(f"{'S_eq':>7} {'S':>7} {'f':>5} {'radius':>8} {'centre A (lon, lat)':>22} {'centre B (lon, lat)':>22} "
+              f"{'twist':>8} {'orient.':>9}")
         for c in out["candidates"]:
             a = "({:7.2f}, {:6.2f})".format(*c["center_a"])
             b = "({:7.2f}, {:6.2f})".format(*c["center_b"])
-            sv = "   n/a" if c["S"] is None else f"{c['S']:7.3f}"
-            print(f"{sv} {c['radius_deg']:7.2f}d {a:>22} {b:>22} {c['twist_deg']:7.2f}d {c['orientation']:>9}")
+            seq, sv, f = (("   n/a" if c.get(k) is None else f"{c[k]:7.3f}") for k in ("S_eq", "S", "overlap"))
+            print(f"{seq} {sv} {f[-5:]} {c['radius_deg']:7.2f}d {a:>22} {b:>22} {c['twist_deg']:7.2f}d {c['orientation']:>9}")
     else:
         print("no candidate pairs")
     if args.plot:

@@ -65,6 +65,7 @@ class SearchSettings:
     level_smoothing: float = _default("level_smoothing")
     n_keep: int = _default("n_keep")
     n_pool: int = _default("n_pool")
+    n_partners: int = _default("n_partners")
     n_report: int = _default("n_report")
     n_candidates: int = _default("n_candidates")
     min_kept: float = _default("min_kept")
@@ -123,7 +124,7 @@ def validate(s: SearchSettings) -> SearchSettings:
         v = getattr(s, name)
         if not 0 < v <= 1:
             raise InputError(f"must lie in (0, 1], got {v}", f"[search] {name}")
-    for name in ("n_keep", "n_pool", "n_report", "n_candidates", "kernel_mem_mb"):
+    for name in ("n_keep", "n_pool", "n_partners", "n_report", "n_candidates", "kernel_mem_mb"):
         if int(getattr(s, name)) < 1:
             raise InputError(f"must be at least 1, got {getattr(s, name)}", f"[search] {name}")
     if s.twist_oversample < 1:

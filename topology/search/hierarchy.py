@@ -98,34 +98,74 @@ def neighbours(nside: int, vec: np.ndarray, radius: float) -> np.ndarray:
     return pix
 
 
+def _children_combinations(lv: Level, prev: Level, cands: Candidates, antipodal: bool):
+    """Pixel pairs (pa, pb, orientation) of ``lv`` inside each candidate's pixels of ``prev``
+    (pb -1 for antipodal), for all candidates at once."""
+    import healpy as hp
+
+    ratio = lv.nside // prev.nside
+    sub = np.arange(ratio * ratio)
+
+    def kids(vecs):  # (k, 3) -> (k, ratio^2) RING pixels of lv
+        nest = hp.ring2nest(prev.nside, hp.vec2pix(prev.nside, *vecs.T))
+        return hp.nest2ring(lv.nside, nest[:, None] * ratio * ratio + sub[None, :])
+
+    ka = kids(cands.center_a)
+    o = np.asarray(cands.orientation)
+    if antipodal:
+        return ka.ravel(), np.full(ka.size, -1), np.repeat(o, ka.shape[1])
+    kb = kids(cands.center_b)
+    n = ka.shape[1]
+    pa = np.repeat(ka, n, axis=1).ravel()  # every child of A with every child of B
+    pb = np.tile(kb, (1, n)).ravel()
+    return pa, pb, np.repeat(o, n * n)
+
+
+def _neighbour_combinations(lv: Level, prev: Level | None, reach: float, cands: Candidates, antipodal: bool):
+    """Pixel pairs (pa, pb, orientation) of ``lv`` within ``reach`` of each candidate's centres
+    (the nearest pixel only when ``prev`` is None; pb -1 for antipodal)."""
+    import healpy as hp
+
+    pix_a, pix_b, ori = [], [], []
+
+    def near(v):
+        if prev is None:
+            return np.array([hp.vec2pix(lv.nside, *v)])
+        return neighbours(lv.nside, v, reach)
+
+    for a, b, o in zip(cands.center_a, cands.center_b, cands.orientation):
+        na = near(a)
+        if antipodal:
+            pix_a.append(na)
+            pix_b.append(np.full(na.size, -1))
+            ori.append(np.full(na.size, o))
+            continue
+        nb = near(b)
+        ga, gb = np.meshgrid(na, nb, indexing="ij")
+        pix_a.append(ga.ravel())
+        pix_b.append(gb.ravel())
+        ori.append(np.full(ga.size, o))
+    return np.concatenate(pix_a), np.concatenate(pix_b), np.concatenate(ori)
+
+
 def refine(ctx: SearchContext, lv: Level, prev: Level | None, radius: float, cands: Candidates, work: dict,
-           n_keep: int, antipodal: bool) -> Candidates:
+           n_keep: int, antipodal: bool, inside: bool = False, last: bool = True) -> Candidates:
     """Evaluate every grid-``lv`` combination around each candidate (its centres' neighbours within
-    ``prev``'s step; with ``prev`` None, the nearest grid centres only) with the exact S and keep
-    the ``n_keep`` best distinct pairs per orientation, plus up to ``n_keep // 2`` pairs with a
-    cut circle. ``antipodal``: circle B's centre is always -A's."""
+    ``prev``'s step; with ``inside``, only the pixels of ``lv`` inside each centre's pixel of
+    ``prev``; with ``prev`` None, the nearest grid centres only) with the exact S and keep the
+    ``n_keep`` best distinct pairs per orientation, plus up to ``n_keep // 2`` pairs with a cut
+    circle. ``antipodal``: circle B's centre is always -A's. Before the ``last`` level the masked S
+    is computed in single precision (to about 1e-6; it only ranks pairs there)."""
     import healpy as hp
 
     s = ctx.settings
     if len(cands) == 0:  # nothing to refine: no candidates (not an error)
         return Candidates.empty()
     reach = prev.step if prev is not None else 0.0
-    pix_a, pix_b, ori = [], [], []
-    for a, b, o in zip(cands.center_a, cands.center_b, cands.orientation):
-        na = neighbours(lv.nside, a, reach) if prev is not None else np.array([hp.vec2pix(lv.nside, *a)])
-        if antipodal:
-            pix_a.append(na)
-            pix_b.append(np.full(na.size, -1))
-            ori.append(np.full(na.size, o))
-            continue
-        nb = neighbours(lv.nside, b, reach) if prev is not None else np.array([hp.vec2pix(lv.nside, *b)])
-        ga, gb = np.meshgrid(na, nb, indexing="ij")
-        pix_a.append(ga.ravel())
-        pix_b.append(gb.ravel())
-        ori.append(np.full(ga.size, o))
-    pa = np.concatenate(pix_a)
-    pb = np.concatenate(pix_b)
-    po = np.concatenate(ori)
+    if inside and prev is not None:
+        pa, pb, po = _children_combinations(lv, prev, cands, antipodal)
+    else:
+        pa, pb, po = _neighbour_combinations(lv, prev, reach, cands, antipodal)
     # unique combinations; all-pairs stores the unordered pair once (smaller index first)
     if not antipodal:
         lo, hi = np.minimum(pa, pb), np.maximum(pa, pb)
@@ -151,7 +191,8 @@ def refine(ctx: SearchContext, lv: Level, prev: Level | None, radius: float, can
         sep_cos = np.einsum("ij,ij->i", centers[ia], centers[ib])
         ok &= sep_cos < math.cos(np.radians(s.min_separation_deg))
     ia, ib, po = ia[ok], ib[ok], po[ok]
-    sv, tw, fr = st.best_twist(circ, circ, ia, ib, m_cut, s.min_overlap, with_overlap=True, orient=po)
+    sv, tw, fr = st.best_twist(circ, circ, ia, ib, m_cut, s.min_overlap, with_overlap=True, orient=po,
+                               single=not last)
     r = np.arange(ia.size)
     s_val = sv[r, po]
     twist = tw[r, po]

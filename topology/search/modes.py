@@ -6,27 +6,27 @@ tasks (radii, or observer positions for ``targeted``), runs one task at a time
 so that an interrupted search resumes) and summarises the task results. Task results are plain
 JSON-able dicts.
 
-Antipodal and all-pairs search each radius on a coarse centre grid of their own (every pair c,
--c; the blocked all-pairs kernel of :mod:`.allpairs`, which on a masked map only filters: its
-best POOL_SHARE of all pairs are re-scored with the exact masked S), then refine the best pairs
-level by level (:mod:`.hierarchy`). Targeted scans the orientations of one family's predicted
-pairs (:mod:`.targeted`).
+Antipodal and all-pairs search each radius on a coarse centre grid of their own, then refine
+the pairs it passes on level by level (:mod:`.hierarchy`). Full sky: every antipodal pair c, -c
+(antipodal), or the blocked harmonic kernel of :mod:`.allpairs` over all pairs (all-pairs); the
+``n_keep`` best distinct pairs go on. Cut sky: every antipodal pair (antipodal), or the best
+``n_partners`` partners of every centre by the masked S_eq (allpairs.masked_partners), go on,
+and the first refinement evaluates the finer pixels inside their coarse pixels before keeping
+the ``n_keep`` best: on a cut sky a true pair over a short overlap ranks first among the
+partners of its own centres but below thousands of chance pairs of the sky at the coarse
+smoothing and centre offsets. Targeted scans the orientations of one family's predicted pairs
+(:mod:`.targeted`). Every list of candidates is ordered by the ranking score S_eq
+(statistic.rank_score), S and the jointly kept fraction ("overlap") kept as fields.
 
-What the refinement can miss (measured in benchmarks/SEARCH_VALIDATION.md):
+What the search can miss (measured in benchmarks/SEARCH_VALIDATION.md, pinned by
+tests/test_search_skies.py):
 
-(1) a pair whose coarse score is not among the ``n_keep`` best distinct pairs at its radius. On
-    the masked, noisy Sachs-Wolfe skies of tests/test_search_skies.py all-pairs misses E2 39.7,
-    E3 62.7, E7 62.2 and E7 22.2 deg (``COARSE_MISSES``: test_masked_noisy_sw_skies fails on any
-    other miss), a resolution limit of the coarse grid, not of the filter or the ranking;
-    tests/test_search_modes.py test_what_refinement_misses shows that the coarse-level smoothing
-    is what puts a true pair among the best coarse pairs;
+(1) pairs whose circles keep less than half of their points, or whose jointly kept fraction at
+    the matching phases is below ``min_overlap``: their masked S is not defined or not searched;
 (2) pairs whose centres are closer than ``min_separation_deg`` (test_what_refinement_misses);
-(3) pairs with fewer than ``min_overlap`` of the samples jointly kept at the matching phases:
-    their masked S is not defined.
-
-The antipodal mode has no such coarse limit on those skies: every antipodal pair with more than
-half of each circle unmasked and at least min_overlap jointly kept is found
-(test_masked_noisy_sw_skies).
+(3) weak pairs at the sensitivity limit: on the validation set (flat E1-E10 and spherical spaces
+    with generic observers, |b| < 15-20 deg cuts or point-source holes) the figures of
+    benchmarks/SEARCH_VALIDATION.md.
 """
 
 from __future__ import annotations
@@ -35,7 +35,7 @@ import numpy as np
 
 from . import statistic as st
 from . import targeted as tg
-from .allpairs import POOL_SHARE, allpairs_top, twist_count
+from .allpairs import allpairs_top, masked_partners, twist_count
 from .context import Level, SearchContext, add_work, candidate_record, centre_levels, new_work, total_work
 from .hierarchy import Candidates, distinct, pair_levels, peak_reach, refine
 from .sampling import CircleSet, centre_grid, sample_circles
@@ -101,10 +101,14 @@ class PairMode(Mode):
                      "kept": len(cands)})
         if len(cands) == 0:
             return nothing()
+        # many coarse candidates (the best partners of every centre on a cut sky): the first
+        # refinement evaluates only the finer pixels inside each candidate's coarse pixels
+        inside = len(cands) > 4 * s.n_keep
         # refinement levels ------------------------------------------------------------------
         for depth, (prev, lv) in enumerate(zip(levels[:-1], levels[1:])):
             keep = max(8, s.n_keep >> depth)  # fewer candidates once the smoothing is close to FWHM
-            cands = refine(ctx, lv, prev, radius, cands, work, keep, self.antipodal)
+            cands = refine(ctx, lv, prev, radius, cands, work, keep, self.antipodal, inside=inside and depth == 0,
+                           last=depth == len(levels) - 2)
             info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "m_cut": int(cands.m_cut),
                          "kept": len(cands)})
             if len(cands) == 0:
@@ -145,7 +149,7 @@ class PairMode(Mode):
                 cands[-1]["S_eq"] = float(c.rank[i])
                 if i == order[0]:
                     best[name] = cands[-1]  # the pair that defines S_max (best by the ranking score)
-        cands.sort(key=lambda e: -e["S"])
+        cands.sort(key=lambda e: -e["S_eq"])  # the ranking score that decides detection
         return {"candidates": cands, "s_max": s_max, "best": best}
 
     def summarise(self, ctx, results: dict) -> dict:
@@ -162,7 +166,7 @@ class PairMode(Mode):
                     s_max.append({"radius_deg": float(key), "orientation": name, "S_max": r["s_max"][name],
                                   "best": best})
         reported = list(cands)  # per radius: n_report best per orientation, plus the best cut pairs
-        cands.sort(key=lambda c: -c["S"])
+        cands.sort(key=lambda c: -c["S_eq"])  # one ranking everywhere: S_eq (S and overlap stay as fields)
         return {"candidates": cands[: s.n_candidates], "s_max": s_max, "work": total_work(results.values()),
                 "reported": reported, "skipped_circles": skipped}
 
@@ -182,6 +186,13 @@ class AntipodalMode(PairMode):
         anti = hp.vec2pix(nside, *(-circ.centers.T))
         first = np.flatnonzero(np.arange(n) < anti)
         first = first[valid[first] & valid[anti[first]]]
+        if bool((~circ.full[first]).any() or (~circ.full[anti[first]]).any()):
+            # a cut sky: every antipodal pair goes on (a few thousand); the next level evaluates the
+            # finer pixels inside each and keeps the best, since at this level's smoothing and
+            # centre offsets a true pair over a short overlap ranks below many chance pairs
+            c = circ.centers[first]
+            return Candidates(np.vstack([c, c]), -np.vstack([c, c]),
+                              np.repeat([st.SAME, st.OPPOSITE], first.size))
         sv, _, fr = st.best_twist(circ, circ, first, anti[first], m_cut, s.min_overlap, with_overlap=True)
         add_work(work, first.size, 8 * (m_cut + 1), m_cut)
         ia, orient = [], []
@@ -202,37 +213,25 @@ class AllPairsMode(PairMode):
 
     def coarse(self, ctx, circ, valid, m_cut, work):
         """Unmasked: the ``n_pool * n_keep`` best pairs of the BLAS kernel, then the ``n_keep``
-        best distinct ones. With cut circles the kernel's S (harmonic, over circles as sampled) is
-        only a filter: its best POOL_SHARE of all pairs (at least ``n_pool * n_keep``; plus as
-        many pairs with a cut circle) are evaluated with the exact masked S and ranked by
-        S_eq = sqrt(1 - (1 - S^2)^f) (statistic.rank_score) before the ``n_keep`` best distinct ones go on."""
+        best distinct ones. With cut circles: the ``n_partners`` best partners of every centre
+        by the exact masked S_eq on coarse samples (allpairs.masked_partners), all passed on; the
+        next level evaluates the finer pixels inside their coarse pixels and keeps the best."""
         import healpy as hp
 
         s = ctx.settings
+        if bool((~circ.full[valid]).any()):
+            ia, ib, orient = masked_partners(circ, valid, m_cut, s.n_partners, np.radians(s.min_separation_deg),
+                                             s.min_overlap, s.kernel_mem_mb * (1 << 20), work)
+            return Candidates(circ.centers[ia], circ.centers[ib], orient)
         a = st.weighted(circ.coeffs, m_cut)
-        cut = ~circ.full
-        masked = bool(cut[valid].any())
-        n_valid = int(valid.sum())
-        pool = s.n_pool * s.n_keep
-        if masked:
-            pool = max(pool, int(POOL_SHARE * n_valid * (n_valid - 1) / 2))
         ia, ib, orient, sv = allpairs_top(a, circ.centers, valid, twist_count(m_cut, s.twist_oversample),
-                                          pool, np.radians(s.min_separation_deg),
-                                          s.kernel_mem_mb * (1 << 20), work, m_cut,
-                                          cut=cut if masked else None)
+                                          s.n_pool * s.n_keep, np.radians(s.min_separation_deg),
+                                          s.kernel_mem_mb * (1 << 20), work, m_cut)
         reach = hp.nside2resol(hp.npix2nside(len(circ)))
         keep = []
-        score = sv
-        if masked:
-            combo = np.unique(np.stack([ia, ib, orient], axis=1), axis=0)
-            ia, ib, orient = combo[:, 0], combo[:, 1], combo[:, 2]
-            sx, _, fx = st.best_twist(circ, circ, ia, ib, m_cut, s.min_overlap, with_overlap=True, orient=orient)
-            r = np.arange(ia.size)
-            score = st.rank_score(sx[r, orient], fx[r, orient])
-            add_work(work, ia.size, 8 * (m_cut + 1), m_cut)
         for o in (st.SAME, st.OPPOSITE):
             sel = np.flatnonzero(orient == o)
-            keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], score[sel], s.n_keep, reach)])
+            keep.append(sel[distinct(circ.centers[ia[sel]], circ.centers[ib[sel]], sv[sel], s.n_keep, reach)])
         keep = np.unique(np.concatenate(keep))
         combo = np.unique(np.stack([ia[keep], ib[keep], orient[keep]], axis=1), axis=0)
         return Candidates(circ.centers[combo[:, 0]], circ.centers[combo[:, 1]], combo[:, 2])

@@ -164,11 +164,13 @@ def rank_score(s: np.ndarray, f: np.ndarray) -> np.ndarray:
     return np.where(fin, eq, -np.inf)
 
 
-def masked_spectra(f: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def masked_spectra(f: np.ndarray, w: np.ndarray, dtype=np.float64) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Real FFTs (n, N/2 + 1) of g = w f, h = w f^2 and w for filtered circles f and kept flags w
     (n, N): the sums of the masked S are circular correlations of these, so each circle's spectra
-    are computed once however many pairs use it."""
-    w = np.asarray(w, dtype=float)
+    are computed once however many pairs use it. ``dtype`` float32: single-precision transforms
+    (about twice as fast; S to about 1e-6)."""
+    w = np.asarray(w, dtype=dtype)
+    f = np.asarray(f, dtype=dtype)
     g = w * f
     return np.fft.rfft(g, axis=1), np.fft.rfft(g * f, axis=1), np.fft.rfft(w, axis=1)
 
@@ -194,6 +196,7 @@ def masked_sums(spec_a, spec_b, n: int, opposite=None) -> tuple[np.ndarray, np.n
 
 
 def _masked_grid(num, den, over, n, min_overlap):
+    num, den, over = (np.asarray(x, dtype=float) for x in (num, den, over))
     ok = (over >= min_overlap * n - 1e-6) & (den > 1e-300)
     with np.errstate(invalid="ignore", divide="ignore"):
         grid = np.where(ok, 2.0 * num / np.where(ok, den, 1.0), -np.inf)
@@ -275,13 +278,27 @@ def _take(spec, idx):
     return tuple(x[idx] for x in spec)
 
 
+def coarse_kept(kept: np.ndarray, n_c: int) -> np.ndarray:
+    """Kept flags (n, N) of a circle grid resampled to n_c samples: a sample is kept when every
+    sample of the N grid nearest to it is kept (a masked stretch is never counted as kept)."""
+    n = kept.shape[1]
+    if n_c == n:
+        return np.asarray(kept, dtype=bool)
+    nearest = np.floor(np.arange(n) * n_c / n + 0.5).astype(int) % n_c
+    out = np.ones((kept.shape[0], n_c), dtype=bool)
+    for k in range(n_c):
+        out[:, k] = kept[:, nearest == k].all(axis=1)
+    return out
+
+
 def best_twist(circ_a, circ_b, ia: np.ndarray, ib: np.ndarray, m_cut: int | None = None,
                min_overlap: float = 0.25, block: int = 4096, with_overlap: bool = False,
-               orient: np.ndarray | None = None):
+               orient: np.ndarray | None = None, single: bool = False):
     """S and contract twist (k, 2) for pairs (circ_a[ia[i]], circ_b[ib[i]]): the exact harmonic
     maximum when both circles are fully kept, the masked real-space variant otherwise
     (``with_overlap`` adds the jointly kept fraction, 1 for full circles). With ``orient`` only
-    that orientation per pair is evaluated (the other entries are -inf)."""
+    that orientation per pair is evaluated (the other entries are -inf). ``single``: the masked
+    sums in single precision (masked_spectra), for ranking between levels."""
     ia = np.asarray(ia, dtype=int)
     ib = np.asarray(ib, dtype=int)
     oo_all = None if orient is None else np.asarray(orient, dtype=int)
@@ -290,18 +307,19 @@ def best_twist(circ_a, circ_b, ia: np.ndarray, ib: np.ndarray, m_cut: int | None
     f = np.ones((ia.size, 2))
     full = circ_a.full[ia] & circ_b.full[ib]
     cut = np.flatnonzero(~full)
+    n = circ_a.n_phi
     if cut.size:
         # spectra of each cut pair's circles, once per circle
-        n = circ_a.n_phi
         same_set = circ_a is circ_b
         ua, inv = np.unique(np.concatenate([ia[cut], ib[cut]]) if same_set else ia[cut], return_inverse=True)
-        spec_a = masked_spectra(filtered_circles(circ_a.coeffs[ua], n, m_cut), circ_a.kept[ua])
+        dt = np.float32 if single else np.float64
+        spec_a = masked_spectra(filtered_circles(circ_a.coeffs[ua], n, m_cut), circ_a.kept[ua], dt)
         if same_set:
             inv_a, inv_b, spec_b = inv[: cut.size], inv[cut.size :], spec_a
         else:
             ub, inv_b = np.unique(ib[cut], return_inverse=True)
             inv_a = inv
-            spec_b = masked_spectra(filtered_circles(circ_b.coeffs[ub], n, m_cut), circ_b.kept[ub])
+            spec_b = masked_spectra(filtered_circles(circ_b.coeffs[ub], n, m_cut), circ_b.kept[ub], dt)
     whole = np.flatnonzero(full)
     for i0 in range(0, whole.size, block):
         rows = whole[i0 : i0 + block]
@@ -311,7 +329,7 @@ def best_twist(circ_a, circ_b, ia: np.ndarray, ib: np.ndarray, m_cut: int | None
         rows = cut[c0 : c0 + block]
         sa, sb = _take(spec_a, inv_a[c0 : c0 + block]), _take(spec_b, inv_b[c0 : c0 + block])
         oo = None if oo_all is None else oo_all[rows]
-        s[rows], t[rows], f[rows] = _masked_rows(sa, sb, circ_a.n_phi, min_overlap, oo)
+        s[rows], t[rows], f[rows] = _masked_rows(sa, sb, n, min_overlap, oo)
     if with_overlap:
         return s, t, f
     return s, t
