@@ -59,11 +59,7 @@ def completeness(args, setup) -> list[dict]:
     for sky in skies:
         t0 = time.perf_counter()
         obs = C.observe_sky(sky, setup)
-        search = None
-        if args.search_root:  # the search of another version of the code, tallied alike
-            def search(o, st, mode, radii):
-                return run_search(args.search_root, o.temperature, o.mask, radii, st.search, mode)
-        recs = C.tally_observation(obs, setup, search=search)
+        recs = C.tally_observation(obs, setup, search=other_search(args.search_root) if args.search_root else None)
         records += recs
         for r in recs:
             print(f"  {sky.name:14s} cut {sky.b_cut_deg:4.1f} holes {sky.holes:3d} {r['mode']:9s} "
@@ -78,6 +74,13 @@ def completeness(args, setup) -> list[dict]:
         r0, r1 = row["radius_deg"]
         print(f"{row['mode']:9s}  {f0:.1f}-{f1:.1f}     {r0:2d}-{r1:2d}         {row['found']:3d} / {row['in_reach']}")
     return records
+
+
+def other_search(root: str):
+    """The search of the package in ``root`` (another version of the code), for tally_observation."""
+    def search(o, setup, mode, radii):
+        return run_search(root, o.temperature, o.mask, radii, setup.search, mode)
+    return search
 
 
 def run_search(root: str, t: np.ndarray, m: np.ndarray, radii, settings: dict, mode: str) -> dict:

@@ -8,6 +8,7 @@ import pytest
 from test_search_fields import invariant_field, isotropic_map
 from topology import geometry as geo
 from topology.circles import predict_circles
+from topology.completeness import match
 from topology.maps import as_skymap, prepare_map
 from topology.search import SearchSettings, search_sky
 from topology.search import statistic as st
@@ -21,21 +22,6 @@ OBS = dict(position=[0.12, -0.05, 0.03], euler=(0.3, 0.6, -0.2))
 
 def _sep_deg(u, v):
     return np.degrees(np.arctan2(np.linalg.norm(np.cross(u, v)), np.dot(u, v)))
-
-
-def match(cand, pair):
-    """(max centre error deg, twist error deg) of a candidate against a predicted pair, trying both
-    assignments of A and B: swapping them keeps the twist for 'opposite' and negates it for 'same'."""
-    ca, cb = geo.lonlat_to_vec(*cand["center_a"]), geo.lonlat_to_vec(*cand["center_b"])
-    tw = np.radians(cand["twist_deg"])
-    best = (np.inf, np.inf)
-    for a, b, t in ((pair.center_a, pair.center_b, pair.twist),
-                    (pair.center_b, pair.center_a, pair.twist if pair.orientation < 0 else -pair.twist)):
-        d = max(_sep_deg(ca, a), _sep_deg(cb, b))
-        dt = abs(np.degrees((tw - t + np.pi) % (2 * np.pi) - np.pi))
-        if d < best[0]:
-            best = (d, dt)
-    return best
 
 
 def _sky(family, lengths, nside=64, seed=1):
