@@ -21,6 +21,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import re
 import subprocess
 import sys
 import tempfile
@@ -53,7 +54,8 @@ print(json.dumps({"time": time.perf_counter() - t0, "s_max": best, "reported": o
 
 
 def completeness(args, setup) -> list[dict]:
-    skies = C.validation_set(n_seeds=args.seeds, families=args.families.split(",") if args.families else None)
+    names = re.findall(r"[^,(]+(?:\([^)]*\))?", args.families)  # commas inside L(p,q) stay
+    skies = C.validation_set(n_seeds=args.seeds, families=[n.strip() for n in names] or None)
     records = []
     t_all = time.perf_counter()
     for sky in skies:
