@@ -176,6 +176,8 @@ def run_tasks(tasks: list[Task], store, engine, show_progress: bool | None = Non
               label: str = "topology run") -> dict:
     """Run the tasks that ``store`` has not finished (for their key) on ``engine``, storing each
     result as it finishes; a task finished from other inputs is run again, with a note.
+    Progress (:func:`topology.progress.progress`): a bar on a terminal, a line per task or per 5%
+    of the tasks with the time left in a log, nothing with ``show_progress=False``.
 
     Returns {"computed": n, "reused": n, "elapsed_s": t}."""
     import time
@@ -189,8 +191,7 @@ def run_tasks(tasks: list[Task], store, engine, show_progress: bool | None = Non
         changed = getattr(store, "changed_inputs", [])
         what = f" ({', '.join(changed)} changed since they ran)" if changed else ""
         note(f"{stale} finished task(s) are recomputed: their inputs changed{what}")
-    bar = progress(len(tasks), label, show_progress)
-    bar.update(len(tasks) - len(todo))
+    bar = progress(len(tasks), label, show_progress, initial=len(tasks) - len(todo))
     computed = 0
     try:
         keys = {t.id: t.key for t in todo}
