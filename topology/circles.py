@@ -73,13 +73,18 @@ def circle_frame(center: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def circle_points(center: np.ndarray, radius: float | np.ndarray, phi: np.ndarray) -> np.ndarray:
-    """Unit vectors n(phi) on circles: centre (..., 3), radius (...) -> (..., len(phi), 3)."""
+    """Unit vectors n(phi) on circles: centre (..., 3), radius (...) -> (..., len(phi), 3).
+
+    n(phi) = cos(alpha) c + sin(alpha) (cos(phi) e_N + sin(phi) e_E), evaluated as one matrix
+    product of the coefficients (N_phi, 3) with each circle's frame (c, e_N, e_E)."""
     c = np.asarray(center, dtype=float)
     en, ee = circle_frame(c)
-    r = np.asarray(radius, dtype=float)[..., None, None]
+    r = np.asarray(radius, dtype=float)[..., None]
     phi = np.asarray(phi, dtype=float)
-    ring = np.cos(phi)[:, None] * en[..., None, :] + np.sin(phi)[:, None] * ee[..., None, :]
-    return np.cos(r) * c[..., None, :] + np.sin(r) * ring
+    cr, sr = np.cos(r), np.sin(r)
+    coef = np.stack(np.broadcast_arrays(cr, sr * np.cos(phi), sr * np.sin(phi)), axis=-1)  # (..., N_phi, 3)
+    frame = np.stack(np.broadcast_arrays(c, en, ee), axis=-2)  # (..., 3, 3): rows c, e_N, e_E
+    return np.matmul(coef, frame)
 
 
 def circle_phase(center: np.ndarray, points: np.ndarray) -> np.ndarray:
