@@ -45,6 +45,14 @@ def _camb_table(cosmology, lmax: int):
 
 
 
+def transfer_k_range(cosmology, lmax: int) -> tuple[float, float]:
+    """(k_min, k_max) in Mpc^-1 of CAMB's transfer samples, the range :func:`temperature_transfer` takes."""
+    if not have_camb():
+        raise InputError("terms beyond 'sw' need camb: pip install 'topology[spectra]'", "[sky] terms")
+    _, q, _ = _camb_table(cosmology, 100 * -(-int(lmax) // 100))
+    return float(q[0]), float(q[-1])
+
+
 def temperature_transfer(cosmology, lmax: int):
     """A callable Delta(ell, k_mpc) -> (len(ell), len(k)) of CAMB's temperature transfer.
 
