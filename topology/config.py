@@ -210,6 +210,40 @@ SCHEMA.update({
 })
 
 
+def _scales_problem(v):
+    if not v or not all(type_ok(x, NUMBER) and math.isfinite(x) and x > 0 for x in v):
+        return "must be a non-empty list of positive numbers"
+    return None if len(v) <= 200 else "takes at most 200 scales"
+
+
+def _terms_problem(v):
+    ok = all(isinstance(t, str) for t in v) and sorted(v) in (["sw"], ["doppler", "isw", "sw"])
+    return None if ok else "must be [\"sw\"] or [\"sw\", \"doppler\", \"isw\"]"
+
+
+# [harmonic]: owned by the harmonic view (topology/harmonic); edit only inside this block
+SCHEMA["harmonic"] = {
+    "lmax": Key((int,), 10, "highest multipole of the real a_lm compared (l = 2..lmax, at most 50)",
+                lambda v: None if 2 <= v <= 50 else "must be in 2..50"),
+    "scales": Key((list,), None, "factors multiplying the [space] lengths and the [observer] position: one "
+                                 "divergence per scale (table, figure)", _scales_problem),
+    "kchi_max": Key(NUMBER, None, "wave-number cut k chi_rec of the space's modes (default 3 lmax + 10)", _positive),
+    "terms": Key((list,), ["sw"], "temperature terms: ['sw'] (Sachs-Wolfe) or ['sw', 'doppler', 'isw'] (CAMB "
+                                  "transfer)", _terms_problem),
+    "complement": Key((bool,), True, "add the isotropic power of the modes beyond kchi_max on the diagonal "
+                                     "(false: the pure cut, singular for small spaces)"),
+    "nside": Key((int,), None, "N_side of the pixel-space divergence (with noise_uk, mask, beam); default: "
+                               "full-sky a_lm without noise", _power_of_two),
+    "noise_uk": Key(NUMBER, 0.0, "white noise rms per pixel of N_side in microK (needs nside)", _non_negative),
+    "mask": Key((str,), "none", "'none' or 'galactic' (|b| < mask_b_deg masked; needs nside and noise_uk)",
+                lambda v: None if v in ("none", "galactic") else "must be 'none' or 'galactic'"),
+    "mask_b_deg": Key(NUMBER, 20.0, "galactic mask: half-width of the masked band in degrees of latitude",
+                      lambda v: None if 0 < v < 90 else "must be in (0, 90) degrees"),
+    "fwhm_deg": Key(NUMBER, 0.0, "Gaussian beam FWHM in degrees of the pixel-space maps", _non_negative),
+    "pixwin": Key((bool,), True, "pixel-space maps carry the HEALPix pixel window of nside"),
+}
+
+
 def radii_problem(text, *, below_90: bool = False) -> str | None:
     """What is wrong with a radii string 'START:STOP:STEP' (degrees, both ends included) or a
     single radius, or None. Radii lie in (0, 90] (below 90 when ``below_90``)."""
@@ -248,7 +282,8 @@ EXTRA_CHECKS = {
 
 def _cross_check(name: str, entry: dict, where: str) -> None:
     """Checks between keys of one table: lmax <= 3 nside - 1 (HEALPix band limit, common practice)."""
-    if name in ("sky", "instrument") and isinstance(entry.get("nside"), int) and isinstance(entry.get("lmax"), int):
+    if name in ("sky", "instrument", "harmonic") and isinstance(entry.get("nside"), int) \
+            and isinstance(entry.get("lmax"), int):
         check_band_limit(entry["lmax"], entry["nside"], f"{where}: [{name}] lmax")
 
 

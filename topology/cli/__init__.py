@@ -46,13 +46,13 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _commands():
     mods = list(COMMANDS)
-    for name in ("synth", "search", "run"):  # stages that ship their own command module
+    for name in ("synth", "search", "run", "harmonic"):  # stages that ship their own command module
         try:
             mods.append(__import__(f"topology.cli.{name}", fromlist=["run"]))
         except ModuleNotFoundError as e:
             if e.name != f"topology.cli.{name}":
                 raise
-    order = {"predict": 0, "bound": 1, "synth": 2, "search": 3, "run": 4, "keys": 9}
+    order = {"predict": 0, "bound": 1, "synth": 2, "search": 3, "run": 4, "harmonic": 5, "keys": 9}
     return sorted(mods, key=lambda m: order.get(m.NAME, 5))
 
 

@@ -1,0 +1,18 @@
+"""The harmonic view of a space: the covariance of its low multipoles and how far it is from isotropy.
+
+Modules, one concern each, data flowing down the list:
+
+* basis.py       the real a_lm basis (l = 2..lmax), real harmonics, conversions from healpy
+* radial.py      radial functions of the temperature terms; the isotropic C_l at a wave-number cut
+* flat.py        a flat space's invariant modes (those of the skies) as columns of the covariance
+* covariance.py  the covariance from blocks of modes (BLAS rank updates) and the dispatch by space
+* kl.py          the Kullback-Leibler divergence of two zero-mean Gaussians, full sky or pixel space
+* survey.py      [harmonic] settings of a config and the divergence against scale
+* plot.py        the figure of the divergence against scale
+"""
+
+from .basis import alm_to_real, ells, n_coefficients, real_harmonics, real_to_alm
+from .covariance import HarmonicCovariance, default_kchi_max, isotropic_covariance, space_covariance
+
+__all__ = ["alm_to_real", "real_to_alm", "real_harmonics", "ells", "n_coefficients", "HarmonicCovariance",
+           "space_covariance", "isotropic_covariance", "default_kchi_max"]

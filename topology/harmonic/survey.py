@@ -1,0 +1,156 @@
+"""The divergence of a configured space from isotropy, and its dependence on the space's size.
+
+:func:`settings_from_config` checks the ``[harmonic]`` section against the theory (before any
+work); :func:`divergence_rows` computes D(space || isotropic) for the configured space and for
+each scale s of ``scales``, where the space's lengths and the observer's position are multiplied
+by s (the whole picture scaled: the observer keeps its place in the fundamental domain; the open
+directions of E11-E17 keep the skies' period). Each row also gives the distance from the
+observer to its nearest image (circles exist when it is below 2 chi_rec).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import InputError, raise_if_stopped
+from .covariance import check_kchi_max, check_lmax, space_covariance
+from .kl import Divergence, PixelSpace, gaussian_kl, pixel_kl, pixel_space
+from .radial import check_terms
+
+#: the largest distance searched for the observer's nearest image (chi_rec)
+NEAREST_REACH = 8.0
+
+
+@dataclass(frozen=True)
+class HarmonicSettings:
+    """The checked ``[harmonic]`` section: lmax, kchi_max, terms, scales (tuple or None), complement, and the
+    pixel-space form (nside, noise_uk, mask, mask_b_deg, fwhm_deg, pixwin; nside None: full sky)."""
+
+    lmax: int = 10
+    kchi_max: float | None = None
+    terms: tuple = ("sw",)
+    scales: tuple | None = None
+    complement: bool = True
+    nside: int | None = None
+    noise_uk: float = 0.0
+    mask: str = "none"
+    mask_b_deg: float = 20.0
+    fwhm_deg: float = 0.0
+    pixwin: bool = True
+
+    def pixels(self) -> PixelSpace | None:
+        """The pixel-space form, or None for the full-sky harmonic form."""
+        if self.nside is None:
+            return None
+        mask = None
+        if self.mask == "galactic":
+            from ..skies.instrument import galactic_mask
+
+            mask = galactic_mask(self.nside, self.mask_b_deg)
+        return pixel_space(self.nside, self.lmax, noise_uk=self.noise_uk, mask=mask, fwhm_deg=self.fwhm_deg,
+                           pixwin=self.pixwin)
+
+
+def settings_from_config(cfg) -> HarmonicSettings:
+    """The ``[harmonic]`` settings of a config, cross-checked (InputError naming the key)."""
+    g = lambda key: cfg.get("harmonic", key)  # noqa: E731 - schema defaults filled in
+    lmax = check_lmax(g("lmax"))
+    s = HarmonicSettings(lmax=lmax, kchi_max=check_kchi_max(g("kchi_max"), lmax) if g("kchi_max") is not None
+                         else None, terms=check_terms(g("terms")),
+                         scales=tuple(float(v) for v in g("scales")) if g("scales") is not None else None,
+                         complement=bool(g("complement")),
+                         nside=g("nside"), noise_uk=float(g("noise_uk")), mask=g("mask"),
+                         mask_b_deg=float(g("mask_b_deg")), fwhm_deg=float(g("fwhm_deg")), pixwin=bool(g("pixwin")))
+    sec = cfg.section("harmonic")
+    if s.nside is None:
+        for key in ("noise_uk", "mask", "mask_b_deg", "fwhm_deg", "pixwin"):
+            if key in sec and (key != "noise_uk" or s.noise_uk > 0) and (key != "mask" or s.mask != "none"):
+                raise InputError("needs nside (the pixel-space divergence at that N_side)", f"[harmonic] {key}")
+    elif s.noise_uk <= 0:
+        raise InputError("the pixel-space divergence needs noise_uk > 0 (without noise a band-limited sky is "
+                         "recovered exactly from the observed pixels: leave out nside for the full-sky one)",
+                         "[harmonic] noise_uk")
+    return s
+
+
+def scaled(space_sec: dict, observer, scale: float, cosmology):
+    """(space, observer) with the lengths and the observer's position multiplied by ``scale``."""
+    from .. import geometry as geo
+    from ..spaces import build_space
+
+    spec = dict(space_sec)
+    if "lengths" not in spec:
+        raise InputError("scales need the family's lengths", "[space] lengths")
+    try:
+        spec["lengths"] = [float(v) * scale for v in spec["lengths"]]
+    except (TypeError, ValueError):
+        raise InputError("must be a list of numbers", "[space] lengths") from None
+    space = build_space(spec, chi_rec_mpc=cosmology.chi_rec_mpc)
+    point = np.array(observer.point, dtype=float)
+    point[:3] *= scale
+    return space, geo.Observer(observer.geometry, point, np.array(observer.frame))
+
+
+def nearest_image(space, observer) -> float | None:
+    """The distance (chi_rec) from the observer to its nearest image, None beyond NEAREST_REACH."""
+    r = 2.0
+    while r <= NEAREST_REACH:
+        hol = space.elements_within(observer, r)
+        if len(hol):
+            return float(hol.displacement[0])
+        r *= 2.0
+    return None
+
+
+def divergence(space, observer, cosmology, settings: HarmonicSettings, pixels: PixelSpace | None = None
+               ) -> tuple[Divergence, object]:
+    """(D(space || isotropic), the HarmonicCovariance) for one space and observer."""
+    cov = space_covariance(space, observer, cosmology, lmax=settings.lmax, terms=settings.terms,
+                           kchi_max=settings.kchi_max, complement=settings.complement)
+    if pixels is None:
+        return gaussian_kl(cov.matrix, np.diag(cov.iso_diagonal)), cov
+    return pixel_kl(cov.matrix, cov.iso_diagonal, pixels), cov
+
+
+def row(scale: float, d: Divergence, cov, near: float | None) -> dict:
+    return {"scale": float(scale), "kl_nats": d.kl_nats if d.finite else None, "finite": d.finite,
+            "rank": d.rank, "n": d.n, "n_modes": int(cov.n_modes), "nearest_image": near,
+            "circles": bool(near is not None and near < 2.0)}
+
+
+def divergence_rows(cfg, settings: HarmonicSettings | None = None, progress=None) -> dict:
+    """The harmonic summary of a config: {"family", "params", "lmax", "n_coefficients", "kchi_max",
+    "terms", "form", "pixels", "kl_nats" (None if infinite), "finite", "rank", "rows": [...]}.
+    ``progress(i, n)`` is called after each scale."""
+    from ..scenario import scenario_from_config
+
+    s = settings_from_config(cfg) if settings is None else settings
+    sc = scenario_from_config(cfg)
+    if sc.space.geometry != "flat":
+        raise InputError(f"the harmonic covariance is available for flat spaces only so far, not "
+                         f"{sc.space.geometry} (family {sc.space.family})", "[space] family")
+    px = s.pixels()
+    d, cov = divergence(sc.space, sc.observer, sc.cosmology, s, px)
+    out = {"family": sc.space.family, "params": dict(sc.space.params), "lmax": s.lmax,
+           "n_coefficients": cov.n, "kchi_max": cov.kchi_max, "terms": list(s.terms),
+           "form": d.form, "pixels": px.description if px is not None else None,
+           "kl_nats": d.kl_nats if d.finite else None, "finite": d.finite, "rank": d.rank,
+           "nearest_image": nearest_image(sc.space, sc.observer), "rows": []}
+    if s.scales:
+        space_sec = cfg.section("space")
+        for i, scale in enumerate(s.scales):
+            sp, obs = scaled(space_sec, sc.observer, scale, sc.cosmology)
+            di, ci = divergence(sp, obs, sc.cosmology, s, px)
+            out["rows"].append(row(scale, di, ci, nearest_image(sp, obs)))
+            raise_if_stopped()
+            if progress is not None:
+                progress(i + 1, len(s.scales))
+    return out
+
+
+def format_kl(value) -> str:
+    """A divergence for the terminal: 'inf' or 4 significant digits."""
+    return "inf" if value is None or not math.isfinite(value) else f"{value:.4g}"
