@@ -1,0 +1,129 @@
+"""The harmonic view measured: the KL divergence of flat spaces from isotropy against size, lmax,
+observer, mask and noise, and what the covariance costs.
+
+    python benchmarks/harmonic_kl.py            # about 2-4 minutes on 2 cores
+    python benchmarks/harmonic_kl.py --quick    # the size table at lmax 8 only
+
+Prints:
+1. D(space || isotropic) of the cubic torus E1 [L, L, L], the chimney E11 [L, L] and the slab E16
+   [L] (open directions given the skies' period, 6 chi_rec) against L, and the ratios cube / slab,
+   chimney / slab. check: Planck 2015 XVIII (A&A 594, A18), Fig. 1 caption: the divergence
+   drops rapidly once the domain exceeds the last-scattering diameter (L = 2 chi_rec), and the
+   cubic torus's values are about three times the slab's.
+2. The divergence against lmax for the slab at L = 1.0 and 2.2 chi_rec (Planck 2015 XVIII Fig. 1:
+   it keeps rising for the smaller one and levels off for the larger one).
+3. The divergence of E2 (half-turn) against the observer's distance from the rotation axis.
+4. Full sky without noise against pixel space at N_side 16 with noise and a galactic mask.
+5. Cost: covariance and divergence time against lmax and size (the rank updates scale as
+   (wave vectors of the ball) x N^2, i.e. kchi_max^3 V lmax^4; the divergence as N^3).
+"""
+
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+
+from topology import geometry as geo
+from topology.cosmology import Cosmology
+from topology.harmonic import space_covariance
+from topology.harmonic.flat import covariance_work
+from topology.harmonic.kl import gaussian_kl, pixel_kl, pixel_space
+from topology.skies.instrument import galactic_mask
+from topology.spaces import build_space
+
+COSMO = Cosmology()
+ORIGIN = geo.Observer.make("flat", [0.0, 0.0, 0.0])
+
+
+def kl(spec, lmax, observer=ORIGIN, pixels=None):
+    cov = space_covariance(build_space(spec), observer, COSMO, lmax=lmax)
+    if pixels is None:
+        return gaussian_kl(cov.matrix, np.diag(cov.iso_diagonal)).kl_nats
+    return pixel_kl(cov.matrix, cov.iso_diagonal, pixels).kl_nats
+
+
+def size_table(lmax, sizes):
+    print(f"1. KL divergence (nats) against size L (chi_rec), lmax {lmax}, observer at the origin")
+    print(f"{'L':>5} {'cube E1':>10} {'chimney E11':>12} {'slab E16':>10} {'cube/slab':>10} {'chim/slab':>10}")
+    for L in sizes:
+        c = kl({"family": "E1", "lengths": [L, L, L]}, lmax)
+        h = kl({"family": "E11", "lengths": [L, L]}, lmax)
+        s = kl({"family": "E16", "lengths": [L]}, lmax)
+        print(f"{L:5.2f} {c:10.4g} {h:12.4g} {s:10.4g} {c / s:10.2f} {h / s:10.2f}")
+
+
+def lmax_table(lmaxes):
+    print("\n2. KL divergence (nats) of the slab E16 against lmax")
+    print(f"{'lmax':>5} {'L = 1.0':>10} {'L = 2.2':>10}")
+    for lmax in lmaxes:
+        a = kl({"family": "E16", "lengths": [1.0]}, lmax)
+        b = kl({"family": "E16", "lengths": [2.2]}, lmax)
+        print(f"{lmax:5d} {a:10.4g} {b:10.4g}")
+
+
+def observer_table(lmax):
+    print(f"\n3. KL divergence (nats) of E2 [1.6, 1.6, 0.9] against the observer's distance from the axis, lmax {lmax}")
+    print(f"{'r':>5} {'KL':>10}")
+    for r in (0.0, 0.2, 0.4, 0.8):
+        obs = geo.Observer.make("flat", [r, 0.0, 0.0])
+        print(f"{r:5.2f} {kl({'family': 'E2', 'lengths': [1.6, 1.6, 0.9]}, lmax, obs):10.4g}")
+
+
+def pixel_table(lmax, nside=16):
+    print(f"\n4. KL divergence (nats) of E1 [L, L, L], lmax {lmax}: full sky against N_side {nside} pixels "
+          "(pixel window; white noise per pixel; galactic mask |b| < 20 deg)")
+    mask = galactic_mask(nside, 20.0)
+    forms = [("full sky", None)]
+    for noise in (10.0, 30.0):
+        forms.append((f"noise {noise:g}", pixel_space(nside, lmax, noise_uk=noise)))
+        forms.append((f"noise {noise:g} + mask", pixel_space(nside, lmax, noise_uk=noise, mask=mask)))
+    print(f"{'L':>5} " + " ".join(f"{name:>18}" for name, _ in forms))
+    for L in (1.5, 2.0, 2.4):
+        spec = {"family": "E1", "lengths": [L, L, L]}
+        cov = space_covariance(build_space(spec), ORIGIN, COSMO, lmax=lmax)
+        vals = []
+        for _, px in forms:
+            if px is None:
+                vals.append(gaussian_kl(cov.matrix, np.diag(cov.iso_diagonal)).kl_nats)
+            else:
+                vals.append(pixel_kl(cov.matrix, cov.iso_diagonal, px).kl_nats)
+        print(f"{L:5.2f} " + " ".join(f"{v:18.4g}" for v in vals))
+
+
+def cost_table(cases):
+    print("\n5. cost: covariance (rank updates) and divergence (Cholesky + eigenvalues), seconds")
+    print(f"{'space':>20} {'lmax':>5} {'N':>5} {'modes':>8} {'flop':>9} {'cov s':>7} {'Gflop/s':>8} {'KL s':>6}")
+    for spec, lmax in cases:
+        sp = build_space(spec)
+        t0 = time.perf_counter()
+        cov = space_covariance(sp, ORIGIN, COSMO, lmax=lmax)
+        t1 = time.perf_counter()
+        gaussian_kl(cov.matrix, np.diag(cov.iso_diagonal))
+        t2 = time.perf_counter()
+        work = covariance_work(sp, ORIGIN, lmax, cov.kchi_max)
+        name = f"{spec['family']} {spec['lengths']}"
+        print(f"{name:>20} {lmax:5d} {cov.n:5d} {cov.n_modes:8d} {work:9.2e} {t1 - t0:7.2f} "
+              f"{work / (t1 - t0) / 1e9:8.1f} {t2 - t1:6.2f}")
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--quick", action="store_true", help="the size table at lmax 8 only")
+    args = ap.parse_args()
+    sizes = (0.6, 1.0, 1.4, 1.8, 2.0, 2.2, 2.6, 3.0)
+    if args.quick:
+        size_table(8, sizes)
+        return
+    size_table(16, sizes)
+    lmax_table((4, 8, 12, 16, 20))
+    observer_table(12)
+    pixel_table(16)
+    cost_table([({"family": "E1", "lengths": [1.0, 1.0, 1.0]}, 10), ({"family": "E1", "lengths": [1.0, 1.0, 1.0]}, 20),
+                ({"family": "E1", "lengths": [1.0, 1.0, 1.0]}, 30), ({"family": "E1", "lengths": [1.5, 1.5, 1.5]}, 30),
+                ({"family": "E1", "lengths": [2.0, 2.0, 2.0]}, 30), ({"family": "E6", "lengths": [1.0, 1.0, 1.0]}, 30)])
+
+
+if __name__ == "__main__":
+    main()
