@@ -9,7 +9,9 @@ coefficients are the range of the group-averaging projector P_k. The draw is
 
     C_k = s_k P_k(Z_k),   R(x) = sqrt(2) Re sum_k tr(C_k^T D^k(x)),
 
-Z_k a (k+1) x (k+1) matrix of independent standard complex normals (E|Z|^2 = 1, E Z^2 = 0).
+Z_k a (k+1) x (k+1) matrix of independent standard complex normals (E|Z|^2 = 1, E Z^2 = 0);
+P_k and its range come from :mod:`topology.skies.s3_invariants` (for the groups acting on one
+side, C_k = s_k conj(V) (V^T Z_k) with V an orthonormal basis of the fixed vectors).
 P_k(Z_k) is white noise on the invariant subspace (an orthogonal projection of white noise),
 and sqrt(2) Re(.) of a circular complex field whose span is closed under conjugation is a real
 Gaussian field with the same covariance, so this is exactly the same random field as
@@ -39,22 +41,24 @@ terms are not implemented for spherical skies ("doppler", "isw" raise InputError
 
 Sky. The field on the sky is band-limited to l <= kmax (a degree-k mode seen on a sphere about
 the observer has l <= k), so its a_lm are computed exactly (no pixel quadrature, no
-healpy.map2alm) by the ring method of :func:`field_alm`: exact Fourier series in longitude,
-Gauss-Legendre rings in colatitude, integrated against Y_lm in the observer's sky frame; :func:`field_alm_by_grid` does the same by
-brute-force evaluation and is its cross-check. The sky keeps its l = 0, 1 terms: the matched-
-circle identity T(P) = T(g^-1 P) holds for the whole field. Power at multipole l comes from
+healpy.map2alm) by :func:`field_alm`: per degree, the band |a - b| <= lmax of the coefficients
+seen from the observer, contracted with spherical tensor operators
+(:mod:`topology.skies.s3_tensors`); :func:`field_alm_by_grid` does the same by brute-force
+evaluation and is its cross-check. The sky keeps its l = 0, 1 terms: the matched-circle
+identity T(P) = T(g^-1 P) holds for the whole field. Power at multipole l comes from
 k >~ l / chi, so a sky with modes up to kmax holds the fraction ~ 1 - 0.55 (l / (kmax chi))^2
 of the simply connected C_l (measured with :func:`s3_sachs_wolfe_cl`: 86 % at kmax chi = 2 l,
-94 % at 3 l, 98 % at 6 l). Cost ~ kmax^4 (about 1 s at kmax = 60, 7 s at 120).
+94 % at 3 l, 98 % at 6 l). Memory O(kmax^2) (one degree at a time); cost per degree k about
+(lmax+1)^2 k / 2 for the tensors plus (k+1)^2 for the draw, and for lens spaces (k+1)^3 for the
+turn to the observer (numbers in benchmarks/spherical_sky_speed.py).
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.special import sph_harm_y
 
 from .. import geometry as geo
 from ..bandlimit import check_band_limit
@@ -62,15 +66,14 @@ from ..errors import InputError
 from . import default_kmax
 from .base import Sky, stream_rng
 from .legendre import legendre_table
-from .s3_harmonics import (
-    InvariantProjector, gauss_legendre_grid, grid_to_alm, invariant_ranks, projectors,
-    wigner_stack, zonal_s3,
-)
+from .s3_harmonics import gauss_legendre_grid, grid_to_alm, wigner_stack, zonal_s3
+from .s3_invariants import degrees, group_of, invariant_ranks
+from .s3_tensors import SphereAlm, rotate_alm
 from .spectra import A_S, K_PIVOT, N_S, primordial_power
 
-#: highest harmonic degree accepted: the Wigner recursion keeps unitarity to 2e-10 at k = 150
-#: (1e-13 at k = 60, 4e-8 at k = 200, measured); cost ~ kmax^4, about 1 s at kmax = 60
-KMAX_LIMIT = 150
+#: highest harmonic degree accepted: the Wigner matrices keep unitarity to ~1e-13 at k = 700
+#: (Risbo recursion, tested) and the invariant projectors their eigenvalues 0 or 1 to ~1e-13
+KMAX_LIMIT = 1000
 
 
 def check_default_kmax(lmax: int, chi: float, what: str, where: str, advice: str = "") -> None:
@@ -83,7 +86,7 @@ def check_default_kmax(lmax: int, chi: float, what: str, where: str, advice: str
                          f"lmax to {int(KMAX_LIMIT * chi / 2)}{advice}", where)
 #: lowest physical degree: beta = k + 1 >= 3 (beta = 1, 2 are the constant and gauge modes)
 KMIN = 2
-#: Wigner entries per evaluation block (bounds memory: ~16 bytes x 6 x this)
+#: Wigner entries per evaluation block of :meth:`InvariantField.values` (bounds memory)
 _BLOCK_ENTRIES = 3_000_000
 
 
@@ -100,19 +103,46 @@ def mode_variance(k, curvature_radius_mpc: float, A_s: float = A_S, n_s: float =
     return 2.0 * math.pi**2 * primordial_power(q, A_s, n_s, k_pivot) / (beta * (beta**2 - 1.0))
 
 
+def _replay(state: dict) -> np.random.Generator:
+    rng = np.random.Generator(getattr(np.random, state["bit_generator"])())
+    rng.bit_generator.state = state
+    return rng
+
+
+def _draw_z(rng: np.random.Generator, k: int) -> np.ndarray:
+    """Z_k: (k+1) x (k+1) independent standard complex normals (E|Z|^2 = 1, E Z^2 = 0)."""
+    g = rng.standard_normal((2, k + 1, k + 1))
+    return (g[0] + 1j * g[1]) * math.sqrt(0.5)
+
+
 @dataclass(frozen=True)
 class InvariantField:
     """A drawn Gamma-invariant field R(x) = sqrt(2) Re sum_k tr(C_k^T D^k(x)) on S^3.
 
-    coeffs[k] is the (k+1, k+1) complex C_k (absent or zero where no mode survives).
-    ``scale`` multiplies R to give the field returned by :meth:`values` (e.g. -T/5 in microK).
-    ``counts[k]`` is the number of invariant modes at degree k (projector rank), k = 0..kmax.
+    C_k = amplitude[k] P_k(Z_k), k = KMIN..kmax, with Z_k drawn in increasing k from a
+    generator in ``state`` (its bit-generator state): the field is a recipe, replayed on
+    demand (:meth:`degrees`), so that no (k+1)^2 matrix of every degree is ever held at once.
+    ``group`` is the invariant-mode builder of :mod:`topology.skies.s3_invariants`; ``scale``
+    multiplies R in :meth:`values` (e.g. -T/5 in microK); ``counts[k]`` = invariant modes at k.
     """
 
     kmax: int
-    coeffs: dict
+    group: object
+    amplitude: np.ndarray
+    state: dict
     scale: float = 1.0
     counts: np.ndarray | None = None
+
+    def degrees(self, with_delta: bool = False):
+        """Yield (k, degree, Z_k, Delta^k or None) for k = KMIN..kmax (see :func:`degrees`)."""
+        rng = _replay(self.state)
+        for deg, delta in degrees(self.group, self.kmax, KMIN, with_delta):
+            yield deg.k, deg, _draw_z(rng, deg.k), delta
+
+    @property
+    def coeffs(self) -> dict:
+        """{k: C_k} (dense (k+1)^2 complex each; for small kmax)."""
+        return {k: self.amplitude[k] * deg.project(z) for k, deg, z, _ in self.degrees()}
 
     def values(self, points: np.ndarray) -> np.ndarray:
         """scale * R at unit quaternions points (..., 4), evaluated in bounded blocks."""
@@ -131,7 +161,7 @@ class InvariantField:
             for k, d in wigner_stack(pts[sl], ktop):
                 c = live.get(k)
                 if c is not None:
-                    acc += (c @ d.reshape((k + 1) ** 2, -1)).real
+                    acc += (d.reshape(len(d), -1) @ c).real
             out[sl] = acc
         return (math.sqrt(2.0) * self.scale * out).reshape(shape)
 
@@ -153,7 +183,7 @@ def _check_space(space) -> None:
 
 
 def invariant_mode_counts(space, kmax: int) -> np.ndarray:
-    """Number of Gamma-invariant eigenmodes for k = 0..kmax: the rank of each projector P_k.
+    """Number of Gamma-invariant eigenmodes for k = 0..kmax (:mod:`topology.skies.s3_invariants`).
 
     Equals the character average (topology.spaces.spherical.mode_counts) and, for groups acting
     on one side, (k+1) times the Molien coefficient (tested).
@@ -163,113 +193,82 @@ def invariant_mode_counts(space, kmax: int) -> np.ndarray:
     return invariant_ranks(space.pairs, kmax)
 
 
+def _amplitudes(order: int, kmax: int, variance) -> np.ndarray:
+    """s_k = sqrt(|Gamma| sigma_k^2 (k+1) / (2 pi^2)) for k >= KMIN, else 0."""
+    k = np.arange(kmax + 1)
+    var = np.array([float(variance[i]) if i >= KMIN else 0.0 for i in k])
+    return np.sqrt(order * var * (k + 1) / (2.0 * math.pi**2))
+
+
 def draw_invariant_field(space, kmax: int, rng: np.random.Generator, variance) -> InvariantField:
     """Draw C_k = s_k P_k(Z_k), k = KMIN..kmax, s_k^2 = |Gamma| variance[k] (k+1)/(2 pi^2).
 
     Z_k is drawn for every k in increasing order (real and imaginary parts from
-    rng.standard_normal), so a larger kmax extends a field without changing its lower degrees.
-    ``variance`` is a sequence indexed by k (sigma_k^2, read for k >= KMIN).
+    rng.standard_normal), so a larger kmax extends a field without changing its lower degrees;
+    ``rng`` is advanced past the draws. ``variance`` is a sequence indexed by k (sigma_k^2, read
+    for k >= KMIN).
     """
-    order = len(space.pairs)
-    coeffs = {}
-    counts = np.zeros(kmax + 1, dtype=np.int64)
-    for proj in projectors(space.pairs, kmax):
-        k = proj.k
-        counts[k] = proj.rank()
-        if k < KMIN:
-            continue
-        n = k + 1
-        g = rng.standard_normal((2, n, n))
-        z = (g[0] + 1j * g[1]) * math.sqrt(0.5)
-        s = math.sqrt(order * float(variance[k]) * n / (2.0 * math.pi**2))
-        c = s * proj.apply(z)
-        if np.max(np.abs(c), initial=0.0) > 1e-12 * s:
-            coeffs[k] = c
-    return InvariantField(int(kmax), coeffs, counts=counts)
+    state = rng.bit_generator.state
+    for k in range(KMIN, kmax + 1):
+        _draw_z(rng, k)
+    return InvariantField(int(kmax), group_of(space.pairs), _amplitudes(len(space.pairs), kmax, variance), state)
 
 
-def _ring_geometry(observer: geo.Observer, chi: float, theta: np.ndarray):
-    """Quaternions (left, right, rings) with exp_x(chi n(theta, phi)) = left e^{i phi/2} rings(theta) e^{-i phi/2} right.
-
-    With u(n) the pure unit quaternion conj(x) (frame n), the LSS point is x y(n),
-    y = cos chi + sin chi u(n). Turning the sky about its z axis by phi turns u about the axis
-    a = det(M) M z (M: n -> u, 3x3 orthogonal) by phi, i.e. y(theta, phi) = q y(theta, 0) q^-1
-    with q = cos(phi/2) + sin(phi/2) a = h^-1 e^{i phi/2} h for a unit quaternion h taking a to
-    i (h a h^-1 = i). So left = x h^-1, right = h, rings = h y(theta, 0) h^-1.
-    """
+def _sky_frame(observer: geo.Observer) -> np.ndarray:
+    """Q (3x3, det +-1) with u(n) = P Q... : the direction n of the observer's sky frame seen as
+    the pure quaternion u = conj(x) (frame n), in the frame (j, k, i) of :mod:`s3_tensors`."""
     x = observer.point
     mq = geo.quat_multiply(geo.quat_conjugate(x)[None, :], observer.frame.T)   # (3, 4): u of e_x, e_y, e_z
-    m = mq[:, 1:].T                                                            # M[:, j] = u(e_j)
-    axis = np.sign(np.linalg.det(m)) * m[:, 2]
-    i_axis = np.array([1.0, 0.0, 0.0])
-    if axis @ i_axis < -1.0 + 1e-12:
-        h = np.array([0.0, 0.0, 1.0, 0.0])          # j i j^-1 = -i
-    else:
-        h = np.concatenate([[1.0 + axis @ i_axis], np.cross(axis, i_axis)])
-        h /= np.linalg.norm(h)
-    n0 = np.stack([np.sin(theta), np.zeros_like(theta), np.cos(theta)], axis=-1)
-    y0 = np.concatenate([np.full((len(theta), 1), math.cos(chi)), math.sin(chi) * (n0 @ m.T)], axis=1)
-    hinv = geo.quat_conjugate(h)
-    rings = geo.quat_multiply(geo.quat_multiply(h[None, :], y0), hinv[None, :])
-    left = geo.quat_multiply(x, hinv)
-    return left, h, rings
+    m = mq[:, 1:].T                                                            # M[:, j] = u(e_j) in (i, j, k)
+    return m[[1, 2, 0]]                                                        # rows (j, k, i)
 
 
 def field_alm(field: InvariantField, observer: geo.Observer, chi: float, lmax: int) -> np.ndarray:
     """Exact a_lm (healpy order, l <= lmax) of n -> field(exp_x(chi n)) in the observer's sky frame.
 
-    Ring method: on a ring of colatitude theta the point is left e^{i phi/2} z(theta) e^{-i phi/2}
-    right (:func:`_ring_geometry`), and D^k(e^{i phi/2}) = diag(e^{i (a - k/2) phi}), so
-
-        tr(C^T D^k(P)) = sum_M e^{i M phi} sum_{b - a = M} G_ab D^k_ba(z(theta)),  G = D^k(right) C^T D^k(left):
-
-    the Fourier series in phi is exact and needs D^k only at one point per ring. The theta
-    integral uses ceil((kmax + L + 1)/2) Gauss-Legendre rings, L = min(lmax, kmax), exact for
-    a field with l <= kmax; a_lm = 2 pi sum_i w_i lambda_lm(theta_i) c_m(theta_i). Cost ~ kmax^4.
+    The LSS point is x y(n), y = exp(chi u(n)) = cos chi + sin chi u(n), u(n) = conj(x) (frame n)
+    = M n. Per degree, f(x y) = tr(C'^T D^k(y)) with C' = D^k(x)^T C_k (for a left group
+    conj(D^k(x^-1) V) W: thin products), and the a_lm of y -> tr(C'^T D^k(y)) on the sphere of
+    radius chi follow from the band |a - b| <= lmax of C' by spherical tensor operators
+    (:mod:`topology.skies.s3_tensors`), in the frame (j, k, i); a final rotation (healpy's
+    Wigner rotation of the a_lm) takes them to the observer's frame. No quadrature: exact up to
+    rounding. Cost ~ (lmax+1)^2 kmax^2 / 4 for the tensors plus the group's thin products.
     """
+    return _alm_and_counts(field, observer, chi, lmax)[0]
+
+
+def _alm_and_counts(field: InvariantField, observer: geo.Observer, chi: float, lmax: int):
     lmax = int(lmax)
-    kmax = field.kmax
-    band = min(lmax, kmax)
-    n_theta = (kmax + band + 2) // 2
-    x, w = np.polynomial.legendre.leggauss(n_theta)
-    theta = np.arccos(x)
-    left, right, rings = _ring_geometry(observer, chi, theta)
-    quats = np.concatenate([left[None, :], right[None, :], rings])
-    fsum = np.zeros((n_theta, 2 * kmax + 1), dtype=complex)        # column M + kmax
-    live = {k: c for k, c in field.coeffs.items() if np.any(c)}
-    ktop = max(live) if live else -1
-    if ktop >= 0:
-        for k, d in wigner_stack(quats, ktop):
-            c = live.get(k)
-            if c is None:
-                continue
-            g = d[:, :, 1] @ c.T @ d[:, :, 0]                       # G = D(right) C^T D(left)
-            h = g.T[:, :, None] * d[:, :, 2:]                        # h[b, a] = G_ab B_ba
-            for off in range(-k, k + 1):                             # a - b = off -> M = -off
-                fsum[:, kmax - off] += np.trace(h, offset=off, axis1=0, axis2=1)
-    scale = field.scale / math.sqrt(2.0)
+    band_l = min(lmax, field.kmax)
+    acc = SphereAlm(band_l, chi)
+    x0 = np.asarray(observer.point, dtype=float)
+    counts = np.zeros(field.kmax + 1, dtype=np.int64)
+    for k, deg, z, delta in field.degrees(with_delta=True):
+        counts[k] = deg.count
+        s = field.amplitude[k]
+        if s == 0.0 or deg.count == 0:
+            continue
+        acc.add(k, deg.observed_band(z, x0, delta, band_l, s))
+    small = rotate_alm(acc.real_alm(field.scale), band_l, _sky_frame(observer))
     from healpy import Alm
 
     alm = np.zeros(Alm.getsize(lmax), dtype=complex)
-    for m in range(band + 1):
-        cm = scale * (fsum[:, kmax + m] + np.conj(fsum[:, kmax - m]))
-        ell = np.arange(m, band + 1)
-        lam = sph_harm_y(ell[None, :], m, theta[:, None], 0.0).real
-        alm[Alm.getidx(lmax, ell, m)] = 2.0 * math.pi * ((w * cm)[:, None] * lam).sum(axis=0)
-    return alm
+    ell, m = Alm.getlm(band_l)
+    alm[Alm.getidx(lmax, ell, m)] = small
+    return alm, counts
 
 
 def field_alm_by_grid(field: InvariantField, observer: geo.Observer, chi: float, lmax: int) -> np.ndarray:
     """The same a_lm as :func:`field_alm` by direct evaluation on a full Gauss-Legendre grid
-    (kmax + L + 1 longitudes; cost ~ kmax^5). A cross-check of the ring method."""
-    band = min(int(lmax), field.kmax)
-    n_theta = (field.kmax + band + 2) // 2
-    theta, w, dirs = gauss_legendre_grid(n_theta, field.kmax + band + 1)
-    small = grid_to_alm(field.values(observer.exp(dirs, chi)), theta, w, band)
+    (kmax + L + 1 longitudes; cost ~ kmax^5). A cross-check of the tensor method."""
+    band_l = min(int(lmax), field.kmax)
+    n_theta = (field.kmax + band_l + 2) // 2
+    theta, w, dirs = gauss_legendre_grid(n_theta, field.kmax + band_l + 1)
+    small = grid_to_alm(field.values(observer.exp(dirs, chi)), theta, w, band_l)
     from healpy import Alm
 
     alm = np.zeros(Alm.getsize(int(lmax)), dtype=complex)   # l > kmax: exactly zero
-    ell, m = Alm.getlm(band)
+    ell, m = Alm.getlm(band_l)
     alm[Alm.getidx(int(lmax), ell, m)] = small
     return alm
 
@@ -310,11 +309,11 @@ def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside:
     rc = cosmology.curvature_radius_mpc
     variance = np.zeros(kmax + 1)
     variance[KMIN:] = mode_variance(np.arange(KMIN, kmax + 1), rc)
-    field = draw_invariant_field(space, kmax, stream_rng(seed, "signal"), variance)
     t_uk = cosmology.t_cmb * 1e6
-    field = InvariantField(field.kmax, field.coeffs, scale=-t_uk / 5.0, counts=field.counts)
-    alm = field_alm(field, observer, chi, lmax)
-    counts = field.counts
+    field = InvariantField(int(kmax), group_of(space.pairs), _amplitudes(len(space.pairs), kmax, variance),
+                           stream_rng(seed, "signal").bit_generator.state, scale=-t_uk / 5.0)
+    alm, counts = _alm_and_counts(field, observer, chi, lmax)
+    field = replace(field, counts=counts)
     meta = {"method": "eigenmode", "family": space.family, "params": dict(space.params), "seed": seed,
             "kmax": kmax, "chi": chi, "modes": int(counts[KMIN:].sum()), "nside": nside,
             "observer": [float(v) for v in observer.point], "field": field}
@@ -351,5 +350,4 @@ def s3_sachs_wolfe_cl(cosmology, lmax: int, kmax: int) -> np.ndarray:
 
 
 __all__ = ["spherical_sky", "invariant_mode_counts", "mode_variance", "draw_invariant_field", "field_alm",
-           "field_alm_by_grid",
-           "InvariantField", "InvariantProjector", "s3_sachs_wolfe_cl", "zonal_s3", "KMAX_LIMIT", "KMIN"]
+           "field_alm_by_grid", "InvariantField", "s3_sachs_wolfe_cl", "zonal_s3", "KMAX_LIMIT", "KMIN"]
