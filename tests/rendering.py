@@ -41,7 +41,7 @@ def compile_latex(table_tex: Path, workdir: Path) -> Path:
     return pdf
 
 
-def _png_pixels(path: Path) -> np.ndarray:
+def png_pixels(path: Path) -> np.ndarray:
     """Grey values in [0, 1] of a PNG (read by matplotlib's image reader)."""
     import matplotlib.image as mpimg
 
@@ -49,18 +49,10 @@ def _png_pixels(path: Path) -> np.ndarray:
     return img[:, :, :3].mean(axis=2)
 
 
-def render_page(html: Path, workdir: Path, height: int = 2400) -> tuple[np.ndarray, str]:
-    """Render a static page in headless Chromium: (grey pixels of a 1000 px wide screenshot,
-    the DOM after rendering)."""
-    chromium = _need("chromium")
-    workdir.mkdir(parents=True, exist_ok=True)
-    shot = workdir / "page.png"
-    flags = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-             "--disable-background-networking", "--disable-component-update", "--disable-sync",
-             f"--user-data-dir={workdir / 'profile'}", "--hide-scrollbars"]
-    url = html.resolve().as_uri()
-    subprocess.run([chromium, *flags, f"--screenshot={shot}", f"--window-size=1000,{height}", url],
-                   capture_output=True, timeout=180, check=True)
-    dom = subprocess.run([chromium, *flags, "--dump-dom", url], capture_output=True, text=True, timeout=180,
-                         check=True).stdout
-    return _png_pixels(shot), dom
+def open_page(html: Path, width: int = 1280):
+    """The page loaded in headless Chromium in a ``width`` px window, driven over the DevTools
+    protocol (:class:`topology.report.browser.Page`): ``with open_page(p) as page:``, then
+    ``page.evaluate(js)`` and ``page.console_errors``."""
+    from topology.report.browser import Page
+
+    return Page(html.resolve().as_uri(), width=width, browser=_need("chromium"), timeout=120)

@@ -10,7 +10,7 @@ import pytest
 
 from topology.circles import predict_circles
 from topology.config import load_config
-from topology.run import plan_from_config, run
+from topology.run import plan_from_config
 from topology.scenario import scenario_from_config
 from topology.significance import global_p_value
 
@@ -19,8 +19,28 @@ ROOT = Path(__file__).resolve().parents[1]
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
-    plan = plan_from_config(load_config(ROOT / "configs" / "demo.toml"), tmp_path_factory.mktemp("demo") / "report")
-    return plan, run(plan)
+    # the README's command, as a batch job runs it: stderr a log file (progress lines, notes),
+    # the page screenshot on (tests/conftest.py turns it off for the other runs of the suite)
+    import contextlib
+    import json
+    import os
+
+    from topology.cli import main
+
+    folder = tmp_path_factory.mktemp("demo")
+    config = ROOT / "configs" / "demo.toml"
+    before = os.environ.get("TOPOLOGY_SCREENSHOT")
+    os.environ["TOPOLOGY_SCREENSHOT"] = "1"
+    try:
+        with open(folder / "stderr.log", "w") as log, contextlib.redirect_stderr(log):
+            assert main(["run", str(config), "--out", str(folder / "report")]) == 0
+    finally:
+        if before is None:
+            os.environ.pop("TOPOLOGY_SCREENSHOT")
+        else:
+            os.environ["TOPOLOGY_SCREENSHOT"] = before
+    plan = plan_from_config(load_config(config), folder / "report")
+    return plan, json.loads((folder / "report" / "summary.json").read_text())
 
 
 def _vec(lonlat):
@@ -106,19 +126,67 @@ def test_isotropic_map_candidates_are_ranked_and_tested_on_s_eq(demo):
     assert len({c["p_value_local"] for c in cands}) > 1 and len({c["p_value"] for c in cands}) > 1
 
 
-def test_report_latex_compiles_and_page_renders(demo, tmp_path):
-    # the report's real parts, as a user has them: pdflatex on bounds.tex, Chromium on the page
-    from rendering import compile_latex, render_page
+def test_report_latex_compiles(demo, tmp_path):
+    from rendering import compile_latex
+
+    plan, summary = demo
+    assert any(m["bounds"] for m in summary["maps"])  # survey-B gives a bound: bounds.tex is a table
+    compile_latex(plan.out_dir / "bounds.tex", tmp_path / "tex")
+
+
+def test_page_leads_with_the_answer_and_fits_a_1280_px_window(demo):
+    # the page as a referee sees it, in headless Chromium at 1,280 px: nothing wider than the
+    # window (a wide table scrolls in its own box), every figure loaded, no console error; the
+    # answer per map before the figures, the figures before the tables; numbers as a reader
+    # writes them
+    from rendering import open_page, png_pixels
 
     plan, summary = demo
     out = plan.out_dir
-    assert any(m["bounds"] for m in summary["maps"])  # survey-B gives a bound: bounds.tex is a table
-    compile_latex(out / "bounds.tex", tmp_path / "tex")
-    grey, dom = render_page(out / "index.html", tmp_path / "page")
-    # candidates, thresholds, efficiency, flat and curved bounds; S_max and sky of both maps, efficiency,
-    # Omega_K; the configured families of [bounds] with their verdicts
-    assert dom.count("<table") == 5 and dom.count("<img") == 6
-    assert "E2 (lengths 1.55, 1.7, 0.8)" in dom and "excluded" in dom and "E1 (lengths 1.8, 1.8, 1.8)" in dom
-    assert "What these results assume" in dom
-    # the figures are drawn: the screenshot is far from a blank page
-    assert grey.shape[1] == 1000 and grey.std() > 0.05 and (grey < 0.5).mean() > 0.01
+    with open_page(out / "index.html", width=1280) as page:
+        assert page.evaluate("document.documentElement.scrollWidth") <= 1280
+        images = page.evaluate("[...document.images].map(i => [i.complete, i.naturalWidth, i.alt])")
+        # S_max and sky of both maps, efficiency, Omega_K
+        assert len(images) == 6 and all(done and width > 0 for done, width, _ in images), images
+        text = page.evaluate("document.body.innerText")
+        order = page.evaluate("['results', 'assumptions', 'figures', 'tables', 'provenance']"
+                              ".map(id => document.getElementById(id).getBoundingClientRect().top)")
+        assert page.console_errors == []
+    assert order == sorted(order)
+    a, b = summary["maps"]
+    answer = text[:text.index("What these results assume")]
+    assert "survey-A: matched circles detected" in answer and "survey-B: no matched circles detected" in answer
+    best = a["candidates"][0]
+    assert f"radius {best['radius_deg']:.1f} deg" in answer and f"S_eq = {best['S_eq']:.4g}" in answer
+    # the headline bounds: the cubic torus (check: Planck 2015 XVIII, R_i > chi_rec cos(alpha_min),
+    # 0.866 at 30 deg) in chi_rec and Mpc, and the verdict of each configured family
+    cubic = b["bounds"]["flat"]["cubic_torus_inscribed_radius_over_chi_rec"]
+    assert f"R_i / chi_rec > {cubic:.4g} ({cubic * b['bounds']['chi_rec_mpc']:,.0f} Mpc)" in answer
+    assert "E2 (lengths 1.55, 1.7, 0.8)\texcluded" in answer
+    assert "E1 (lengths 1.8, 1.8, 1.8)\tallowed" in answer
+    assert "the bound may be stronger; inject lower radii" in answer  # alpha_min at the lowest radius
+    assert "- -" not in text and "[]" not in text and "e+0" not in text
+    assert "sha256" in text and "numpy" in text and '{"' not in text[text.index("Provenance"):].split("Configuration")[0]
+    # the screenshot the run wrote beside the report: the whole page at 1,280 px, not blank
+    grey = png_pixels(out / "page.png")
+    assert grey.shape[1] == 1280 and grey.shape[0] > 2000 and grey.std() > 0.05 and (grey < 0.5).mean() > 0.01
+
+
+def test_batch_log_has_progress_lines_and_the_alpha_min_warning(demo):
+    # stderr a file: a first line, then a line per 5% of the 45 tasks (every 3) with the time
+    # left, and after the report the note that alpha_min is the lowest injected radius
+    import re
+
+    plan, summary = demo
+    lines = (plan.out_dir.parent / "stderr.log").read_text().splitlines()
+    n = len(plan.maps) + plan.n_null + len(summary["calibration"]["families"]) * len(
+        plan.injection_radii_deg) * plan.n_injections  # 2 + 19 + 2 x 2 x 6 = 45
+    assert lines[0] == f"topology run: {n} of {n} tasks to run"
+    done = [re.fullmatch(rf"topology run: (\d+)/{n} tasks done \(\d+%\), .+ elapsed(, about .+ left)?", ln)
+            for ln in lines if " tasks done " in ln]
+    assert all(done) and [int(m.group(1)) for m in done] == [*range(3, n, 3), n]
+    assert all(m.group(2) for m in done[:-1]) and not done[-1].group(2)
+    e1 = summary["calibration"]["families"][0]
+    assert e1["alpha_min_deg"] == min(plan.injection_radii_deg)
+    assert f"note: alpha_min of the injected {e1['label']} is the lowest injected radius (30 deg): the bound may " \
+           "be stronger; inject lower radii" in lines

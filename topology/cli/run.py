@@ -61,7 +61,7 @@ def run(args):
 
         raise InputError(f"must be >= 1, got {args.workers}", "--workers")
     from ..config import naming_file
-    from ..errors import held_notes, quiet_notes
+    from ..errors import held_notes, note, quiet_notes
 
     cfg = load_config(args.config)
     with naming_file(cfg), quiet_notes(args.quiet):
@@ -69,6 +69,10 @@ def run(args):
             plan = plan_from_config(cfg, args.out, engine=args.engine, workers=args.workers,
                                     scheduler=args.scheduler)
         summary = run_plan(plan, force=args.force, resume=args.resume, show_progress=False if args.quiet else None)
+        # the calibration's warnings (no alpha_min possible, alpha_min at the lowest injected
+        # radius) on stderr too, once the report is written: an error before this stays one line
+        for text in summary["calibration"].get("notes", []):
+            note(text)
     tasks = summary["provenance"]["tasks"]
     print(f"report: {plan.out_dir / 'index.html'} (summary.json, tables and figures beside it); "
           f"{tasks['computed']} tasks computed, {tasks['reused_from_store']} reused")

@@ -101,7 +101,8 @@ def figure_efficiency(base: Path, families: list[dict], radii_deg, level: float,
                       confidence: float) -> list[str]:
     """Detection efficiency against radius, one colour per injected family: the recovered
     fraction, bars from its one-sided lower to upper exact binomial limit (Clopper & Pearson
-    1934) at ``confidence``, and each family's alpha_min (where the lower limit reaches the level)."""
+    1934) at ``confidence``, and each family's alpha_min (where the lower limit reaches the level;
+    its legend warns when that is the lowest injected radius, so the true one may be lower)."""
     plt = pyplot()
     fig, ax = plt.subplots(figsize=(7.5, 4.2))
     r = np.asarray(radii_deg, float)
@@ -111,9 +112,10 @@ def figure_efficiency(base: Path, families: list[dict], radii_deg, level: float,
         x = r + (i - 0.5 * (len(families) - 1)) * step  # side by side, not over each other
         eff, lo, hi = (np.asarray(f[k], float) for k in ("efficiency", "efficiency_lower", "efficiency_upper"))
         amin = f["alpha_min_deg"]
+        lowest = " (the lowest injected radius: it may be lower; inject lower radii)" if f.get("at_lowest_radius") else ""
         ax.errorbar(x, eff, yerr=[eff - lo, hi - eff], fmt="o-", ms=4, capsize=2, color=colour,
                     label=f"{f['label']} ({f['kind']} pairs): alpha_min = "
-                          + ("none" if amin is None else f"{amin:.1f} deg"))
+                          + ("none" if amin is None else f"{amin:.1f} deg{lowest}"))
         ax.plot(x, lo, "v", color=colour, ms=5)
         if amin is not None:
             ax.axvline(amin, color=colour, ls=":", lw=1.2)

@@ -21,6 +21,7 @@ missing or stale ones.
 from __future__ import annotations
 
 import json
+import os
 import time
 from dataclasses import replace
 
@@ -30,6 +31,8 @@ from . import output
 from .plan import MapSpec, RunPlan, plan_from_config
 
 __all__ = ["MapSpec", "RunPlan", "build_tasks", "plan_from_config", "run"]
+
+SCREENSHOT_ENV = "TOPOLOGY_SCREENSHOT"  # "0": no page.png beside the report (the test suite sets it)
 
 
 def kind_of(plan: RunPlan):
@@ -118,6 +121,8 @@ def _execute(plan: RunPlan, folder, store, show_progress) -> dict:
     summary = {"maps": analysis.maps, "calibration": analysis.calibration, "caution": kind.caution(plan),
                "provenance": provenance}
 
+    later_notes = []  # said once the report is in place
+
     def write(staging):
         from .. import report
 
@@ -125,8 +130,19 @@ def _execute(plan: RunPlan, folder, store, show_progress) -> dict:
         timings["report_s"] = 0.0
         tables, figures = kind.write_report(plan, analysis, summary, staging)
         report.write_index(staging, summary, tables, figures, summary["caution"])
+        if os.environ.get(SCREENSHOT_ENV, "1") != "0":  # page.png, when a Chromium is installed
+            from ..report.browser import screenshot
+
+            problem = screenshot(staging / "index.html", staging / "page.png")
+            if problem:
+                later_notes.append(problem)
         timings["report_s"] = time.perf_counter() - t2
         timings["total_s"] = time.perf_counter() - t0
         (staging / "provenance.json").write_text(json.dumps(provenance, indent=1, default=output.json_default))
 
-    return output.publish(folder.path, write, lambda: summary)
+    published = output.publish(folder.path, write, lambda: summary)
+    for text in later_notes:  # after the report is in place: an error before it stays one line
+        from ..errors import note
+
+        note(text)
+    return published

@@ -167,9 +167,6 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
                                                                 extra_caption=exclusion_caption(plan)))
         tables["bounds: flat spaces"] = ft
         tables["bounds: curved spaces"] = bt
-        fig = report.figure_omega_k(staging / "omega_k", first_bounds)
-        if fig:
-            figures["Omega_K allowed for spherical spaces"] = fig
     else:
         no_bound = "no bound: every map was detected or the efficiency never reached the level\n"
         (staging / "bounds.ecsv").write_text("# " + no_bound)
@@ -186,6 +183,9 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
     figures["detection efficiency"] = report.figure_efficiency(
         staging / "efficiency", families, plan.injection_radii_deg, calibration["efficiency_level"], plan.false_alarm,
         calibration["efficiency_confidence"])
+    fig = report.figure_omega_k(staging / "omega_k", first_bounds) if first_bounds is not None else None
+    if fig:  # after the maps' figures and the efficiency it rests on
+        figures["Omega_K allowed for spherical spaces"] = fig
     return tables, figures
 
 
