@@ -54,15 +54,13 @@ def injection_tasks(plan) -> list[tuple[str, int, float]]:
 def family_efficiencies(plan, store, whole_range: np.ndarray) -> list[dict]:
     """Efficiency and alpha_min of every injected family. An injection is recovered when S_max
     within the radius tolerance of its nominal radius exceeds the whole-range threshold."""
-    radii = plan.radii_deg
-    tolerance = float(plan.significance["radius_tolerance_deg"])
     level, confidence = plan.efficiency_level, plan.efficiency_confidence
     inj_radii = plan.injection_radii_deg
     out = []
     for info in family_info(plan):
         recovered = np.zeros((plan.n_injections, len(inj_radii)), dtype=bool)
         for k, r in enumerate(inj_radii):
-            near = np.abs(radii - r) <= tolerance + 1e-9
+            near = T.radii_near(plan, r)
             for j in range(plan.n_injections):
                 s = np.asarray(store.get(T.injection_id(info["key"], r, j))["s_max"])
                 recovered[j, k] = bool(np.any(s[near] > whole_range[near]))

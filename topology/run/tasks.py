@@ -86,14 +86,27 @@ def search_settings(plan):
     return SearchSettings(**{k: (tuple(v) if isinstance(v, list) else v) for k, v in plan.search.items()})
 
 
-def search_values(values, plan, source: str, scenario=None) -> dict:
-    """Search a map (a SkyMap or a RING array) with the run's settings and mask."""
+def search_values(values, plan, source: str, scenario=None, radii_deg=None) -> dict:
+    """Search a map (a SkyMap or a RING array) with the run's settings and mask; ``radii_deg``
+    (default: the run's radii) restricts the scan."""
+    import dataclasses
+
     from ..maps import as_skymap
     from ..search.engine import search_sky
 
     sky = values if hasattr(values, "observed") else as_skymap(values, source=source)
     mask = run_mask(plan.mask, sky.nside)
-    return search_sky(sky, mask, search_settings(plan), scenario=scenario, show_progress=False, map_name=source)
+    settings = search_settings(plan)
+    if radii_deg is not None:
+        settings = dataclasses.replace(settings, radii_deg=tuple(float(r) for r in radii_deg))
+    return search_sky(sky, mask, settings, scenario=scenario, show_progress=False, map_name=source)
+
+
+def radii_near(plan, radius_deg: float) -> np.ndarray:
+    """Mask of the run's radii within ``radius_tolerance_deg`` of ``radius_deg``: where an injected
+    circle of that nominal radius counts as found."""
+    tolerance = float(plan.significance["radius_tolerance_deg"])
+    return np.abs(plan.radii_deg - radius_deg) <= tolerance + 1e-9
 
 
 def smax_by_radius(result: dict, radii: np.ndarray) -> np.ndarray:
@@ -201,7 +214,10 @@ def task_injection(plan, family: int, radius_deg: float, task_id: str) -> dict:
     space, observer, cosmo_inj = injection.scaled(plan.significance["injection_families"][family], radius_true, rng,
                                                   run_cosmology(plan))
     m = simulate(plan, space, observer, cosmo_inj, seed)
-    res = search_values(m, plan, task_id)
+    # only the radii where it counts as found are searched (each radius is searched on its own, so
+    # S_max there is what a scan of every radius gives); the others stay -inf
+    near = plan.radii_deg[radii_near(plan, radius_deg)]
+    res = search_values(m, plan, task_id, radii_deg=near) if near.size else {"s_max": [], "elapsed_s": 0.0}
     return {"s_max": smax_by_radius(res, plan.radii_deg), "radius_deg": float(radius_deg),
             "radius_true_deg": radius_true, "seed": seed, "elapsed_s": res["elapsed_s"],
             "omega_k": float(cosmo_inj.omega_k)}
