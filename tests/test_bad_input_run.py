@@ -163,3 +163,21 @@ def test_version_and_every_help_has_an_example(capsys):
             main([cmd, "--help"])
         text = capsys.readouterr().out
         assert f"example: topology {cmd}" in text, cmd
+
+
+
+def test_null_and_injected_terms_must_agree():
+    # spherical skies are Sachs-Wolfe only: with full-physics nulls (SW, Doppler, ISW) their
+    # injections would differ from the nulls in more than the topology; refused at plan time
+    # (before any output), naming the injected family; with SW nulls the same family plans
+    from topology.errors import InputError
+
+    data = json.loads(json.dumps(SMALL))
+    data["instrument"]["terms"] = ["sw", "doppler", "isw"]
+    data["significance"]["injection_families"] = ["E1", {"family": "lens", "p": 8, "q": 1}]
+    with pytest.raises(InputError) as err:
+        plan_from_config(config_from_dict(data))
+    assert "spherical skies" in err.value.reason and "\n" not in str(err.value)
+    assert err.value.where == "[significance] injection_families #2"
+    data["instrument"]["terms"] = ["sw"]
+    assert plan_from_config(config_from_dict(data)).instrument["terms"] == ("sw",)

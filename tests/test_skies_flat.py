@@ -126,7 +126,8 @@ def sw_circles_match(space, label):
     radius. Returns the sky."""
     pairs = predict_circles(space, OBSERVER, 1.0)
     assert pairs
-    sky = flat_sky(space, OBSERVER, COSMO, lmax=40, nside=64, method="eigenmode", seed=11, kchi_max=24.0)
+    sky = flat_sky(space, OBSERVER, COSMO, lmax=40, nside=64, method="eigenmode", seed=11, kchi_max=24.0,
+                   complete=False)
     m = hp.alm2map(sky.alm, 64, lmax=40)
     rng = np.random.default_rng(4)
     phi = np.linspace(0.0, 2.0 * np.pi, 256, endpoint=False)
@@ -218,8 +219,10 @@ def test_grid_agrees_with_eigenmode(family, lengths):
     # same seed -> same amplitudes -> the two methods give the same sky (issue requirement
     # corr > 0.99; the B-spline NUFFT error at the default oversampling is ~1%, Beylkin 1995)
     space = build_space({"family": family, "lengths": lengths})
-    eig = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="eigenmode", seed=9, kchi_max=30.0)
-    grd = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="grid", seed=9, kchi_max=30.0)
+    eig = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="eigenmode", seed=9, kchi_max=30.0,
+                   complete=False)
+    grd = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="grid", seed=9, kchi_max=30.0,
+                   complete=False)
     me = hp.alm2map(eig.alm, 32, lmax=48)
     assert _pearson(me, grd.map) > 0.999
     assert np.std(grd.map - me) < 0.03 * np.std(me)
@@ -230,11 +233,13 @@ def test_grid_converges_with_oversampling():
     # B-spline interpolation falls as (1 / (2 sigma - 1))^4 with the oversampling sigma;
     # reference: the exact eigenmode sky of the same modes.
     space = build_space({"family": "E1", "lengths": [1.6, 1.5, 1.7]})
-    eig = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="eigenmode", seed=2, kchi_max=30.0)
+    eig = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="eigenmode", seed=2, kchi_max=30.0,
+                   complete=False)
     me = hp.alm2map(eig.alm, 32, lmax=48)
     errs = []
     for ov in (1.1, 1.5, 2.0, 3.0):
-        g = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="grid", seed=2, kchi_max=30.0, oversample=ov)
+        g = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="grid", seed=2, kchi_max=30.0, oversample=ov,
+                     complete=False)
         errs.append(np.std(g.map - me) / np.std(me))
     assert all(a > b for a, b in zip(errs, errs[1:]))
     assert errs[0] < 0.03 and errs[2] < 2e-3 and errs[3] < 5e-4
@@ -341,7 +346,7 @@ def test_full_terms_sky_spectrum_and_degraded_circles():
     obs = geo.Observer.make("flat", [0.3, 1.1, -2.0])
     lmax = 8
     cls = np.array([_cl(flat_sky(space, obs, COSMO, lmax=lmax, method="eigenmode", seed=s, kchi_max=40.0,
-                                 terms=FULL).alm, lmax) for s in range(3)])
+                                 terms=FULL, complete=False).alm, lmax) for s in range(3)])
     _, k, _ = flat_modes.half_ball_modes(space, 40.0)
     kn = np.linalg.norm(k, axis=1)
     sig2 = flat_modes.mode_sigma(kn, COSMO, space.covering_cell_volume) ** 2
@@ -358,7 +363,7 @@ def test_full_terms_sky_spectrum_and_degraded_circles():
     corr = {}
     for terms in (("sw",), FULL):
         sky = flat_sky(torus, OBSERVER, COSMO, lmax=60, nside=64, method="eigenmode", seed=11, kchi_max=40.0,
-                       terms=terms)
+                       terms=terms, complete=False)
         m = hp.alm2map(sky.alm, 64, lmax=60)
         corr[terms] = [_pearson(_interp(m, circle_points(p.center_a, p.radius, phi)),
                                 _interp(m, circle_points(p.center_b, p.radius, p.orientation * phi + p.twist)))
@@ -378,12 +383,13 @@ def test_full_terms_need_the_eigenmode_method():
 def test_quadratic_spline_grid_also_agrees():
     # the quadratic B-spline (deconvolved by sinc^3; Beylkin 1995) trades accuracy for speed
     space = build_space({"family": "E1", "lengths": [1.6, 1.5, 1.7]})
-    eig = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="eigenmode", seed=2, kchi_max=30.0)
+    eig = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="eigenmode", seed=2, kchi_max=30.0,
+                   complete=False)
     me = hp.alm2map(eig.alm, 32, lmax=48)
     err = {}
     for order in (2, 3):
         g = flat_sky(space, OBSERVER, COSMO, lmax=48, nside=32, method="grid", seed=2, kchi_max=30.0,
-                     spline_order=order)
+                     spline_order=order, complete=False)
         err[order] = np.std(g.map - me) / np.std(me)
     assert err[3] < err[2] < 0.05
     with pytest.raises(InputError):

@@ -303,6 +303,7 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
         raise InputError(f"injection radii {injection_radii.min():g}..{injection_radii.max():g} deg lie outside the "
                          f"searched radii {radii.min():g}..{radii.max():g} deg", "[significance] injection_radii")
     significance["injection_families"] = injection_families(cfg)
+    check_run_terms(terms, cosmo, significance["injection_families"], targets, maps)
     if targets:
         targeted.check_injectable(targets, cfg.section("cosmology"), cfg.base_dir, sim_lmax)
     else:
@@ -348,6 +349,42 @@ def injection_families(cfg: Config) -> list[dict]:
         except InputError as e:
             raise InputError(e.reason, "[significance] injection_family") from None
     return injection.injection_specs(cfg.get("significance", "injection_families"))
+
+
+def check_run_terms(terms: tuple, cosmo, families: list[dict], targets: list[dict], maps: list[MapSpec]) -> None:
+    """One spectrum and one set of terms for every simulated sky of a run: the null skies
+    (isotropic, ``[instrument] terms``), the injected families, the targets and the inline data
+    skies must all be able to make exactly those terms (:data:`topology.skies.SKY_TERMS`), and
+    the full terms need CAMB (or, for the default cosmology, the shipped table for isotropic
+    skies; flat skies need CAMB's transfer). One-line InputError otherwise, before any work."""
+    from .. import injection
+    from ..skies import check_sky_terms
+    from ..skies.spectra import have_camb, is_default_cosmology
+    from ..spaces.registry import geometry_of
+    from . import targeted
+
+    kinds = []
+    for k, spec in enumerate(families):
+        kinds.append((injection.spec_geometry(spec), tuple(terms), f"{injection.WHERE} #{k + 1}"))
+    for i, t in enumerate(targets):
+        kinds.append((geometry_of(t["family"]), tuple(terms), f"{targeted.WHERE} #{i + 1}"))
+    for i, m in enumerate(maps):
+        if m.inline:
+            own = tuple(m.inline.get("sky", {}).get("terms", terms))
+            family = m.inline["space"].get("family")
+            kinds.append(("isotropic" if family == "isotropic" else geometry_of(family), own,
+                          f"[[maps]] #{i + 1} (inline sky)"))
+    for kind, t, where in kinds:
+        check_sky_terms(kind, t, where)
+    if set(terms) != {"sw"} and not have_camb():
+        if not is_default_cosmology(cosmo):
+            raise InputError("without camb the Doppler and ISW terms exist only for the default cosmology (the "
+                             "shipped CAMB table): pip install 'topology[spectra]' or give terms = [\"sw\"]",
+                             "[instrument] terms")
+        flat = [where for kind, t, where in kinds if kind == "flat" and set(t) != {"sw"}]
+        if flat:
+            raise InputError("flat skies with Doppler and ISW need CAMB's transfer functions: pip install "
+                             "'topology[spectra]' or give [instrument] terms = [\"sw\"]", flat[0])
 
 
 def reachable_note(n_injections: int, level: float, confidence: float) -> str | None:

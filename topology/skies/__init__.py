@@ -30,7 +30,30 @@ from ..errors import InputError
 from .base import TERMS, Sky
 
 __all__ = ["Sky", "TERMS", "SynthResult", "sky_params", "sky_from_config", "synthesize",
-           "AUTO_EIGENMODE_LMAX", "default_kmax"]
+           "AUTO_EIGENMODE_LMAX", "default_kmax", "SKY_TERMS", "check_sky_terms"]
+
+#: the sets of temperature terms each kind of sky makes (every set with "sw"): isotropic skies
+#: (analytic SW, or CAMB's unlensed TT / the shipped table), flat skies (analytic SW, or CAMB's
+#: line-of-sight transfer, both methods), spherical skies (SW only). A run's null and injected
+#: skies share one set (run.plan checks it); a generator that gains terms is listed here.
+SKY_TERMS = {
+    "isotropic": (("sw",), ("sw", "doppler", "isw")),
+    "flat": (("sw",), ("sw", "doppler", "isw")),
+    "spherical": (("sw",),),
+}
+
+
+def check_sky_terms(kind: str, terms, where: str) -> None:
+    """InputError (one line, at ``where``) unless skies of ``kind`` ("isotropic", "flat",
+    "spherical", "hyperbolic") make exactly the temperature terms ``terms``."""
+    t = tuple(x for x in TERMS if x in set(terms))
+    sets = SKY_TERMS.get(kind, ())
+    if t in sets:
+        return
+    have = " or ".join(str(list(s)) for s in sets) or "none"
+    raise InputError(f"{kind} skies have the terms {have}, not {list(t)}: the null and injected skies of a run "
+                     f"must share one set of terms; give [instrument] terms = {list(sets[0]) if sets else []} or "
+                     f"inject another family", where)
 
 #: flat "auto" method: eigenmode sum up to this lmax, grid above (the rule lives in skies.flat)
 from .flat import AUTO_LMAX as AUTO_EIGENMODE_LMAX  # noqa: E402

@@ -45,12 +45,13 @@ class Sky:
         return "alm" if self.alm is not None else "map"
 
 
-#: named random streams spawned from one seed (numpy SeedSequence.spawn children)
-STREAMS = {"signal": 0, "noise": 1}
+#: named random streams spawned from one seed (numpy SeedSequence.spawn children); "tail": the
+#: isotropic complement of a flat sky's wave-number cut (topology.skies.flat_cut)
+STREAMS = {"signal": 0, "noise": 1, "tail": 2}
 
 
 def stream_rng(seed, stream: str) -> np.random.Generator:
-    """The Generator of one named stream ("signal" or "noise") of ``seed``.
+    """The Generator of one named stream ("signal", "noise" or "tail") of ``seed``.
 
     Each stream is a distinct child of ``SeedSequence(seed)`` (numpy's spawn), so the noise
     never repeats or correlates with the signal of the same seed. ``seed`` is an int >= 0.

@@ -7,10 +7,26 @@ The flow: the space's Gamma-invariant modes and their Gaussian amplitudes
 sampled at the pixel centres (:mod:`topology.skies.flat_grid`). Both methods draw the same
 amplitude for the same mode from the same seed.
 
-Modes kept: 0 < k chi_rec <= kchi_max (default ``lmax``). The SW C_l of the kept modes is
-complete to about l^2 / (2 kchi_max^2) for l << kchi_max (the tail of int dx/x j_l(x)^2 beyond
-x = kchi_max; common practice), so the top multipoles of a sky with kchi_max = lmax lack
-power; raise ``kchi_max`` for a complete spectrum at high l.
+Modes kept and the complement. The lattice modes 0 < k chi_rec <= K (the cut, :func:`choose_cut`;
+tapered over its last 8, :func:`topology.skies.flat_modes.cut_weight`) plus, unless
+``complete=False``, the isotropic Gaussian field of the power the cut leaves out, C_l - C_l(K)
+(:mod:`topology.skies.flat_cut`): the continuum power of the modes beyond K, from the same
+spectrum function as the isotropic null skies, drawn from the "tail" stream of the seed (a_lm to
+lmax). The expected C_l is then the isotropic one at every l <= lmax (to 1e-3 for E1 of side 4
+chi_rec, tests/test_skies_flat_cut.py), apart from the lattice's discreteness at low l, which
+is the topology. A cut alone would need K ~ 7 lmax for 1 % at l = lmax (SW;
+:func:`topology.skies.flat_cut.cut_for_accuracy`), ~350 times the modes of K = lmax.
+
+Default cut: K = lmax for the eigenmode method (its cost, modes x a_lm, is already seconds at
+lmax 64). For the grid the pure cut, capped by the pixels (:func:`pixel_cut`: the sampled map
+holds l up to about K, and power beyond 3 N_side would alias in the harmonic transform) and by
+the cost (at most GRID_CELLS_PER_PIXEL grid cells per pixel, the grid of the speed target), never
+below lmax: K ~ lmax at the speed target (N_side 256, l_max 512, side 1.6 chi_rec), about
+1.35 lmax at lmax = 2 N_side where the grid is small against the pixels (e.g. N_side 64 and
+sides below ~2 chi_rec). The complement lacks the matched-circle correlations of the modes it
+stands for: with K = lmax the correlation of the two circles of a pair is lower than with
+every mode by a few hundredths, with K = 1.5 lmax by < 0.01 for radii below ~65 deg
+(benchmarks/flat_sky_spectrum.py).
 
 Temperature terms:
 
@@ -19,9 +35,10 @@ Temperature terms:
   1967, common practice), T = T_cmb of the cosmology, in microK. It matches exactly on
   circle pairs.
 * ["sw", "doppler", "isw"] (eigenmode method only, needs camb): CAMB's line-of-sight
-  temperature transfer in place of j_l (:mod:`topology.skies.flat_eigenmode`). CAMB does not
-  separate the terms, so other term sets raise InputError; the grid method (one thin shell of
-  one 3-D field) makes SW skies only.
+  temperature transfer in place of j_l (:mod:`topology.skies.flat_eigenmode`); the complement
+  then has CAMB's unlensed C_l (or the shipped table) minus the transfer integral to K. CAMB
+  does not separate the terms, so other term sets raise InputError; the grid method (one thin
+  shell of one 3-D field) makes SW skies only.
 
 Methods: ``eigenmode`` -> an alm-type Sky (l <= lmax); ``grid`` -> a map-type Sky at ``nside``
 (the field sampled at the pixel centres, no pixel window); ``auto`` -> eigenmode for
@@ -50,15 +67,76 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..bandlimit import check_band_limit
+from ..bandlimit import check_band_limit, lmax_limit
 from ..errors import InputError
-from .base import TERMS, Sky
+from .base import TERMS, Sky, stream_rng
 from .flat_eigenmode import eigenmode_alm
 from .flat_grid import grid_map
 from .flat_modes import check_space, compact_cover
 
 METHODS = ("eigenmode", "grid", "auto")
 AUTO_LMAX = 64             # method "auto": eigenmode up to this lmax, grid above
+#: grid cost bound of the default cut: cells per pixel of N_side (E1 of side 1.6 chi_rec at
+#: N_side 256, l_max 512, the speed target of benchmarks/flat_sky_speed.py, has 320^3 cells, 42
+#: per pixel)
+GRID_CELLS_PER_PIXEL = 42.0
+
+
+def pixel_cut(nside: int) -> float:
+    """The largest cut K whose sky the pixels of N_side hold: a mode k projects onto l up to
+    about k chi_rec + 4 (k chi_rec)^(1/3) (j_l(x) < 2e-4 of its peak beyond), and a map with
+    power up to 3 N_side - 1 goes to a_lm (l <= 2 N_side) within 1e-3 of the power (healpy
+    map2alm, measured), while power beyond 3 N_side aliases by per cents."""
+    top = float(lmax_limit(int(nside)))
+    k = top
+    for _ in range(20):                    # K + 4 K^(1/3) = 3 N_side - 1
+        k = top - 4.0 * k ** (1.0 / 3.0)
+    return max(k, 1.0)
+
+
+def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, terms, oversample: float = 1.2) -> float:
+    """The default cut K (k chi_rec) of a flat sky; see the module doc.
+
+    eigenmode: lmax. grid: max(lmax, min(K_pure, K_pix, K_cost)), K_pix of :func:`pixel_cut`,
+    K_pure the cut that alone
+    holds C_lmax to CL_ACCURACY (:func:`topology.skies.flat_cut.cut_for_accuracy`), K_cost the
+    largest cut whose grid has at most GRID_CELLS_PER_PIXEL x 12 N_side^2 cells.
+    """
+    from .flat_cut import cut_for_accuracy
+    from .flat_grid import grid_shape
+
+    lmax = int(lmax)
+    k_pix = pixel_cut(nside) if nside is not None else 0.0
+    if method != "grid" or k_pix <= lmax:
+        return float(lmax)
+    cells = GRID_CELLS_PER_PIXEL * 12 * nside * nside
+
+    def fits(k):
+        return float(np.prod(grid_shape(space, k, oversample), dtype=float)) <= cells
+
+    if not fits(float(lmax) + 1.0):
+        return float(lmax)
+    hi = min(k_pix, cut_for_accuracy(cosmology, lmax, tuple(terms)))
+    if fits(hi):
+        return hi
+    lo = float(lmax)
+    while hi - lo > 0.5:
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if fits(mid) else (lo, mid)
+    return lo
+
+
+def complement(cosmology, lmax: int, kchi: float, terms, seed: int) -> tuple[np.ndarray, float]:
+    """(a_lm to lmax, healpy order; share of C_lmax): the isotropic field of the power beyond the
+    cut (:func:`topology.skies.flat_cut.complement_cl`), drawn from the "tail" stream of ``seed``."""
+    from .flat_cut import complement_cl
+    from .isotropic import gaussian_alm
+    from .spectra import isotropic_cl
+
+    cl = complement_cl(cosmology, lmax, kchi, terms)
+    iso = isotropic_cl(cosmology, lmax, terms)
+    share = float(cl[lmax] / iso[lmax]) if lmax >= 2 and iso[lmax] > 0 else 0.0
+    return gaussian_alm(cl, stream_rng(seed, "tail")), share
 
 
 def _check_inputs(lmax, nside, method, terms, kchi_max, oversample):
@@ -83,22 +161,24 @@ def _check_inputs(lmax, nside, method, terms, kchi_max, oversample):
         raise InputError(f"flat multiply connected skies take [\"sw\"] (analytic Sachs-Wolfe) or "
                          f"[\"sw\", \"doppler\", \"isw\"] (CAMB transfer), got {list(terms)}", "[sky] terms")
     terms = tuple(t for t in TERMS if t in terms)
-    kchi = float(lmax if kchi_max is None else kchi_max)
-    if not np.isfinite(kchi) or kchi <= 0:
+    if kchi_max is not None and not (np.isfinite(float(kchi_max)) and float(kchi_max) > 0):
         raise InputError(f"kchi_max must be positive, got {kchi_max}", "[sky] lmax")
     if not 1.0 <= float(oversample) <= 8.0:
         raise InputError(f"oversample must be in [1, 8], got {oversample}", "[sky] method")
-    return lmax, nside, terms, kchi
+    return lmax, nside, terms
 
 
 def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None, method: str = "auto",
              terms=("sw",), seed: int = 0, kchi_max: float | None = None, oversample: float = 1.2,
-             spline_order: int = 3, workers: int | None = None, free_length: float | None = None) -> Sky:
+             spline_order: int = 3, workers: int | None = None, free_length: float | None = None,
+             complete: bool = True) -> Sky:
     """Sky of a flat space E1-E17 seen by ``observer`` (microK, see the module doc).
 
     space: topology.spaces.euclidean.FlatSpace (lengths in chi_rec); observer: flat Observer
     (position in chi_rec; sky direction n points along frame[:3] @ n); cosmology: T_cmb,
-    chi_rec_mpc. kchi_max: largest k chi_rec kept (default lmax). method "eigenmode" -> alm Sky
+    chi_rec_mpc. kchi_max: largest k chi_rec kept (default :func:`choose_cut`); ``complete``: add
+    the isotropic complement of the power beyond it (module doc; meta "complement_lmax" is its
+    share of C_lmax). method "eigenmode" -> alm Sky
     (l <= lmax), "grid" -> map Sky at nside, "auto" -> eigenmode for lmax <= 64 or for the CAMB
     terms, else grid. Grid only: oversample (grid cells per shortest half-wavelength),
     spline_order 3 (cubic B-spline, 64 taps) or 2 (quadratic, 27 taps: ~2x faster sampling,
@@ -109,7 +189,7 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
     """
     if spline_order not in (2, 3):
         raise InputError(f"spline_order must be 2 or 3, got {spline_order!r}", "[sky] method")
-    lmax, nside, terms, kchi = _check_inputs(lmax, nside, method, terms, kchi_max, oversample)
+    lmax, nside, terms = _check_inputs(lmax, nside, method, terms, kchi_max, oversample)
     check_space(space)
     if observer.geometry != "flat":
         raise InputError(f"a flat space needs a flat observer, got {observer.geometry!r}", "[observer] position")
@@ -126,6 +206,8 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
                          "terms need the line-of-sight transfer of the eigenmode method", "[sky] method")
     if method == "grid" and nside is None:
         raise InputError("the grid method needs nside", "[sky] nside")
+    kchi = float(kchi_max) if kchi_max is not None else choose_cut(space, cosmology, lmax, nside, method, terms,
+                                                                    oversample)
     x_obs = np.asarray(observer.point[:3], dtype=float)
     F = np.asarray(observer.frame[:3, :], dtype=float)  # columns: sky axes in space coordinates
     meta = {"family": given.family, "params": dict(given.params), "seed": int(seed), "kchi_max": kchi,
@@ -135,7 +217,15 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
     if method == "eigenmode":
         alm, n_modes = eigenmode_alm(space, cosmology, seed, kchi, lmax, x_obs, F, transfer=full)
         meta.update(method="eigenmode", n_modes=n_modes, transfer="camb" if full else "sachs-wolfe")
+        if complete:
+            extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed)
+            alm += extra
         return Sky(lmax=lmax, alm=alm, nside=nside, terms=terms, meta=meta)
     sky, shape = grid_map(space, cosmology, seed, kchi, x_obs, F, nside, oversample, workers, spline_order)
+    if complete:
+        import healpy as hp
+
+        extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed)
+        sky += hp.alm2map(extra, nside, lmax=lmax)
     meta.update(method="grid", grid=shape, oversample=float(oversample), spline_order=int(spline_order))
     return Sky(lmax=lmax, map=sky, nside=nside, terms=terms, meta=meta)

@@ -24,7 +24,7 @@ import numpy as np
 from scipy.special import spherical_jn
 
 from ..errors import InputError
-from .flat_modes import index_bounds, invariant_coefficients
+from .flat_modes import cut_weight, index_bounds, invariant_coefficients
 
 MAX_EIGEN_WORK = 2.0e9     # eigenmode guard: (modes in the half ball) x (a_lm with m >= 0)
 MODE_BLOCK = 8192          # modes per block of the eigenmode sum
@@ -108,7 +108,8 @@ def eigenmode_alm(space, cosmology, seed: int, kchi_max: float, lmax: int, x_obs
     """(a_lm, number of modes): the sky of the compact flat ``space`` seen from ``x_obs`` (chi_rec)
     with sky axes ``frame`` (columns, space coordinates), healpy order, l <= lmax, microK.
 
-    The modes 0 < |k| chi_rec <= kchi_max of :func:`invariant_coefficients` (seed ``seed``); the
+    The modes 0 < |k| chi_rec <= kchi_max of :func:`invariant_coefficients` (seed ``seed``),
+    weighted by :func:`~topology.skies.flat_modes.cut_weight`; the
     number of modes counts both q and -q. ``transfer``: CAMB's line-of-sight transfer instead of
     j_l (the terms sw, doppler, isw; see the module doc). InputError when the work exceeds
     MAX_EIGEN_WORK.
@@ -118,6 +119,7 @@ def eigenmode_alm(space, cosmology, seed: int, kchi_max: float, lmax: int, x_obs
         raise InputError(f"the eigenmode method would need {work:.2e} mode x a_lm products (limit "
                          f"{MAX_EIGEN_WORK:.0e}); lower lmax or use method = \"grid\"", "[sky] lmax")
     n, k, c = invariant_coefficients(space, cosmology, seed, kchi_max)
+    c = c * cut_weight(np.linalg.norm(k, axis=1), kchi_max)
     coef = c * np.exp(1j * (k @ x_obs))      # e^{i q.(x_obs + r n)}
     k_sky = k @ frame                         # (F^T q) components in the sky frame
     radial = None

@@ -42,8 +42,8 @@ from scipy import ndimage
 
 from ..errors import InputError
 from .flat_modes import (
-    BLOCK, block_gaussians, hermitian_plane, index_blocks, index_bounds, invariant_coefficients, sw_sigma_constant,
-    thread_count,
+    BLOCK, block_gaussians, cut_weight, hermitian_plane, index_blocks, index_bounds, invariant_coefficients,
+    sw_sigma_constant, taper_width, thread_count,
 )
 from .spectra import N_S
 
@@ -102,8 +102,9 @@ def _integer_form(G: np.ndarray, m, max_table: int = 1 << 22):
 def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, workers: int | None = None,
                          order: int = 3) -> np.ndarray:
     """Half spectrum (complex64 (N1, N2, N3//2 + 1), index n mod N) of the torus E1 for the grid:
-    -sigma(k) z_n / B^(n) with B^ the B-spline transform, zero outside 0 < |k| <= kchi_max
-    (the ball of :func:`~topology.skies.flat_modes.half_ball_modes`).
+    -sigma(k) w(k) z_n / B^(n) with B^ the B-spline transform and w the taper of
+    :func:`~topology.skies.flat_modes.cut_weight`, zero outside 0 < |k| <= kchi_max (the ball of
+    :func:`~topology.skies.flat_modes.half_ball_modes`).
 
     Block by block: each block's normals (:func:`~topology.skies.flat_modes.block_gaussians`,
     the stream of the eigenmode method) are scaled by sigma and written once into the spectrum;
@@ -127,13 +128,14 @@ def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, wo
     dec = [_bspline_deconv(idx[0], N1, order), _bspline_deconv(idx[1], N2, order),
            _bspline_deconv(idx[2], N3, order)]
     lim = kchi_max**2 * (1 + 1e-12)
+    edge2 = (kchi_max - taper_width(kchi_max)) ** 2
     power = (N_S - 4.0) / 4.0
     form = _integer_form(G, m)
     if form is not None:
         g, S, s_box = form
         table = np.zeros(s_box + 1)
         sv = np.arange(1, s_box + 1, dtype=float)
-        table[1:] = np.where(g * sv <= lim, scale * (g * sv) ** power, 0.0)
+        table[1:] = np.where(g * sv <= lim, scale * (g * sv) ** power * cut_weight(np.sqrt(g * sv), kchi_max), 0.0)
         table = table.astype(np.float32)
         diag = [(S[d, d] * idx[d] ** 2).astype(np.int32) for d in range(3)]
         cross = [(a, c, int(2 * S[a, c])) for a, c in ((0, 1), (0, 2), (1, 2)) if S[a, c] != 0]
@@ -168,6 +170,9 @@ def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, wo
             k2[k2 > lim] = np.inf                     # inf^power = 0 (power < 0)
             sig = k2.astype(np.float32)
             np.power(sig, np.float32(power), out=sig)
+            taper = k2 > edge2                        # the taper zone below the cut
+            if taper.any():
+                sig[taper] *= cut_weight(np.sqrt(k2[taper]), kchi_max).astype(np.float32)
         sig *= bcast(dec[0], 0, t)
         sig *= bcast(dec[1], 1, t) * bcast(dec[2], 2, t)
         # a block never straddles n = 0, so it lands contiguously at n mod N
@@ -197,7 +202,8 @@ def mode_list_spectrum(space, cosmology, seed: int, kchi_max: float, shape, work
     B-spline transform)."""
     N1, N2, N3 = shape
     spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
-    n, _, c = invariant_coefficients(space, cosmology, seed, kchi_max, workers)
+    n, k, c = invariant_coefficients(space, cosmology, seed, kchi_max, workers)
+    c = c * cut_weight(np.linalg.norm(k, axis=1), kchi_max)
     c = c * (_bspline_deconv(n[:, 0], N1, order) * _bspline_deconv(n[:, 1], N2, order)
              * _bspline_deconv(n[:, 2], N3, order))
     spec[n[:, 0] % N1, n[:, 1] % N2, n[:, 2]] = c

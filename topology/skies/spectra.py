@@ -25,6 +25,7 @@ Spectra (all C_l in microK^2, thermodynamic, l = 0..lmax, C_0 = C_1 = 0):
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 from importlib import resources
 
 import numpy as np
@@ -130,16 +131,25 @@ def camb_cl(cosmology, lmax: int, terms=FULL_TERMS, A_s: float = A_S, n_s: float
                          "[sky] terms")
     if not have_camb():
         raise InputError("camb is not installed: pip install 'topology[spectra]'", "[sky] terms")
-    import camb
-
     lcalc = max(int(lmax), CAMB_LMAX_CALC)
-    pars = camb_params(cosmology, lcalc, A_s, n_s, k_pivot)
-    results = camb.get_results(pars)
-    cls = results.get_unlensed_scalar_cls(lmax=lcalc, CMB_unit="muK", raw_cl=True)
+    cls = _camb_tt(cosmology, lcalc, float(A_s), float(n_s), float(k_pivot))
     cl = np.zeros(int(lmax) + 1)
-    cl[: cls.shape[0]] = cls[: int(lmax) + 1, 0]
+    cl[: min(len(cls), int(lmax) + 1)] = cls[: int(lmax) + 1]
     cl[:2] = 0.0
     return cl
+
+
+@lru_cache(maxsize=4)
+def _camb_tt(cosmology, lcalc: int, A_s: float, n_s: float, k_pivot: float) -> np.ndarray:
+    """CAMB's unlensed TT to ``lcalc`` (microK^2), once per process for each cosmology: every
+    null sky and every flat sky's complement of a run asks for the same spectrum."""
+    import camb
+
+    pars = camb_params(cosmology, lcalc, A_s, n_s, k_pivot)
+    cls = camb.get_results(pars).get_unlensed_scalar_cls(lmax=lcalc, CMB_unit="muK", raw_cl=True)
+    out = np.array(cls[:, 0])
+    out.setflags(write=False)
+    return out
 
 
 def read_table(path=None):
