@@ -12,6 +12,7 @@ One module a step, each importing only those above it:
     prepare.py   check_resolution, monopole/dipole fit (normal equations), filter f_l,
                  the working mask, harmonic degrading: prepare_map -> PreparedMap
     polarised.py read_iqu: I, Q, U columns of one file, the Q/U convention (POLCCONV or given)
+    emode.py     the E-mode map of Q, U on a masked sky (apodised mask, harmonic E), E/B leakage
 
 Every name below can be imported from ``topology.maps``. The block sizes,
 ``topology.maps.pixels.CHUNK`` (pixels) and ``topology.maps.read.READ_BYTES`` (rows of a file),
