@@ -12,7 +12,8 @@ from scipy import stats
 from topology import geometry as geo
 from topology.cosmology import Cosmology
 from topology.harmonic import alm_to_real, ells, n_coefficients, real_harmonics, real_to_alm, space_covariance
-from topology.harmonic.kl import gaussian_kl, pixel_kl, pixel_space
+from topology.harmonic.kl import gaussian_kl, pixel_kl
+from topology.harmonic.pixels import pixel_space
 from topology.harmonic.radial import isotropic_cl_cut
 from topology.skies.flat_eigenmode import plane_wave_alm
 from topology.skies.flat_modes import invariant_coefficients
@@ -59,11 +60,11 @@ def test_isotropic_cut_spectrum_tends_to_the_closed_form():
 # ---------------------------------------------------------------------------------------------
 @pytest.mark.parametrize("family,lengths", [("E6", [0.9, 1.0, 1.1]), ("E8", [1.3, 0.5])])
 def test_covariance_matches_the_sample_covariance_of_skies(family, lengths):
-    # 300 skies of the space from the sky maker's own modes and amplitudes
+    # 200 skies of the space from the sky maker's own modes and amplitudes
     # (flat_modes.invariant_coefficients, flat_eigenmode.plane_wave_alm: the exact a_lm of the
     # kept modes, so no pixelisation enters); each entry of the sample covariance S of n zero-mean
     # Gaussian vectors has variance (C_ij^2 + C_ii C_jj) / n (Wishart; common practice)
-    lmax, kchi, n = 6, 16.0, 300
+    lmax, kchi, n = 6, 16.0, 200
     space = build_space({"family": family, "lengths": lengths})
     cov = space_covariance(space, OBSERVER, COSMO, lmax=lmax, kchi_max=kchi, complement=False)
     x, F = OBSERVER.point[:3], OBSERVER.frame[:3, :]

@@ -111,6 +111,13 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "apply_mask": Key((bool,), False, "set masked pixels of the map itself to UNSEEN (default: full sky)"),
         "hits": Key((str,), None, "HEALPix FITS hit-count map: noise_uk scaled by 1/sqrt(hits/mean hits) "
                                   "(path relative to the config)"),
+        "polarisation": Key((bool,), False, "write I, Q, U (three columns, microK) instead of T; isotropic skies "
+                                            "only, with terms ['sw', 'doppler', 'isw'] (CAMB TT, EE, TE)"),
+        "noise_pol_uk": Key(NUMBER, None, "white noise rms per pixel on each of Q and U in microK "
+                                          "(default sqrt(2) noise_uk)", _non_negative),
+        "qu_convention": Key((str,), "healpix", "Q/U sign convention of the output: 'healpix' (FITS POLCCONV "
+                                                "'COSMO') or 'iau' (U negated)",
+                             lambda v: None if v in ("healpix", "iau") else "must be 'healpix' or 'iau'"),
     },
     # [search]: owned by the search stage (topology/search); edit only inside this block
     "search": {
@@ -241,6 +248,17 @@ SCHEMA["harmonic"] = {
                       lambda v: None if 0 < v < 90 else "must be in (0, 90) degrees"),
     "fwhm_deg": Key(NUMBER, 0.0, "Gaussian beam FWHM in degrees of the pixel-space maps", _non_negative),
     "pixwin": Key((bool,), True, "pixel-space maps carry the HEALPix pixel window of nside"),
+    "level": Key(NUMBER, 0.95, "--map: a scale is excluded when a space of that scale gives a smaller likelihood "
+                               "ratio with probability 1 - level (calibrated on simulated maps)",
+                 lambda v: None if 0 < v < 1 else "must be in (0, 1)"),
+    "n_cal": Key((int,), 200, "--map: simulated maps per scale (and isotropic maps) of the calibration",
+                 lambda v: None if 10 <= v <= 100000 else "must be in 10..100000"),
+    "orientation": Key((str,), "max", "--map: 'max' (profile) or 'marginal' (mean) likelihood over the orientation "
+                                      "grid", lambda v: None if v in ("max", "marginal") else "must be 'max' or 'marginal'"),
+    "orientation_nside": Key((int,), 1, "--map: the grid's z axes at the 12 nside^2 HEALPix pixel centres",
+                             _power_of_two),
+    "n_psi": Key((int,), 6, "--map: rotations about each z axis of the grid", _positive),
+    "seed": Key((int,), 0, "--map: seed of the calibration maps", _non_negative),
 }
 
 

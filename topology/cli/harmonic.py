@@ -13,6 +13,10 @@ def add_arguments(p):
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.add_argument("--plot", metavar="FILE", help="figure of the divergence against [harmonic] scales (PNG or PDF)")
     p.add_argument("--force", action="store_true", help="overwrite an existing plot file")
+    p.add_argument("--map", metavar="FITS", help="a HEALPix map at [harmonic] nside (microK, noise noise_uk per "
+                                                 "pixel): its likelihood against [harmonic] scales and the lower "
+                                                 "bound on the scale, calibrated on simulated maps")
+    p.add_argument("--mask", metavar="FITS", help="with --map: a mask at the same N_side (1 kept, 0 masked)")
 
 
 def run(args):
@@ -20,8 +24,8 @@ def run(args):
 
     from ..config import load_config, naming_file
     from ..errors import InputError
-    from ..harmonic.survey import divergence_rows, settings_from_config
-    from ..scenario import check_config
+    from ..harmonic.survey import divergence_rows, map_bound, read_map_pixels, settings_from_config
+    from ..scenario import check_config, cosmology_from_config
     from ._common import atomic_write, check_writable, print_json
 
     cfg = check_config(load_config(args.config))
@@ -35,7 +39,13 @@ def run(args):
             check_writable(args.plot, "plot")
             if Path(args.plot).exists() and not args.force:
                 raise InputError("plot file exists (use --force to overwrite)", str(args.plot))
-        out = divergence_rows(cfg, settings)
+        if args.mask and not args.map:
+            raise InputError("--mask goes with --map", "--mask")
+        data = read_map_pixels(settings, args.map, args.mask, cosmology_from_config(cfg)) if args.map else None
+        kept = [] if data is not None else None
+        out = divergence_rows(cfg, settings, keep=kept)
+        if data is not None:
+            out["likelihood"] = {"map": str(args.map), **map_bound(settings, data[0], data[1], kept)}
     if args.plot:
         from ..harmonic.plot import kl_figure
         from ..spaces.registry import describe_space
@@ -66,3 +76,15 @@ def _print(out: dict) -> None:
         for r in out["rows"]:
             near = "-" if r["nearest_image"] is None else f"{r['nearest_image']:.3f}"
             print(f"{r['scale']:8.3f} {format_kl(r['kl_nats']):>12} {near:>14} {'yes' if r['circles'] else 'no':>8}")
+    like = out.get("likelihood")
+    if like:
+        print(f"\nlikelihood of {like['map']} ({like['pixels']}): ln L(space) - ln L(isotropic), "
+              f"{like['mode']} over {like['n_orientations']} orientations; a scale is excluded when its ratio is "
+              f"below the {1 - like['level']:.3g} quantile of {like['n_cal']} simulated maps of that scale")
+        print(f"{'scale':>8} {'ln ratio':>10} {'threshold':>10} {'excluded':>9} {'isotropic maps excluding':>25}")
+        for r in like["rows"]:
+            print(f"{r['scale']:8.3f} {r['log_ratio']:10.3f} {r['threshold']:10.3f} {'yes' if r['excluded'] else 'no':>9} "
+                  f"{r['isotropic_exclusion_rate']:25.3f}")
+        b = like["bound_scale"]
+        print(f"lower bound at level {like['level']:g}: " + ("none (the smallest scale is not excluded)" if b is None
+              else f"every scale <= {b:g} excluded (lengths times {b:g})"))

@@ -6,8 +6,11 @@ Modules, one concern each, data flowing down the list:
 * radial.py      radial functions of the temperature terms; the isotropic C_l at a wave-number cut
 * flat.py        a flat space's invariant modes (those of the skies) as columns of the covariance
 * covariance.py  the covariance from blocks of modes (BLAS rank updates) and the dispatch by space
+* pixels.py      the observed pixels of a map (noise, mask, beam, monopole and dipole) in N x N form
 * kl.py          the Kullback-Leibler divergence of two zero-mean Gaussians, full sky or pixel space
-* survey.py      [harmonic] settings of a config and the divergence against scale
+* rotation.py    rotations of the sky frame on the real basis; a grid of orientations
+* likelihood.py  the likelihood ratio of a map over orientations and the calibrated bound on the scale
+* survey.py      [harmonic] settings of a config, the divergence against scale, a map's bound
 * plot.py        the figure of the divergence against scale
 """
 

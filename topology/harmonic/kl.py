@@ -11,9 +11,9 @@ fewer than N directions (a small torus) has lambda_i = 0: D is infinite. Eigenva
 RANK_RTOL lambda_max count as zero (double-precision round-off of the sum is ~1e-13 lambda_max);
 the divergence is then reported as inf with the rank, never regularised.
 
-With a mask and noise ("pixel"): the maps T = Y W r + n on the n_obs observed pixels of N_side
-(Y the real harmonics at the pixel centres, W = b_l p_l the beam and pixel window, n white noise
-of rms sigma_p), Sigma = Y W C W Y^T + diag(sigma_p^2). With A = Y^T diag(sigma_p^-2) Y (N x N),
+With a mask and noise ("pixel"): the maps d = Y W r + n on the n_obs observed pixels of N_side
+(:mod:`topology.harmonic.pixels`: Y the real harmonics at the pixel centres, W = b_l p_l the beam
+and pixel window, n noise of covariance N), Sigma = Y W C W Y^T + N. With A = Y N^-1 Y^T (N x N)
 the Woodbury identity and Sylvester's determinant identity turn the n_obs-dimensional divergence
 into N x N algebra, exactly:
 
@@ -32,8 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.linalg import cho_factor, cho_solve, solve_triangular
 
-from ..errors import InputError
-from .basis import ells, real_harmonics
+from .pixels import PixelSpace
 
 RANK_RTOL = 1e-10
 
@@ -73,54 +72,6 @@ def gaussian_kl(C_p: np.ndarray, C_q: np.ndarray) -> Divergence:
         return Divergence(math.inf, n, rank, "harmonic", float(lam[0]))
     kl = 0.5 * float(np.sum(lam - 1.0 - np.log(lam)))
     return Divergence(kl, n, n, "harmonic", float(lam[0]))
-
-
-@dataclass(frozen=True)
-class PixelSpace:
-    """The observed pixels of a low-resolution map: N_side, lmax, the noise-weighted harmonic
-    matrix A = Y^T diag(sigma^-2) Y (N, N), the window b_l p_l on each coefficient (N,), the
-    number of observed pixels and a description (mask, noise, beam)."""
-
-    nside: int
-    lmax: int
-    A: np.ndarray
-    window: np.ndarray
-    n_pixels: int
-    description: str
-
-
-def pixel_space(nside: int, lmax: int, *, noise_uk, mask=None, fwhm_deg: float = 0.0, pixwin: bool = True,
-                where: str = "[harmonic]") -> PixelSpace:
-    """The pixel-space form at ``nside``: white noise ``noise_uk`` (rms per pixel, microK; a number
-    or a RING map), ``mask`` (RING, 1 kept, 0 masked; None: full sky), Gaussian beam and pixel window."""
-    import healpy as hp
-
-    from ..bandlimit import check_band_limit
-    from ..skies.instrument import beam_window, pixel_window
-
-    check_band_limit(lmax, nside, f"{where} lmax")
-    npix = 12 * nside * nside
-    sigma = np.broadcast_to(np.asarray(noise_uk, dtype=float), (npix,))
-    if not np.all(np.isfinite(sigma)) or np.any(sigma < 0):
-        raise InputError("noise must be finite and >= 0", f"{where} noise_uk")
-    keep = np.ones(npix, dtype=bool) if mask is None else np.asarray(mask, dtype=float) > 0
-    if keep.shape != (npix,):
-        raise InputError(f"the mask has {keep.size} pixels, N_side {nside} has {npix}", f"{where} mask")
-    if not keep.any():
-        raise InputError("the mask keeps no pixel", f"{where} mask")
-    if np.any(sigma[keep] <= 0):
-        raise InputError("the pixel-space divergence needs noise > 0 on every observed pixel (without noise a "
-                         "band-limited sky is recovered exactly from the observed pixels, and the divergence is "
-                         "the full-sky one)", f"{where} noise_uk")
-    vec = np.column_stack(hp.pix2vec(nside, np.flatnonzero(keep)))
-    Y = real_harmonics(vec, lmax)                       # (N, n_obs)
-    Yw = Y / sigma[keep][None, :]
-    A = Yw @ Yw.T
-    ell = ells(lmax)
-    win = beam_window(float(fwhm_deg), lmax) * (pixel_window(nside, lmax) if pixwin else 1.0)
-    desc = (f"N_side {nside}, {int(keep.sum())} of {npix} pixels, noise {float(np.max(sigma)):g} microK"
-            + (f", beam {fwhm_deg:g} deg" if fwhm_deg else "") + (", pixel window" if pixwin else ""))
-    return PixelSpace(int(nside), int(lmax), A, win[ell], int(keep.sum()), desc)
 
 
 def pixel_kl(C_p: np.ndarray, cq_diag: np.ndarray, px: PixelSpace) -> Divergence:

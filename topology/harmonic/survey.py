@@ -17,7 +17,8 @@ import numpy as np
 
 from ..errors import InputError, raise_if_stopped
 from .covariance import check_kchi_max, check_lmax, space_covariance
-from .kl import Divergence, PixelSpace, gaussian_kl, pixel_kl, pixel_space
+from .kl import Divergence, gaussian_kl, pixel_kl
+from .pixels import PixelSpace, pixel_space
 from .radial import check_terms
 
 #: the largest distance searched for the observer's nearest image (chi_rec)
@@ -40,6 +41,12 @@ class HarmonicSettings:
     mask_b_deg: float = 20.0
     fwhm_deg: float = 0.0
     pixwin: bool = True
+    level: float = 0.95
+    n_cal: int = 200
+    orientation: str = "max"
+    orientation_nside: int = 1
+    n_psi: int = 6
+    seed: int = 0
 
     def pixels(self) -> PixelSpace | None:
         """The pixel-space form, or None for the full-sky harmonic form."""
@@ -63,7 +70,9 @@ def settings_from_config(cfg) -> HarmonicSettings:
                          scales=tuple(float(v) for v in g("scales")) if g("scales") is not None else None,
                          complement=bool(g("complement")),
                          nside=g("nside"), noise_uk=float(g("noise_uk")), mask=g("mask"),
-                         mask_b_deg=float(g("mask_b_deg")), fwhm_deg=float(g("fwhm_deg")), pixwin=bool(g("pixwin")))
+                         mask_b_deg=float(g("mask_b_deg")), fwhm_deg=float(g("fwhm_deg")), pixwin=bool(g("pixwin")),
+                         level=float(g("level")), n_cal=int(g("n_cal")), orientation=g("orientation"),
+                         orientation_nside=int(g("orientation_nside")), n_psi=int(g("n_psi")), seed=int(g("seed")))
     sec = cfg.section("harmonic")
     if s.nside is None:
         for key in ("noise_uk", "mask", "mask_b_deg", "fwhm_deg", "pixwin"):
@@ -121,10 +130,11 @@ def row(scale: float, d: Divergence, cov, near: float | None) -> dict:
             "circles": bool(near is not None and near < 2.0)}
 
 
-def divergence_rows(cfg, settings: HarmonicSettings | None = None, progress=None) -> dict:
+def divergence_rows(cfg, settings: HarmonicSettings | None = None, progress=None, keep: list | None = None) -> dict:
     """The harmonic summary of a config: {"family", "params", "lmax", "n_coefficients", "kchi_max",
     "terms", "form", "pixels", "kl_nats" (None if infinite), "finite", "rank", "rows": [...]}.
-    ``progress(i, n)`` is called after each scale."""
+    ``progress(i, n)`` is called after each scale; ``keep`` (a list) receives the covariance of
+    each scale."""
     from ..scenario import scenario_from_config
 
     s = settings_from_config(cfg) if settings is None else settings
@@ -145,6 +155,8 @@ def divergence_rows(cfg, settings: HarmonicSettings | None = None, progress=None
             sp, obs = scaled(space_sec, sc.observer, scale, sc.cosmology)
             di, ci = divergence(sp, obs, sc.cosmology, s, px)
             out["rows"].append(row(scale, di, ci, nearest_image(sp, obs)))
+            if keep is not None:
+                keep.append(ci)
             raise_if_stopped()
             if progress is not None:
                 progress(i + 1, len(s.scales))
@@ -154,3 +166,52 @@ def divergence_rows(cfg, settings: HarmonicSettings | None = None, progress=None
 def format_kl(value) -> str:
     """A divergence for the terminal: 'inf' or 4 significant digits."""
     return "inf" if value is None or not math.isfinite(value) else f"{value:.4g}"
+
+
+def read_map_pixels(settings: HarmonicSettings, map_path, mask_path=None, cosmology=None):
+    """(values RING float64, pixel space) of a map at the [harmonic] nside: its observed pixels,
+    less the galactic cut and a mask file (1 kept, 0 masked, the same N_side) when given; the
+    monopole and dipole marginalised, the isotropic multipoles lmax < l <= 3 nside - 1 of the terms
+    in the noise (:mod:`topology.harmonic.pixels`)."""
+    from ..cosmology import Cosmology
+    from ..maps import read_healpix
+    from ..skies.spectra import isotropic_cl
+
+    if settings.nside is None:
+        raise InputError("the likelihood of a map needs nside and noise_uk (the map's N_side and noise)",
+                         "[harmonic] nside")
+    if not settings.scales:
+        raise InputError("the likelihood profile of a map needs scales", "[harmonic] scales")
+    sky = read_healpix(map_path, what="map")
+    if sky.nside != settings.nside:
+        raise InputError(f"the map has N_side {sky.nside}, [harmonic] nside is {settings.nside} (degrade the map "
+                         "or change nside)", str(map_path))
+    keep = np.asarray(sky.observed, dtype=bool).copy()
+    if settings.mask == "galactic":
+        from ..skies.instrument import galactic_mask
+
+        keep &= galactic_mask(settings.nside, settings.mask_b_deg) > 0
+    if mask_path is not None:
+        m = read_healpix(mask_path, what="mask")
+        if m.nside != settings.nside:
+            raise InputError(f"the mask has N_side {m.nside}, the map {settings.nside}", str(mask_path))
+        keep &= np.asarray(m.values, dtype=float) > 0.5
+    extra = isotropic_cl(cosmology or Cosmology(), 3 * settings.nside - 1, settings.terms)
+    px = pixel_space(settings.nside, settings.lmax, noise_uk=settings.noise_uk, mask=keep, fwhm_deg=settings.fwhm_deg,
+                     pixwin=settings.pixwin, dipole=True, extra_cl=extra)
+    return np.asarray(sky.values, dtype=float), px
+
+
+def map_bound(settings: HarmonicSettings, values: np.ndarray, px: PixelSpace, covariances) -> dict:
+    """The likelihood profile of a map against the scales and the lower bound on the scale
+    (:func:`topology.harmonic.likelihood.size_bound`), as a dict; ``covariances``: one
+    HarmonicCovariance per scale of ``settings.scales``."""
+    from .likelihood import size_bound
+    from .rotation import orientation_grid
+
+    rots = orientation_grid(settings.orientation_nside, settings.n_psi)
+    res = size_bound(px.weigh(values), list(settings.scales), [c.matrix for c in covariances],
+                     covariances[0].iso_diagonal, px, rots, level=settings.level, n_cal=settings.n_cal,
+                     seed=settings.seed, mode=settings.orientation)
+    return {**res.as_dict(), "pixels": px.description}
+
