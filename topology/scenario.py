@@ -113,6 +113,9 @@ def check_space_table(space_sec: dict, observer_sec: dict | None, cosmo, base_di
     family = space_sec.get("family")
     if family is None:
         raise InputError('missing: give a family of space (or "isotropic" for a sky)', "[space] family")
+    if (sky or {}).get("polarisation"):
+        raise InputError("polarised inline skies are not implemented in topology run yet (topology synth makes "
+                         "isotropic ones)", "[sky] polarisation")
     if family == "isotropic":
         extra = sorted(k for k in space_sec if k != "family")
         if extra:

@@ -128,13 +128,22 @@ def _run(args, cfg):
     from ..skies.io import pairs_document, preview_png, write_fits
     from ..spaces.registry import describe_space
 
-    res = synthesize(cfg)
+    polar = bool(cfg.get("sky", "polarisation"))
+    if polar:  # I, Q, U: isotropic skies only (skies.polarised)
+        from ..skies.polarised import synthesize_polarised, write_iqu_fits
+
+        res = synthesize_polarised(cfg)
+        write = lambda tmp: write_iqu_fits(tmp, res.map, res.header, dtype=args.dtype)  # noqa: E731
+    else:
+        res = synthesize(cfg)
+        write = lambda tmp: write_fits(tmp, res.map, res.header, dtype=args.dtype)  # noqa: E731
     # everything is computed before the first file is written
     title = f"{describe_space(res.sky.meta.get('family', 'isotropic'), res.sky.meta.get('params'))}, seed {params['seed']}"
-    png = preview_png(res.map, res.pairs, title=title) if args.preview else None
+    png = preview_png(res.map[0] if polar else res.map, res.pairs, title=title + (", I" if polar else "")) \
+        if args.preview else None
     doc = json.dumps(pairs_document(cfg, res), indent=2, allow_nan=False, default=json_default) + "\n" \
         if args.pairs else None
-    atomic_write(args.out, _readable(lambda tmp: write_fits(tmp, res.map, res.header, dtype=args.dtype)))
+    atomic_write(args.out, _readable(write))
     if mpath is not None:
         cards = [c for c in res.header if c[0] in ("TOPOVER", "MASKTYPE", "MASKBDEG")]
         atomic_write(mpath, _readable(lambda tmp: write_fits(tmp, res.mask, cards, dtype="float32", column="MASK",
@@ -145,6 +154,7 @@ def _run(args, cfg):
         atomic_write(args.pairs, _readable(lambda tmp: Path(tmp).write_text(doc)))
     written = [args.out] + ([mpath] if mpath else []) + [p for p in (args.preview, args.pairs) if p]
     print(f"{res.sky.meta.get('family', 'isotropic')}: nside {params['nside']}, lmax {params['lmax']}, "
-          f"method {res.sky.meta.get('method')}, terms {','.join(res.sky.terms)}, {len(res.pairs)} predicted pairs")
+          f"method {res.sky.meta.get('method')}, terms {','.join(res.sky.terms)}, {len(res.pairs)} predicted pairs"
+          + (f", I Q U ({cfg.get('sky', 'qu_convention')} convention)" if polar else ""))
     print("wrote " + ", ".join(str(w) for w in written))
     return 0

@@ -204,3 +204,54 @@ def observe_polarised(sky: Sky, *, nside: int, fwhm_deg: float = 0.0, noise_uk: 
     q[unseen] = hp.UNSEEN
     u[unseen] = hp.UNSEEN
     return np.stack([i_map, q, u])
+
+
+def synthesize_polarised(cfg):
+    """The observed I, Q, U sky of a config with ``[sky] polarisation = true``: a SynthResult
+    (topology.skies) whose ``map`` is (3, 12 nside^2) in microK, in the configured Q/U
+    convention, with the FITS header cards (POLCCONV and the polarisation noise added).
+    Isotropic skies only; every key and the hit-count file are checked before any sky is made."""
+    from ..scenario import cosmology_from_config
+    from . import SynthResult, read_hits, sky_params
+    from .instrument import galactic_mask
+    from .io import header_cards
+
+    family = cfg.get("space", "family")
+    if family != "isotropic":
+        raise InputError(f"polarised skies of multiply connected spaces are not implemented yet (family {family!r}); "
+                         "only [space] family = \"isotropic\" makes I, Q, U", "[sky] polarisation")
+    extra = sorted(k for k in cfg.section("space") if k != "family")
+    if extra:
+        raise InputError(f"the isotropic sky takes no [space] parameters, got {', '.join(extra)}", f"[space] {extra[0]}")
+    p = sky_params(cfg)
+    cosmo = cosmology_from_config(cfg)
+    polarised_cl(cosmo, p["lmax"], p["terms"])          # terms, camb or table: before any work
+    hits = read_hits(cfg, p["nside"])
+    conv = cfg.get("sky", "qu_convention")
+    noise_pol = cfg.get("sky", "noise_pol_uk")
+    mask = galactic_mask(p["nside"], float(p["mask_b_deg"])) if p["mask"] == "galactic" else None
+    sky = polarised_sky(cosmo, lmax=p["lmax"], terms=p["terms"], seed=p["seed"])
+    m = observe_polarised(sky, nside=p["nside"], lmax=p["lmax"], fwhm_deg=p["fwhm_deg"], noise_uk=p["noise_uk"],
+                          noise_pol_uk=noise_pol, hits=hits, pixwin=bool(p["pixwin"]), seed=p["seed"],
+                          mask=mask if p["apply_mask"] else None, convention=conv)
+    res = SynthResult(map=m, mask=mask, sky=sky, pairs=[], scenario=None, params=p)
+    sigma_p = math.sqrt(2.0) * p["noise_uk"] if noise_pol is None else float(noise_pol)
+    res.header = header_cards(cfg, res) + [
+        ("POLAR", True, "I, Q, U columns"),
+        ("POLCCONV", CONVENTIONS[conv], "Q/U convention: COSMO (HEALPix) or IAU"),
+        ("NOISEPUK", sigma_p, "white noise rms per pixel on Q and U (uK)"),
+    ]
+    return res
+
+
+def write_iqu_fits(path, iqu: np.ndarray, cards: list, *, dtype: str = "float32") -> None:
+    """Write (I, Q, U) RING maps as columns I_STOKES, Q_STOKES, U_STOKES in uK (healpy.write_map)."""
+    import healpy as hp
+
+    from .io import DTYPES
+
+    dt = DTYPES[dtype]
+    cards = [(k, v, "" if isinstance(v, str) and len(v) > 40 else c) for k, v, c in cards]
+    hp.write_map(str(path), [np.asarray(x).astype(dt) for x in iqu], nest=False, dtype=[dt] * 3,
+                 column_names=["I_STOKES", "Q_STOKES", "U_STOKES"], column_units="uK",
+                 extra_header=list(cards), overwrite=True)
