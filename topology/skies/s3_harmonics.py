@@ -78,8 +78,9 @@ def _top_rows(k: int) -> int:
     return (k + 1) // 2
 
 
-def wigner_d(beta, kmax: int) -> Iterator[tuple[int, np.ndarray]]:
-    """Yield (k, d^k(beta)) for k = 0..kmax, shape (n_beta, k+1, k+1), real orthogonal.
+def wigner_d(beta, kmax: int, last_only: bool = False) -> Iterator[tuple[int, np.ndarray]]:
+    """Yield (k, d^k(beta)) for k = 0..kmax (only k = kmax if ``last_only``), shape
+    (n_beta, k+1, k+1), real orthogonal.
 
     Risbo's recursion in symmetric form (module docstring), a = column, b = row, c = cos(beta/2),
     s = sin(beta/2), A = d^(k-1):
@@ -96,7 +97,8 @@ def wigner_d(beta, kmax: int) -> Iterator[tuple[int, np.ndarray]]:
     rmax = _top_rows(kmax) + 1
     top = np.zeros((nb, rmax + 1, kmax + 1))        # rows 0..R of d^(k-1), columns 0..k-1
     top[:, 0, 0] = 1.0
-    yield 0, np.ones((nb, 1, 1))
+    if kmax == 0 or not last_only:
+        yield 0, np.ones((nb, 1, 1))
     ru = np.empty_like(top)
     rv = np.empty_like(top)
     for k in range(1, kmax + 1):
@@ -119,7 +121,8 @@ def wigner_d(beta, kmax: int) -> Iterator[tuple[int, np.ndarray]]:
         new[:, :, 0] = 0.0
         np.multiply(t1, sq[1:] / k, out=new[:, :, 1:])
         new[:, :, :k] += t2 * (sq[::-1][:-1] / k)
-        yield k, _full_from_top(new, k)
+        if k == kmax or not last_only:
+            yield k, _full_from_top(new, k)
 
 
 def _full_from_top(top: np.ndarray, k: int) -> np.ndarray:

@@ -23,6 +23,7 @@ of the group average P(C) = (1/|Gamma|) sum D^k(a)^T C D^k(b)^T, an orthogonal p
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterator
 
@@ -32,6 +33,8 @@ from .s3_tensors import band, band_lowrank
 from .s3_harmonics import apply_d, euler_angles, phases, wigner_d_direct, wigner_d_halfpi, wigner_stack
 
 _ATOL = 1e-9
+#: degrees whose invariant modes a group keeps once computed (small: repeated draws of small fields)
+CACHE_KMAX = 64
 
 
 def _is_diagonal_quat(q: np.ndarray) -> np.ndarray:
@@ -82,38 +85,40 @@ def rotate_thin(delta: np.ndarray | None, q: np.ndarray, v: np.ndarray, transpos
 class LeftDegree:
     """The invariant modes of a left group at degree k: C = conj(V) W (module docstring).
 
-    ``basis`` V (k+1, m) orthonormal in the original frame, ``count`` = (k+1) m, ``defect`` =
-    max over the eigenvalues lambda of S of min(|lambda|, |1 - lambda|).
+    ``basis`` V (k+1, m) orthonormal in the original frame (None: the trivial group, V = 1),
+    ``count`` = (k+1) m, ``defect`` = max(|tr S - m|, |S V - V|).
     """
 
     def __init__(self, k: int, basis: np.ndarray | None, defect: float):
         self.k = k
-        self.basis = basis                             # None: the trivial group (V = 1)
+        self.basis = basis
         self.rank = k + 1 if basis is None else basis.shape[1]
         self.count = (k + 1) * self.rank
         self.defect = defect
 
-    def project(self, z: np.ndarray) -> np.ndarray:
-        """P(Z) = S^T Z = conj(V) (V^T Z)."""
-        if self.basis is None:
-            return np.array(z, dtype=complex)
-        return np.conj(self.basis) @ (self.basis.T @ z)
+    def weights(self, z: np.ndarray | None = None, rng: np.random.Generator | None = None) -> np.ndarray:
+        """W (m, k+1) of a white draw: V^T Z for a given white Z (k+1, k+1) (then conj(V) W =
+        P(Z)), else m (k+1) standard complex normals from ``rng`` (the same distribution)."""
+        if z is None:
+            g = rng.standard_normal((2, self.rank, self.k + 1))
+            return (g[0] + 1j * g[1]) * math.sqrt(0.5)
+        return np.array(z, dtype=complex) if self.basis is None else self.basis.T @ z
 
-    def observed(self, z: np.ndarray, x0: np.ndarray, delta: np.ndarray | None) -> np.ndarray:
-        """D^k(x0)^T P(Z) = conj(D^k(x0^-1) V) (V^T Z): the coefficients of y -> f(x0 y)."""
-        if self.basis is None:
-            return rotate_thin(delta, x0, np.array(z, dtype=complex), transpose=True)
-        moved = rotate_thin(delta, _qconj(x0), self.basis)
-        return np.conj(moved) @ (self.basis.T @ z)
+    def coefficients(self, w: np.ndarray) -> np.ndarray:
+        """C = conj(V) W (dense)."""
+        return np.array(w, dtype=complex) if self.basis is None else np.conj(self.basis) @ w
 
-    def observed_band(self, z, x0, delta, lmax: int, scale: float) -> np.ndarray:
-        """band(scale D^k(x0)^T P(Z), lmax) (:func:`topology.skies.s3_tensors.band`), from the
-        thin factors when that is cheaper than the full product."""
+    def observed_band(self, w, x0, delta, lmax: int, scale: float) -> np.ndarray:
+        """band(scale D^k(x0)^T C, lmax) (:func:`topology.skies.s3_tensors.band`): the coefficients
+        of y -> f(x0 y); D^k(x0)^T conj(V) W = conj(D^k(x0^-1) V) W, from the thin factors when
+        that is cheaper than the full product."""
         k = self.k
-        if self.basis is None or 2 * (min(lmax, k) + 1) >= k + 1:
-            return band(scale * self.observed(z, x0, delta), lmax)
-        moved = rotate_thin(delta, _qconj(x0), self.basis)
-        return band_lowrank(scale * np.conj(moved), self.basis.T @ z, lmax)
+        if self.basis is None:
+            return band(scale * rotate_thin(delta, x0, np.array(w, dtype=complex), transpose=True), lmax)
+        moved = np.conj(rotate_thin(delta, _qconj(x0), self.basis))
+        if 2 * (min(lmax, k) + 1) >= k + 1:
+            return band(scale * (moved @ w), lmax)
+        return band_lowrank(scale * moved, w, lmax)
 
 
 class LeftGroup:
@@ -134,6 +139,7 @@ class LeftGroup:
             self.theta = math.acos(max(-1.0, min(1.0, g1[0])))
             axis = g1[1:] / np.linalg.norm(g1[1:])
             self.h = _rotation_to_i(axis)
+        self._cache = {}
         self.has_minus_one = bool(np.any(np.all(np.abs(self.quats - [-1.0, 0.0, 0.0, 0.0]) < _ATOL, axis=1)))
         hq = _qmul(_qmul(self.h[None, :], self.quats), _qconj(self.h)[None, :])
         al, be, ga = euler_angles(hq)
@@ -158,7 +164,17 @@ class LeftGroup:
         return np.flatnonzero(np.abs(np.exp(1j * (2 * a - k) * self.theta) - 1.0) < 1e-6)
 
     def degree(self, k: int, delta: np.ndarray | None = None) -> LeftDegree:
-        """The invariant modes at degree k; ``delta`` = d^k(pi/2) (computed directly if None).
+        """The invariant modes at degree k (kept for k <= CACHE_KMAX); ``delta`` = d^k(pi/2)
+        (computed directly if None)."""
+        if k in self._cache:
+            return self._cache[k]
+        out = self._degree(k, delta)
+        if k <= CACHE_KMAX:
+            self._cache[k] = out
+        return out
+
+    def _degree(self, k: int, delta: np.ndarray | None) -> LeftDegree:
+        """The invariant modes at degree k.
 
         S on E x E is summed per distinct beta (Fourier form; d(pi - beta) from d(beta) through
         d(pi - beta) = d(pi) d(beta)^T). Its rank is its trace (a projector); the basis is the
@@ -244,15 +260,21 @@ class DiagonalDegree:
         self.count = int(mask.sum())
         self.defect = 0.0
 
-    def project(self, z: np.ndarray) -> np.ndarray:
-        return np.where(self.mask, z, 0.0)
+    def weights(self, z: np.ndarray | None = None, rng: np.random.Generator | None = None) -> np.ndarray:
+        """C = P(Z) (Z masked), or standard complex normals at the masked entries from ``rng``."""
+        if z is not None:
+            return np.where(self.mask, z, 0.0)
+        g = rng.standard_normal((2, self.count))
+        c = np.zeros(self.mask.shape, dtype=complex)
+        c[self.mask] = (g[0] + 1j * g[1]) * math.sqrt(0.5)
+        return c
 
-    def observed(self, z: np.ndarray, x0: np.ndarray, delta: np.ndarray | None) -> np.ndarray:
-        """D^k(x0)^T P(Z): the coefficients of y -> f(x0 y)."""
-        return rotate_thin(delta, x0, self.project(z), transpose=True)
+    def coefficients(self, w: np.ndarray) -> np.ndarray:
+        return w
 
-    def observed_band(self, z, x0, delta, lmax: int, scale: float) -> np.ndarray:
-        return band(scale * self.observed(z, x0, delta), lmax)
+    def observed_band(self, w, x0, delta, lmax: int, scale: float) -> np.ndarray:
+        """band(scale D^k(x0)^T C, lmax): the coefficients of y -> f(x0 y)."""
+        return band(scale * rotate_thin(delta, x0, w, transpose=True), lmax)
 
 
 class DiagonalGroup:
@@ -278,25 +300,26 @@ class DiagonalGroup:
 class GeneralDegree:
     def __init__(self, k: int, da: np.ndarray, db: np.ndarray):
         self.k = k
-        self.da, self.db = da, db
         n = k + 1
-        full = np.einsum("gab,gcd->acbd", da, db).reshape(n * n, n * n) / len(da)
-        # P(C)_{ac} = (1/|G|) sum D(a)^T_{a b} C_{b d} D(b)^T_{d c} = sum_bd M[(a,c),(b,d)] C_bd
-        self.matrix = full
-        lam = np.linalg.eigvalsh(0.5 * (full + full.conj().T))
+        # P(C)_xy = (1/|G|) sum_g sum_uv D(a)_ux C_uv D(b)_yv: the (n^2, n^2) matrix of P
+        self.matrix = np.einsum("gab,gcd->acbd", da, db).reshape(n * n, n * n) / len(da)
+        lam = np.linalg.eigvalsh(0.5 * (self.matrix + self.matrix.conj().T))
         self.count = int(np.sum(lam > 0.5))
         self.defect = float(np.max(np.minimum(np.abs(lam), np.abs(1.0 - lam)), initial=0.0))
 
-    def project(self, z: np.ndarray) -> np.ndarray:
+    def weights(self, z: np.ndarray | None = None, rng: np.random.Generator | None = None) -> np.ndarray:
+        """C = P(Z) for a white Z (given, or drawn from ``rng``)."""
         n = self.k + 1
+        if z is None:
+            g = rng.standard_normal((2, n, n))
+            z = (g[0] + 1j * g[1]) * math.sqrt(0.5)
         return (self.matrix @ z.reshape(n * n)).reshape(n, n)
 
-    def observed(self, z: np.ndarray, x0: np.ndarray, delta: np.ndarray | None) -> np.ndarray:
-        """D^k(x0)^T P(Z): the coefficients of y -> f(x0 y)."""
-        return rotate_thin(delta, x0, self.project(z), transpose=True)
+    def coefficients(self, w: np.ndarray) -> np.ndarray:
+        return w
 
-    def observed_band(self, z, x0, delta, lmax: int, scale: float) -> np.ndarray:
-        return band(scale * self.observed(z, x0, delta), lmax)
+    def observed_band(self, w, x0, delta, lmax: int, scale: float) -> np.ndarray:
+        return band(scale * rotate_thin(delta, x0, w, transpose=True), lmax)
 
 
 class GeneralGroup:
@@ -316,8 +339,15 @@ class GeneralGroup:
 
 
 def group_of(pairs: np.ndarray):
-    """The invariant-mode builder for pairs (n, 2, 4): LeftGroup, DiagonalGroup or GeneralGroup."""
-    pairs = np.asarray(pairs, dtype=float).reshape(-1, 2, 4)
+    """The invariant-mode builder for pairs (n, 2, 4): LeftGroup, DiagonalGroup or GeneralGroup
+    (one object per group table, so that its kept degrees are shared)."""
+    pairs = np.ascontiguousarray(np.asarray(pairs, dtype=float).reshape(-1, 2, 4))
+    return _group_of(pairs.tobytes(), len(pairs))
+
+
+@functools.lru_cache(maxsize=16)
+def _group_of(key: bytes, n: int):
+    pairs = np.frombuffer(key, dtype=float).reshape(n, 2, 4)
     b = pairs[:, 1]
     right_sign = np.sign(b[:, 0])
     if np.all(np.abs(np.abs(b[:, 0]) - 1.0) < _ATOL):             # b = +-1: x -> (+-a) x
@@ -329,8 +359,9 @@ def group_of(pairs: np.ndarray):
 
 def degrees(group, kmax: int, kmin: int = 0, with_delta: bool = False) -> Iterator:
     """(degree, Delta^k or None) for k = kmin..kmax in one pass (one Risbo recursion for
-    Delta^k = d^k(pi/2), run when the group or ``with_delta`` needs it)."""
-    if group.needs_delta or with_delta:
+    Delta^k = d^k(pi/2), run when the group or ``with_delta`` needs it and the degrees are not
+    kept already)."""
+    if (group.needs_delta and not (kmax <= CACHE_KMAX and group.kind == "left")) or with_delta:
         for k, delta in wigner_d_halfpi(kmax):
             if k >= kmin:
                 yield group.degree(k, delta), delta

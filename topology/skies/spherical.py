@@ -45,11 +45,15 @@ healpy.map2alm) by :func:`field_alm`: per degree, the band |a - b| <= lmax of th
 seen from the observer, contracted with spherical tensor operators
 (:mod:`topology.skies.s3_tensors`); :func:`field_alm_by_grid` does the same by brute-force
 evaluation and is its cross-check. The sky keeps its l = 0, 1 terms: the matched-circle
-identity T(P) = T(g^-1 P) holds for the whole field. Power at multipole l comes from
+identity T(P) = T(g^-1 P) holds for the whole field; a map truncated at l_max < kmax sin chi
+(where a degree-k mode has its power) loses the part above l_max, which lowers S on the
+circles of the truncated map (not an error of the a_lm). Power at multipole l comes from
 k >~ l / chi, so a sky with modes up to kmax holds the fraction ~ 1 - 0.55 (l / (kmax chi))^2
-of the simply connected C_l (measured with :func:`s3_sachs_wolfe_cl`: 86 % at kmax chi = 2 l,
-94 % at 3 l, 98 % at 6 l). Memory O(kmax^2) (one degree at a time); cost per degree k about
-(lmax+1)^2 k / 2 for the tensors plus (k+1)^2 for the draw, and for lens spaces (k+1)^3 for the
+of the simply connected C_l (86 % at kmax chi = 2 l, 94 % at 3 l, 99 % at 7.5 l); by default
+the tail weights of :mod:`topology.skies.s3_spectra` restore the rest to ~0.5 %. Degrees
+k <= FULL_DRAW_KMAX draw a full (k+1)^2 Z_k as the skies made before (same seed, same sky);
+above, only the invariant coefficients are drawn. Memory O(kmax^2) (one degree at a time);
+cost per degree k about (lmax+1)^2 k / 2 for the tensors, and for lens spaces (k+1)^3 for the
 turn to the observer (numbers in benchmarks/spherical_sky_speed.py).
 """
 
@@ -65,11 +69,10 @@ from ..bandlimit import check_band_limit
 from ..errors import InputError
 from . import default_kmax
 from .base import Sky, stream_rng
-from .legendre import legendre_table
 from .s3_harmonics import gauss_legendre_grid, grid_to_alm, wigner_stack, zonal_s3
 from .s3_invariants import degrees, group_of, invariant_ranks
 from .s3_tensors import SphereAlm, rotate_alm
-from .spectra import A_S, K_PIVOT, N_S, primordial_power
+from .s3_spectra import KMIN, mode_variance, s3_sachs_wolfe_cl, tail_weights
 
 #: highest harmonic degree accepted: the Wigner matrices keep unitarity to ~1e-13 at k = 700
 #: (Risbo recursion, tested) and the invariant projectors their eigenvalues 0 or 1 to ~1e-13
@@ -84,23 +87,13 @@ def check_default_kmax(lmax: int, chi: float, what: str, where: str, advice: str
     if k > KMAX_LIMIT:
         raise InputError(f"{what} at lmax {lmax} needs S^3 modes up to k = {k} > {KMAX_LIMIT}; lower [instrument] "
                          f"lmax to {int(KMAX_LIMIT * chi / 2)}{advice}", where)
-#: lowest physical degree: beta = k + 1 >= 3 (beta = 1, 2 are the constant and gauge modes)
-KMIN = 2
+#: degrees up to here draw a full white (k+1) x (k+1) Z_k and project it (the draws of the
+#: skies made before, whose limit was k = 150: the same seed gives the same sky); above, only
+#: the coefficients of the invariant modes are drawn (the same distribution, a fraction of the
+#: random numbers)
+FULL_DRAW_KMAX = 150
 #: Wigner entries per evaluation block of :meth:`InvariantField.values` (bounds memory)
 _BLOCK_ENTRIES = 3_000_000
-
-
-def mode_variance(k, curvature_radius_mpc: float, A_s: float = A_S, n_s: float = N_S,
-                  k_pivot: float = K_PIVOT) -> np.ndarray:
-    """sigma_k^2 = 2 pi^2 P_R(q) / (beta (beta^2 - 1)), beta = k+1, q = sqrt(beta^2-1)/R_c (Mpc^-1).
-
-    Variance of R per eigenmode normalised to 1 on the unit S^3 (see module docstring).
-    """
-    beta = np.asarray(k, dtype=float) + 1.0
-    if np.any(beta < 2.0):
-        raise ValueError("mode_variance needs k >= 1")
-    q = np.sqrt(beta**2 - 1.0) / curvature_radius_mpc
-    return 2.0 * math.pi**2 * primordial_power(q, A_s, n_s, k_pivot) / (beta * (beta**2 - 1.0))
 
 
 def _replay(state: dict) -> np.random.Generator:
@@ -120,8 +113,9 @@ class InvariantField:
     """A drawn Gamma-invariant field R(x) = sqrt(2) Re sum_k tr(C_k^T D^k(x)) on S^3.
 
     C_k = amplitude[k] P_k(Z_k), k = KMIN..kmax, with Z_k drawn in increasing k from a
-    generator in ``state`` (its bit-generator state): the field is a recipe, replayed on
-    demand (:meth:`degrees`), so that no (k+1)^2 matrix of every degree is ever held at once.
+    generator in ``state`` (its bit-generator state; above FULL_DRAW_KMAX only the invariant
+    coefficients are drawn): the field is a recipe, replayed on demand (:meth:`degrees`), so
+    that no (k+1)^2 matrix of every degree is ever held at once.
     ``group`` is the invariant-mode builder of :mod:`topology.skies.s3_invariants`; ``scale``
     multiplies R in :meth:`values` (e.g. -T/5 in microK); ``counts[k]`` = invariant modes at k.
     """
@@ -133,16 +127,22 @@ class InvariantField:
     scale: float = 1.0
     counts: np.ndarray | None = None
 
-    def degrees(self, with_delta: bool = False):
-        """Yield (k, degree, Z_k, Delta^k or None) for k = KMIN..kmax (see :func:`degrees`)."""
-        rng = _replay(self.state)
+    def degrees(self, with_delta: bool = False, rng: np.random.Generator | None = None):
+        """Yield (k, degree, weights, Delta^k or None) for k = KMIN..kmax (the degree objects and
+        weights of :mod:`topology.skies.s3_invariants`), replaying the draws (from ``rng`` if
+        given, which must be in ``state``)."""
+        rng = _replay(self.state) if rng is None else rng
         for deg, delta in degrees(self.group, self.kmax, KMIN, with_delta):
-            yield deg.k, deg, _draw_z(rng, deg.k), delta
+            if deg.k <= FULL_DRAW_KMAX:
+                w = deg.weights(z=_draw_z(rng, deg.k))
+            else:
+                w = deg.weights(rng=rng)
+            yield deg.k, deg, w, delta
 
     @property
     def coeffs(self) -> dict:
         """{k: C_k} (dense (k+1)^2 complex each; for small kmax)."""
-        return {k: self.amplitude[k] * deg.project(z) for k, deg, z, _ in self.degrees()}
+        return {k: self.amplitude[k] * deg.coefficients(w) for k, deg, w, _ in self.degrees()}
 
     def values(self, points: np.ndarray) -> np.ndarray:
         """scale * R at unit quaternions points (..., 4), evaluated in bounded blocks."""
@@ -208,10 +208,11 @@ def draw_invariant_field(space, kmax: int, rng: np.random.Generator, variance) -
     ``rng`` is advanced past the draws. ``variance`` is a sequence indexed by k (sigma_k^2, read
     for k >= KMIN).
     """
-    state = rng.bit_generator.state
-    for k in range(KMIN, kmax + 1):
-        _draw_z(rng, k)
-    return InvariantField(int(kmax), group_of(space.pairs), _amplitudes(len(space.pairs), kmax, variance), state)
+    field = InvariantField(int(kmax), group_of(space.pairs), _amplitudes(len(space.pairs), kmax, variance),
+                           rng.bit_generator.state)
+    for _ in field.degrees(rng=rng):     # advance rng past the draws
+        pass
+    return field
 
 
 def _sky_frame(observer: geo.Observer) -> np.ndarray:
@@ -243,12 +244,12 @@ def _alm_and_counts(field: InvariantField, observer: geo.Observer, chi: float, l
     acc = SphereAlm(band_l, chi)
     x0 = np.asarray(observer.point, dtype=float)
     counts = np.zeros(field.kmax + 1, dtype=np.int64)
-    for k, deg, z, delta in field.degrees(with_delta=True):
+    for k, deg, w, delta in field.degrees(with_delta=True):
         counts[k] = deg.count
         s = field.amplitude[k]
         if s == 0.0 or deg.count == 0:
             continue
-        acc.add(k, deg.observed_band(z, x0, delta, band_l, s))
+        acc.add(k, deg.observed_band(w, x0, delta, band_l, s))
     small = rotate_alm(acc.real_alm(field.scale), band_l, _sky_frame(observer))
     from healpy import Alm
 
@@ -274,13 +275,16 @@ def field_alm_by_grid(field: InvariantField, observer: geo.Observer, chi: float,
 
 
 def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside: int | None = None,
-                  kmax: int | None = None, terms=("sw",), seed: int = 0) -> Sky:
+                  kmax: int | None = None, terms=("sw",), seed: int = 0, tail: bool | None = None) -> Sky:
     """Sachs-Wolfe sky (alm, microK) of the spherical space ``space`` seen by ``observer``.
 
     ``cosmology`` must be closed (omega_k < 0); chi = chi_rec / R_c. kmax defaults to
-    ceil(2 lmax / chi) and must be in KMIN..KMAX_LIMIT. Amplitudes come from the "signal" stream
-    of ``seed``. ``nside`` (optional) only checks lmax <= 3 nside - 1 and is recorded.
-    See the module docstring for the field, spectrum and exactness of the a_lm.
+    ceil(2 lmax / chi) and must be in KMIN..KMAX_LIMIT. ``tail`` (default: when kmax is the
+    default) weights the variance of degree k by w_k = 1 + A (k/kmax)^4 so that the C_l hold
+    those of all degrees to ~0.5 % at l <= lmax (:func:`~topology.skies.s3_spectra.tail_weights`;
+    A in meta["tail_A"], 0 without, and the C_l error left in meta["tail_cl_error"]). Amplitudes come from the "signal" stream of ``seed``.
+    ``nside`` (optional) only checks lmax <= 3 nside - 1 and is recorded. See the module
+    docstring for the field, spectrum and exactness of the a_lm.
     """
     _check_space(space)
     if getattr(observer, "geometry", None) != "spherical":
@@ -299,6 +303,8 @@ def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside:
         check_band_limit(lmax, nside, "[sky] lmax")
     seed = _check_int(seed, "[sky] seed", 0)
     chi = float(cosmology.chi_rec_over_curvature_radius)
+    if tail is None:
+        tail = kmax is None
     if kmax is None:
         kmax = default_kmax(lmax, chi)
         if kmax > KMAX_LIMIT:
@@ -309,6 +315,10 @@ def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside:
     rc = cosmology.curvature_radius_mpc
     variance = np.zeros(kmax + 1)
     variance[KMIN:] = mode_variance(np.arange(KMIN, kmax + 1), rc)
+    tail_info = None
+    if tail:
+        weights, tail_info = tail_weights(cosmology, lmax, kmax)
+        variance *= weights
     t_uk = cosmology.t_cmb * 1e6
     field = InvariantField(int(kmax), group_of(space.pairs), _amplitudes(len(space.pairs), kmax, variance),
                            stream_rng(seed, "signal").bit_generator.state, scale=-t_uk / 5.0)
@@ -316,38 +326,13 @@ def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside:
     field = replace(field, counts=counts)
     meta = {"method": "eigenmode", "family": space.family, "params": dict(space.params), "seed": seed,
             "kmax": kmax, "chi": chi, "modes": int(counts[KMIN:].sum()), "nside": nside,
-            "observer": [float(v) for v in observer.point], "field": field}
+            "observer": [float(v) for v in observer.point], "field": field,
+            "tail_A": tail_info["A"] if tail_info else 0.0}
+    if tail_info:
+        meta["tail_cl_error"] = tail_info["cl_error"]
     return Sky(lmax=lmax, alm=alm, terms=("sw",), meta=meta)
 
 
-# ---------------------------------------------------------------------------------------------
-# reference spectra (no Wigner matrices): the simply connected S^3
-# ---------------------------------------------------------------------------------------------
-def s3_sachs_wolfe_cl(cosmology, lmax: int, kmax: int) -> np.ndarray:
-    """Expected SW C_l (microK^2) of the simply connected S^3, modes k = KMIN..kmax.
-
-    C(theta) = (T/5)^2 sum_k sigma_k^2 Y_k(psi) with cos psi = cos^2 chi + sin^2 chi cos theta
-    (:func:`~topology.skies.s3_harmonics.zonal_s3`), projected on Legendre polynomials,
-    C_l = 2 pi int C(theta) P_l(cos theta) d cos theta, each k by an exact Gauss-Legendre rule.
-    """
-    chi = float(cosmology.chi_rec_over_curvature_radius)
-    t_uk = cosmology.t_cmb * 1e6
-    x, w = np.polynomial.legendre.leggauss((kmax + lmax) // 2 + 1)
-    cos_psi = math.cos(chi) ** 2 + math.sin(chi) ** 2 * x
-    pl = legendre_table(x, lmax)
-    var = np.zeros(kmax + 1)
-    var[KMIN:] = mode_variance(np.arange(KMIN, kmax + 1), cosmology.curvature_radius_mpc)
-    corr = np.zeros(len(x))
-    # sum_k sigma_k^2 Y_k by the Chebyshev recurrence in k (one pass)
-    prev, cur = np.zeros_like(cos_psi), np.ones_like(cos_psi)
-    for k in range(kmax + 1):
-        if k >= KMIN:
-            corr += var[k] * (k + 1) * cur / (2.0 * math.pi**2)
-        prev, cur = cur, 2.0 * cos_psi * cur - prev
-    cl = 2.0 * math.pi * (pl * (w * corr)[None, :]).sum(axis=1) * (t_uk / 5.0) ** 2
-    cl[:2] = 0.0
-    return cl
-
-
 __all__ = ["spherical_sky", "invariant_mode_counts", "mode_variance", "draw_invariant_field", "field_alm",
-           "field_alm_by_grid", "InvariantField", "s3_sachs_wolfe_cl", "zonal_s3", "KMAX_LIMIT", "KMIN"]
+           "field_alm_by_grid", "InvariantField", "s3_sachs_wolfe_cl", "tail_weights", "zonal_s3", "KMAX_LIMIT",
+           "KMIN"]
