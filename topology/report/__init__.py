@@ -10,9 +10,9 @@ absent.
 from .figures import figure_efficiency, figure_omega_k, figure_sky, figure_smax, save_figure
 from .html import write_index
 from .latex import bounds_latex, latex_table
-from .tables import (bounds_table, candidates_table, efficiency_table, flat_bounds_table, target_tables,
-                     thresholds_table)
+from .tables import (bounds_table, candidates_table, efficiency_table, flat_bounds_table, spectra_check_table,
+                     target_tables, thresholds_table)
 
 __all__ = ["bounds_latex", "bounds_table", "candidates_table", "efficiency_table", "figure_efficiency",
-           "figure_omega_k", "figure_sky", "figure_smax", "flat_bounds_table", "latex_table", "save_figure", "target_tables",
+           "figure_omega_k", "figure_sky", "figure_smax", "flat_bounds_table", "latex_table", "save_figure", "spectra_check_table", "target_tables",
            "thresholds_table", "write_index"]

@@ -72,6 +72,19 @@ def efficiency_table(families: list[dict], radii_deg, level: float, confidence: 
     return t
 
 
+def spectra_check_table(rows: list[dict], sigma: float) -> Table:
+    """Mean power of each injected family's skies over the null skies' per l band, its error and
+    the departure in units of it (topology.run.spectra_check)."""
+    names = ("injected_family", "l_min", "l_max", "power_ratio", "error", "departure_sigma", "departs")
+    t = Table(rows=[(r["family"], r["l_min"], r["l_max"], r["ratio"], r["error"], r["departure_sigma"],
+                     "yes" if r["departs"] else "no") for r in rows],
+              names=names, dtype=("U96", int, int, float, float, float, "U3"))
+    t["power_ratio"].description = "mean C_l of the injected skies / mean C_l of the null skies (2l+1 weighted)"
+    t["error"].description = "1 sigma of the ratio from the scatter of both sets of skies"
+    t.meta.update(departure_rule=f"departs: |ratio - 1| > {sigma:g} error")
+    return t
+
+
 def target_tables(maps: list[dict], calibration: dict, th, null, *, false_alarm: float, n_null: int,
                   efficiency_level: float, n_injections: int) -> tuple[Table, Table, Table]:
     """The tables of a targeted run: outcome per map and target, thresholds and efficiency per target."""

@@ -29,6 +29,7 @@ from ..execution import Task
 from . import calibration
 from . import tasks as T
 from . import report_parts
+from . import spectra_check
 from .report_parts import Analysis, sky_figure
 
 N_CANDIDATES = 10  # candidates per map in the summary and tables
@@ -96,6 +97,8 @@ def analyse(plan, store) -> Analysis:
     notes += [f"alpha_min of the injected {f['label']} is the lowest injected radius ({f['alpha_min_deg']:g} deg): "
               "the bound may be stronger; inject lower radii" for f in families if f["at_lowest_radius"]]
     headline = families[0]["alpha_min_deg"]
+    spectra_rows = spectra_consistency(plan, store)
+    notes += spectra_check.departure_notes(spectra_rows)
 
     cosmo = plan.cosmology
     maps_out, map_values = [], {}
@@ -132,8 +135,24 @@ def analyse(plan, store) -> Analysis:
                                 f"{level:g}"),
         "alpha_min_deg": headline, "notes": notes,
         "families": [{k: v for k, v in f.items() if k != "key"} | {"task_key": f["key"]} for f in families],
+        "spectra_check": spectra_rows,
     }
     return Analysis(maps_out, calibration_out, thresholds, null, map_values)
+
+
+def spectra_consistency(plan, store) -> list[dict]:
+    """Injected over null power per family and l band (:mod:`.spectra_check`); empty when the
+    stored skies carry no spectrum (results of an older version, resumed)."""
+    null = [store.get(T.null_id(i)).get("cl") for i in range(plan.n_null)]
+    if any(c is None for c in null):
+        return []
+    injected = {}
+    for info in calibration.family_info(plan):
+        cls = [store.get(T.injection_id(info["key"], r, j)).get("cl") for r in plan.injection_radii_deg
+               for j in range(plan.n_injections)]
+        if all(c is not None for c in cls):
+            injected[info["label"]] = np.array(cls)
+    return spectra_check.compare(np.array(null), injected, plan.sim_lmax)
 
 
 def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tuple[dict, dict]:
@@ -156,6 +175,11 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
                                 calibration["efficiency_confidence"])
     t.write(staging / "efficiency.ecsv", format="ascii.ecsv")
     tables["efficiency"] = t
+
+    if calibration.get("spectra_check"):
+        t = report.spectra_check_table(calibration["spectra_check"], spectra_check.DEPARTURE_SIGMA)
+        t.write(staging / "spectra_check.ecsv", format="ascii.ecsv")
+        tables["injected / null sky power per l band"] = t
 
     first_bounds = next((m["bounds"] for m in analysis.maps if m["bounds"]), None)
     if first_bounds is not None:

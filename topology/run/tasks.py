@@ -196,9 +196,12 @@ def task_data(plan, name: str) -> dict:
 
 
 def task_null(plan, task_id: str) -> dict:
+    from .spectra_check import sky_power
+
     m, seed = null_map(plan, task_id)
     res = search_values(m, plan, task_id)
-    return {"s_max": smax_by_radius(res, plan.radii_deg), "seed": seed, "elapsed_s": res["elapsed_s"]}
+    return {"s_max": smax_by_radius(res, plan.radii_deg), "seed": seed, "elapsed_s": res["elapsed_s"],
+            "cl": sky_power(m, plan.sim_lmax)}
 
 
 def task_injection(plan, family: int, radius_deg: float, task_id: str) -> dict:
@@ -206,6 +209,7 @@ def task_injection(plan, family: int, radius_deg: float, task_id: str) -> dict:
     largest circles have a radius drawn uniformly within half a search step of the nominal one
     (so the efficiency covers circles between the grid radii too), observed and searched."""
     from .. import injection
+    from .spectra_check import sky_power
 
     seed = int_seed(plan.significance["seed"], task_id)
     rng = np.random.default_rng(task_seed(plan.significance["seed"], task_id + "/geometry"))
@@ -220,4 +224,4 @@ def task_injection(plan, family: int, radius_deg: float, task_id: str) -> dict:
     res = search_values(m, plan, task_id, radii_deg=near) if near.size else {"s_max": [], "elapsed_s": 0.0}
     return {"s_max": smax_by_radius(res, plan.radii_deg), "radius_deg": float(radius_deg),
             "radius_true_deg": radius_true, "seed": seed, "elapsed_s": res["elapsed_s"],
-            "omega_k": float(cosmo_inj.omega_k)}
+            "omega_k": float(cosmo_inj.omega_k), "cl": sky_power(m, plan.sim_lmax)}
