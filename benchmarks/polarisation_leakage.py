@@ -41,8 +41,9 @@ def leakage(nside: int, lmax: int, skies: int, cut: float) -> None:
         for i, (lo, hi) in enumerate(bands):
             be = np.array([r[i]["b_over_e"] for r in rows])
             rr = np.array([r[i]["r_interior"] for r in rows])
+            bi = np.array([r[i]["b_rms_interior"] for r in rows])
             print(f"    l {lo:>3}-{hi:<3}  B/E {be.mean():.3f} +- {be.std():.3f}   "
-                  f"r_interior {rr.mean():.3f} +- {rr.std():.3f}")
+                  f"r_interior {rr.mean():.3f} +- {rr.std():.3f}   B/E rms interior {bi.mean():.3f}")
 
 
 def spread(seed: int = 1) -> None:

@@ -61,3 +61,5 @@ def test_leakage_through_a_galactic_cut():
     low, mid, high = rows
     assert 0.02 < low["b_over_e"] < 0.3 and high["b_over_e"] < 0.03 < low["b_over_e"]
     assert high["r_interior"] > 0.97 and mid["r_interior"] > 0.9 and low["r_interior"] > 0.85
+    # a pure-E field gives B near zero away from the cut at the band limit's scales
+    assert high["b_rms_interior"] < 0.06 and low["b_rms_interior"] > 0.1
