@@ -101,6 +101,8 @@ def test_noise_per_stokes_parameter_and_masks(monkeypatch):
     m = polarised.observe_polarised(sky, nside=16, seed=3, mask=t_mask, pol_mask=p_mask, pixwin=False)
     assert np.all(m[0][:100] == hp.UNSEEN) and np.all(m[0][100:] != hp.UNSEEN)
     assert np.all(m[1:, -200:] == hp.UNSEEN) and np.all(m[1:, :-200] != hp.UNSEEN)
+    with pytest.raises(InputError, match="noise_pol_uk"):
+        polarised.observe_polarised(sky, nside=16, seed=3, noise_pol_uk=float("nan"))
 
 
 def test_polarisation_needs_the_full_physics_and_the_table_without_camb(monkeypatch):

@@ -122,6 +122,8 @@ def polarised_cl(cosmology, lmax: int, terms=spectra.FULL_TERMS) -> dict:
 
 def correlated_alm(cl: dict, seed: int) -> tuple[np.ndarray, np.ndarray]:
     """(a_T, a_E) with <a_T a_T*> = C_TT, <a_E a_E*> = C_EE, <a_T a_E*> = C_TE (module docstring)."""
+    import healpy as hp
+
     from .isotropic import gaussian_alm
 
     tt, ee, te = (np.asarray(cl[k], dtype=float) for k in ("TT", "EE", "TE"))
@@ -130,8 +132,6 @@ def correlated_alm(cl: dict, seed: int) -> tuple[np.ndarray, np.ndarray]:
     pos = tt > 0
     ratio = np.where(pos, te / np.where(pos, tt, 1.0), 0.0)
     rest = np.sqrt(np.clip(ee - ratio * te, 0.0, None))
-    import healpy as hp
-
     return a_t, hp.almxfl(a_t, ratio) + hp.almxfl(g, rest)
 
 
@@ -151,25 +151,29 @@ def observe_polarised(sky: Sky, *, nside: int, fwhm_deg: float = 0.0, noise_uk: 
     """Observed (I, Q, U) RING maps in microK, shape (3, 12 nside^2).
 
     Beam, pixel window and the hit-count scaling as :func:`topology.skies.instrument.observe`;
-    noise ``noise_uk`` on I and ``noise_pol_uk`` on each of Q, U (default sqrt(2) noise_uk, a
-    detector pair splitting its time between two polarisation angles; common practice).
+    noise ``noise_uk`` on I and ``noise_pol_uk`` on each of Q, U (default sqrt(2) noise_uk, as
+    for a pair of polarisation-sensitive detectors whose sum gives I and difference Q or U;
+    common practice).
     ``mask`` (1 kept) sets I to UNSEEN where 0, ``pol_mask`` (default: ``mask``) Q and U.
     ``convention`` "healpix" or "iau" (U of opposite sign).
     """
     import healpy as hp
 
-    from .instrument import observe
+    from .instrument import beam_window, observe, pixel_window
 
     if convention not in CONVENTIONS:
         raise InputError(f"must be 'healpix' or 'iau', got {convention!r}", "[sky] qu_convention")
     if "alm_e" not in sky.meta:
         raise InputError("this sky has no polarisation (only isotropic polarised skies have E modes yet)",
                          "[sky] polarisation")
+    sigma_p = math.sqrt(2.0) * float(noise_uk) if noise_pol_uk is None else noise_pol_uk
+    if isinstance(sigma_p, bool) or not isinstance(sigma_p, (int, float, np.integer, np.floating)) \
+            or not math.isfinite(sigma_p) or sigma_p < 0:
+        raise InputError(f"must be a finite number >= 0, got {noise_pol_uk!r}", "[sky] noise_pol_uk")
+    sigma_p = float(sigma_p)
     i_map = observe(sky, nside=nside, fwhm_deg=fwhm_deg, noise_uk=noise_uk, hits=hits, pixwin=pixwin,
                     seed=seed, mask=mask, lmax=lmax)
     lmax = sky.lmax if lmax is None else int(lmax)
-    from .instrument import beam_window, pixel_window
-
     window = beam_window(float(fwhm_deg), lmax) * (pixel_window(nside, lmax) if pixwin else 1.0)
     a_e = np.asarray(sky.meta["alm_e"])
     if lmax != sky.lmax:
@@ -177,9 +181,6 @@ def observe_polarised(sky: Sky, *, nside: int, fwhm_deg: float = 0.0, noise_uk: 
     a_e = hp.almxfl(a_e, window)
     zero = np.zeros_like(a_e)
     _, q, u = hp.alm2map([zero, a_e, zero], nside, lmax=lmax, pol=True)
-    sigma_p = math.sqrt(2.0) * float(noise_uk) if noise_pol_uk is None else float(noise_pol_uk)
-    if not (math.isfinite(sigma_p) and sigma_p >= 0):
-        raise InputError(f"must be a finite number >= 0, got {noise_pol_uk!r}", "[sky] noise_pol_uk")
     npix = 12 * nside * nside
     unseen = np.zeros(npix, dtype=bool)
     if sigma_p > 0 or hits is not None:
