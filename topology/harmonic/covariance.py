@@ -12,16 +12,17 @@ columns Re u, Im u, each scaled by sqrt of its multiplicity.) The flat source is
 :func:`topology.harmonic.flat.flat_mode_blocks`; a spherical source of invariant S^3 modes
 plugs in the same way (:func:`space_covariance` dispatches on the geometry).
 
-The cut and its complement. The space's modes are kept to 0 < k chi_rec <= kchi_max. With
-``complement`` (the default) the isotropic power of the modes
-beyond the cut, C_l - C_l(kchi_max), is added on the diagonal, C_l the isotropic spectrum of the
-terms (:func:`topology.skies.spectra.isotropic_cl`) and C_l(kchi_max) its continuum integral to
-the cut (:func:`topology.harmonic.radial.isotropic_cl_cut`); the reference is then the isotropic
-C_l itself. The complement stands in for the lattice modes beyond the cut as if they were
+The cut and its complement, as in the flat skies (:mod:`topology.skies.flat_cut`). The space's
+modes are kept to 0 < k chi_rec <= kchi_max, tapered over the last few units of k chi_rec. With
+``complement`` (the default) the isotropic power of the modes beyond the cut, C_l - C_l(kchi_max)
+(:func:`topology.skies.flat_cut.complement_cl`), is added on the diagonal, C_l the isotropic
+spectrum of the terms (:func:`topology.skies.spectra.isotropic_cl`) and C_l(kchi_max) the
+continuum integral of the kept, tapered modes (:func:`topology.skies.flat_cut.kept_cl`); the
+reference is then the isotropic C_l itself. The complement stands in for the lattice modes beyond the cut as if they were
 isotropic: at l <= lmax they carry little of the topology (a mode of k chi_rec >> l projects
 onto multipole l in small caps about +-k^), and the divergence converges fast in the cut
 (E1 of side 1, 2, 2.5 chi_rec at lmax 10: within 0.2 % of its value at kchi_max = 80 for
-kchi_max = 40, against 8, 4 and 1 % above it without the complement). Without it (``complement=False``) the reference is the isotropic sky of the
+kchi_max = 40, against 10, 6 and 1 % above it without the complement). Without it (``complement=False``) the reference is the isotropic sky of the
 same cut, C_l(kchi_max): a space much larger than chi_rec tends to it on the diagonal, and a
 small space whose modes below the cut span fewer than N directions has a singular covariance.
 """
@@ -35,7 +36,7 @@ from scipy.linalg.blas import dsyrk
 
 from ..errors import InputError
 from .basis import isotropic_diagonal, n_coefficients
-from .radial import check_terms, isotropic_cl_cut, k_floor, radial_function
+from .radial import check_terms, radial_function
 
 #: default wave-number cut of the covariance: kchi_max = KCHI_FACTOR * lmax + KCHI_EXTRA
 KCHI_FACTOR = 3.0
@@ -126,15 +127,17 @@ def space_covariance(space, observer, cosmology, *, lmax: int, terms=("sw",), kc
     radial = radial_function(cosmology, lmax, terms)
     C = covariance_from_blocks(flat_mode_blocks(space, observer, cosmology, lmax, kchi, radial, block),
                                n_coefficients(lmax))
-    cl_cut = isotropic_cl_cut(cosmology, lmax, kchi, terms, kchi_min=k_floor(cosmology, lmax, terms))
     if complement:
+        from ..skies.flat_cut import complement_cl
         from ..skies.spectra import isotropic_cl
 
         cl_ref = isotropic_cl(cosmology, lmax, terms)
-        tail = np.maximum(cl_ref - cl_cut, 0.0)
+        tail = complement_cl(cosmology, lmax, kchi, terms)
         C[np.diag_indices_from(C)] += isotropic_diagonal(tail, lmax)
     else:
-        cl_ref, tail = cl_cut, np.zeros(lmax + 1)
+        from ..skies.flat_cut import kept_cl
+
+        cl_ref, tail = kept_cl(cosmology, lmax, kchi, terms), np.zeros(lmax + 1)
     meta = {"family": space.family, "params": dict(space.params),
             "observer": np.asarray(observer.point[:3], dtype=float).tolist(), "complement": bool(complement)}
     return HarmonicCovariance(C, lmax, kchi, terms, cl_ref, tail, mode_count(space, observer, kchi), meta)

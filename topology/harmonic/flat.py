@@ -2,12 +2,13 @@
 
 The same modes and amplitudes as the flat skies (:mod:`topology.skies.flat_modes`: the
 wave vectors k = 2 pi n D of the covering torus with 0 < k chi_rec <= kchi_max, rms
-sigma(k) = (T/5) sqrt(2 pi^2 P_R(k) / (k^3 V)), the point-group average c_q = N_g^-1/2
+sigma(k) = (T/5) sqrt(2 pi^2 P_R(k) / (k^3 V)) times the taper w(k) of the cut
+(:func:`~topology.skies.flat_modes.cut_weight`), the point-group average c_q = N_g^-1/2
 sum_g c~_{R_g q} e^{i (R_g q).t_g}). Written as a sum over the torus's independent unit normals
 z_k (<z_k z*_k'> = delta_kk', z_{-k} = z*_k), the invariant field seen from x with sky axes F
 (columns, space coordinates) has real coefficients r = sum_k z_k u(k),
 
-    u(k) = 4 pi i^l sigma(k) R_l(k) N_g^-1/2 sum_g e^{i k.(R_g x + t_g)} Y^R(F^T R_g^T k^),
+    u(k) = 4 pi i^l sigma(k) w(k) R_l(k) N_g^-1/2 sum_g e^{i k.(R_g x + t_g)} Y^R(F^T R_g^T k^),
 
 (R_l = j_l for Sachs-Wolfe; :mod:`topology.harmonic.radial`), hence C = sum_k u(k) u(k)^H over the
 whole ball. Two reductions keep it small (both exact): u(-k) = u(k)*, and u(R_h k) =
@@ -27,7 +28,8 @@ import math
 import numpy as np
 
 from ..errors import InputError
-from ..skies.flat_modes import check_space, compact_cover, half_ball_modes, index_bounds, mode_sigma, point_group
+from ..skies.flat_modes import (check_space, compact_cover, cut_weight, half_ball_modes, index_bounds, mode_sigma,
+                                point_group)
 from .basis import LMIN, n_coefficients, real_harmonics
 
 #: memory of one block of columns (float64, N x 2 block), bytes
@@ -100,7 +102,7 @@ def flat_mode_blocks(space, observer, cosmology, lmax: int, kchi_max: float, rad
         k = k_all[b0:b0 + block]
         B = len(k)
         kn = np.linalg.norm(k, axis=1)
-        col = 4.0 * np.pi * mode_sigma(kn, cosmology, space.covering_cell_volume) \
+        col = 4.0 * np.pi * mode_sigma(kn, cosmology, space.covering_cell_volume) * cut_weight(kn, kchi_max) \
             * np.sqrt(w_all[b0:b0 + block] / len(cosets))
         ku, inv = np.unique(np.round(kn, 12), return_inverse=True)
         factor = np.asarray(radial(ell, ku))[:, inv] * col[None, :]      # (lmax - 1, B)
