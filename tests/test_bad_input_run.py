@@ -181,3 +181,12 @@ def test_null_and_injected_terms_must_agree():
     assert err.value.where == "[significance] injection_families #2"
     data["instrument"]["terms"] = ["sw"]
     assert plan_from_config(config_from_dict(data)).instrument["terms"] == ("sw",)
+    # flat injections make the full terms with or without camb (the shipped shell table for the
+    # default cosmology)
+    import topology.skies.spectra as spectra
+
+    data["instrument"]["terms"] = ["sw", "doppler", "isw"]
+    data["significance"]["injection_families"] = ["E1"]
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(spectra, "have_camb", lambda: False)
+        assert plan_from_config(config_from_dict(data)).instrument["terms"] == ("sw", "doppler", "isw")

@@ -372,12 +372,14 @@ def test_full_terms_sky_spectrum_and_degraded_circles():
     assert 0.3 < np.mean(corr[FULL]) < 0.95
 
 
-def test_full_terms_need_the_eigenmode_method():
+def test_full_terms_auto_method():
+    # "auto" with the CAMB terms: CAMB's transfer in the eigenmode sum to lmax 64, the grid of
+    # shells (skies.transfer_shells; tests/test_skies_flat_shells.py) above
     e1 = build_space({"family": "E1", "lengths": [1.6, 1.6, 1.6]})
-    with pytest.raises(InputError, match="grid"):
-        flat_sky(e1, OBSERVER, COSMO, lmax=10, nside=16, method="grid", terms=FULL, seed=0)
-    sky = flat_sky(e1, OBSERVER, COSMO, lmax=100, nside=64, method="auto", terms=FULL, seed=0, kchi_max=10.0)
+    sky = flat_sky(e1, OBSERVER, COSMO, lmax=20, nside=16, method="auto", terms=FULL, seed=0, kchi_max=10.0)
     assert sky.kind == "alm" and sky.meta["transfer"] == "camb"
+    sky = flat_sky(e1, OBSERVER, COSMO, lmax=100, nside=64, method="auto", terms=FULL, seed=0, kchi_max=10.0)
+    assert sky.kind == "map" and sky.meta["transfer"] == "camb shells"
 
 
 def test_quadratic_spline_grid_also_agrees():

@@ -303,7 +303,7 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
         raise InputError(f"injection radii {injection_radii.min():g}..{injection_radii.max():g} deg lie outside the "
                          f"searched radii {radii.min():g}..{radii.max():g} deg", "[significance] injection_radii")
     significance["injection_families"] = injection_families(cfg)
-    check_run_terms(terms, cosmo, significance["injection_families"], targets, maps)
+    check_run_terms(terms, cosmo, significance["injection_families"], targets, maps, sim_lmax)
     if targets:
         targeted.check_injectable(targets, cfg.section("cosmology"), cfg.base_dir, sim_lmax)
     else:
@@ -351,12 +351,14 @@ def injection_families(cfg: Config) -> list[dict]:
     return injection.injection_specs(cfg.get("significance", "injection_families"))
 
 
-def check_run_terms(terms: tuple, cosmo, families: list[dict], targets: list[dict], maps: list[MapSpec]) -> None:
+def check_run_terms(terms: tuple, cosmo, families: list[dict], targets: list[dict], maps: list[MapSpec],
+                    lmax: int) -> None:
     """One spectrum and one set of terms for every simulated sky of a run: the null skies
     (isotropic, ``[instrument] terms``), the injected families, the targets and the inline data
     skies must all be able to make exactly those terms (:data:`topology.skies.SKY_TERMS`), and
-    the full terms need CAMB (or, for the default cosmology, the shipped table for isotropic
-    skies; flat skies need CAMB's transfer). One-line InputError otherwise, before any work."""
+    the full terms need CAMB or, for the default cosmology, the shipped tables (the isotropic
+    spectrum, and the shell fit of the transfer for flat skies to l = 1024). One-line InputError
+    otherwise, before any work."""
     from .. import injection
     from ..skies import check_sky_terms
     from ..skies.spectra import have_camb, is_default_cosmology
@@ -381,10 +383,12 @@ def check_run_terms(terms: tuple, cosmo, families: list[dict], targets: list[dic
             raise InputError("without camb the Doppler and ISW terms exist only for the default cosmology (the "
                              "shipped CAMB table): pip install 'topology[spectra]' or give terms = [\"sw\"]",
                              "[instrument] terms")
+        from ..skies.transfer_shells import TABLE_LMAX
+
         flat = [where for kind, t, where in kinds if kind == "flat" and set(t) != {"sw"}]
-        if flat:
-            raise InputError("flat skies with Doppler and ISW need CAMB's transfer functions: pip install "
-                             "'topology[spectra]' or give [instrument] terms = [\"sw\"]", flat[0])
+        if flat and lmax > TABLE_LMAX:
+            raise InputError(f"flat skies with Doppler and ISW above l = {TABLE_LMAX} (the shipped transfer table) "
+                             "need camb: pip install 'topology[spectra]' or lower [instrument] lmax", flat[0])
 
 
 def reachable_note(n_injections: int, level: float, confidence: float) -> str | None:

@@ -34,15 +34,20 @@ Temperature terms:
   matter-dominated universe on a thin last-scattering shell (Phi = -3 R / 5; Sachs & Wolfe
   1967, common practice), T = T_cmb of the cosmology, in microK. It matches exactly on
   circle pairs.
-* ["sw", "doppler", "isw"] (eigenmode method only, needs camb): CAMB's line-of-sight
-  temperature transfer in place of j_l (:mod:`topology.skies.flat_eigenmode`); the complement
-  then has CAMB's unlensed C_l (or the shipped table) minus the transfer integral to K. CAMB
-  does not separate the terms, so other term sets raise InputError; the grid method (one thin
-  shell of one 3-D field) makes SW skies only.
+* ["sw", "doppler", "isw"] (both methods): the line-of-sight temperature transfer in place of
+  j_l(k chi_rec): SW with the transfer function and the thickness of last scattering, Doppler,
+  early and late ISW, reionisation (CAMB; its terms are not separable, so other sets raise
+  InputError). Eigenmode method: CAMB's Delta_l(k) itself (:mod:`topology.skies.transfer`).
+  Grid method: the sky of a few shells, sum_s F_s(x_obs + r_s n) with weights g_s(k) fitted
+  to CAMB's Delta_l(k) (:mod:`topology.skies.transfer_shells`; 6 shells near last scattering
+  for every k, 19 shells for k chi_rec <= 100: ~6-7 times the SW grid's cost). Without camb
+  both use the shell fit shipped for the default cosmology (l <= 1024). The complement has the
+  isotropic C_l of these terms (CAMB's unlensed TT, or the shipped table) minus the kept power
+  with the same R_l, so the expected C_l is the isotropic one either way.
 
 Methods: ``eigenmode`` -> an alm-type Sky (l <= lmax); ``grid`` -> a map-type Sky at ``nside``
 (the field sampled at the pixel centres, no pixel window); ``auto`` -> eigenmode for
-lmax <= AUTO_LMAX or for the CAMB terms, else grid.
+lmax <= AUTO_LMAX, else grid.
 
 Non-compact families E11-E17 (chimneys: one open direction, slabs: two). Their spectrum is
 continuous along the open directions. The sky is that of
@@ -60,7 +65,7 @@ mode count, e.g. at lmax = kchi_max = 64 (the eigenmode range of "auto") a slab 
 1.4 has 2.2e5 modes (~10 s), a chimney of section 1.5 x 1.6 has 6.4e4 (~3 s); the grid of a
 slab at lmax 128 is 300 x 300 x 72 cells.
 
-ISW for these skies comes only with the CAMB transfer (above); the grid method has none.
+ISW for these skies comes only with the CAMB terms (above).
 """
 
 from __future__ import annotations
@@ -71,6 +76,7 @@ from ..bandlimit import check_band_limit, lmax_limit
 from ..errors import InputError
 from .base import TERMS, Sky, stream_rng
 from .flat_eigenmode import eigenmode_alm
+from .flat_cut import transfer_source
 from .flat_grid import grid_map
 from .flat_modes import check_space, compact_cover
 
@@ -116,7 +122,8 @@ def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, term
 
     if not fits(float(lmax) + 1.0):
         return float(lmax)
-    hi = min(k_pix, cut_for_accuracy(cosmology, lmax, tuple(terms)))
+    # the pure cut of the CAMB terms (3-10 lmax) is never below the pixels' cut
+    hi = min(k_pix, cut_for_accuracy(cosmology, lmax) if tuple(terms) == ("sw",) else k_pix)
     if fits(hi):
         return hi
     lo = float(lmax)
@@ -126,14 +133,15 @@ def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, term
     return lo
 
 
-def complement(cosmology, lmax: int, kchi: float, terms, seed: int) -> tuple[np.ndarray, float]:
+def complement(cosmology, lmax: int, kchi: float, terms, seed: int, source: str = "camb") -> tuple[np.ndarray, float]:
     """(a_lm to lmax, healpy order; share of C_lmax): the isotropic field of the power beyond the
-    cut (:func:`topology.skies.flat_cut.complement_cl`), drawn from the "tail" stream of ``seed``."""
+    cut (:func:`topology.skies.flat_cut.complement_cl`, R_l from ``source``), drawn from the
+    "tail" stream of ``seed``."""
     from .flat_cut import complement_cl
     from .isotropic import gaussian_alm
     from .spectra import isotropic_cl
 
-    cl = complement_cl(cosmology, lmax, kchi, terms)
+    cl = complement_cl(cosmology, lmax, kchi, terms, source)
     iso = isotropic_cl(cosmology, lmax, terms)
     share = float(cl[lmax] / iso[lmax]) if lmax >= 2 and iso[lmax] > 0 else 0.0
     return gaussian_alm(cl, stream_rng(seed, "tail")), share
@@ -178,9 +186,9 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
     (position in chi_rec; sky direction n points along frame[:3] @ n); cosmology: T_cmb,
     chi_rec_mpc. kchi_max: largest k chi_rec kept (default :func:`choose_cut`); ``complete``: add
     the isotropic complement of the power beyond it (module doc; meta "complement_lmax" is its
-    share of C_lmax). method "eigenmode" -> alm Sky
-    (l <= lmax), "grid" -> map Sky at nside, "auto" -> eigenmode for lmax <= 64 or for the CAMB
-    terms, else grid. Grid only: oversample (grid cells per shortest half-wavelength),
+    share of C_lmax). method "eigenmode" -> alm Sky (l <= lmax), "grid" -> map Sky at nside,
+    "auto" -> eigenmode for lmax <= 64, else grid. Grid only: oversample (grid cells per
+    shortest half-wavelength),
     spline_order 3 (cubic B-spline, 64 taps) or 2 (quadratic, 27 taps: ~2x faster sampling,
     ~2x the error); workers: threads for the FFT, the normals and the sampling. Non-compact
     families E11-E17: the sky of :func:`~topology.skies.flat_modes.compact_cover` (open
@@ -200,10 +208,7 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
         free = ("".join("xyz"[d] for d in axes), lengths)
     full = terms != ("sw",)
     if method == "auto":
-        method = "eigenmode" if (lmax <= AUTO_LMAX or full) else "grid"
-    if method == "grid" and full:
-        raise InputError("the grid method makes Sachs-Wolfe skies only (terms = [\"sw\"]); the Doppler and ISW "
-                         "terms need the line-of-sight transfer of the eigenmode method", "[sky] method")
+        method = "eigenmode" if lmax <= AUTO_LMAX else "grid"
     if method == "grid" and nside is None:
         raise InputError("the grid method needs nside", "[sky] nside")
     kchi = float(kchi_max) if kchi_max is not None else choose_cut(space, cosmology, lmax, nside, method, terms,
@@ -214,18 +219,26 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
             "observer": x_obs.tolist(), "terms": list(terms)}
     if free is not None:   # the open directions' period (the discretisation of their spectrum)
         meta.update(free_axes=free[0], free_length=",".join(f"{L:g}" for L in free[1]))
+    source = transfer_source(method) if full else "sw"
+    meta["transfer"] = {"sw": "sachs-wolfe", "camb": "camb", "shells": "camb shells"}[source]
     if method == "eigenmode":
         alm, n_modes = eigenmode_alm(space, cosmology, seed, kchi, lmax, x_obs, F, transfer=full)
-        meta.update(method="eigenmode", n_modes=n_modes, transfer="camb" if full else "sachs-wolfe")
+        meta.update(method="eigenmode", n_modes=n_modes)
         if complete:
-            extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed)
+            extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed, source)
             alm += extra
         return Sky(lmax=lmax, alm=alm, nside=nside, terms=terms, meta=meta)
-    sky, shape = grid_map(space, cosmology, seed, kchi, x_obs, F, nside, oversample, workers, spline_order)
+    shells = None
+    if full:
+        from .transfer_shells import shell_transfer
+
+        shells = shell_transfer(cosmology, lmax, kchi)
+    sky, shape = grid_map(space, cosmology, seed, kchi, x_obs, F, nside, oversample, workers, spline_order, shells,
+                          lmax)
     if complete:
         import healpy as hp
 
-        extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed)
+        extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed, source)
         sky += hp.alm2map(extra, nside, lmax=lmax)
     meta.update(method="grid", grid=shape, oversample=float(oversample), spline_order=int(spline_order))
     return Sky(lmax=lmax, map=sky, nside=nside, terms=terms, meta=meta)

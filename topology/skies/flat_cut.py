@@ -31,9 +31,7 @@ both points of a matched pair (measured by benchmarks/flat_sky_spectrum.py).
 
 C_l(K) is integrated with composite Gauss-Legendre panels (width PANEL in k chi_rec, NODES
 each; R_l oscillates with period 2 pi). For the SW term j_l comes from the upward recurrence
-j_{l+1} = (2l + 1) j_l / x - j_{l-1} (stable for l < x; common practice), set to 0 beyond
-l = x + 4 x^(1/3), where j_l < 2e-4 of its peak and the recurrence would amplify rounding;
-below x = 40 scipy's spherical_jn.
+of :func:`topology.skies.transfer_shells.bessel_rows`.
 """
 
 from __future__ import annotations
@@ -46,11 +44,11 @@ from scipy.special import spherical_jn
 
 from ..errors import InputError
 from .flat_modes import cut_weight, taper_width
+from .transfer_shells import bessel_rows
 from .spectra import A_S, K_PIVOT, N_S, isotropic_cl, primordial_power, sw_bessel_integral
 
 PANEL = 1.0           # k chi_rec width of a quadrature panel
 NODES = 8             # Gauss-Legendre nodes per panel
-X_SMALL = 40.0        # below this x, j_l from scipy (the recurrence is unstable past l ~ x)
 CHUNK = 4096          # quadrature nodes per block (bounded memory)
 SW = ("sw",)
 FULL = ("sw", "doppler", "isw")
@@ -79,31 +77,15 @@ def quadrature(k_lo: float, k_hi: float) -> tuple[np.ndarray, np.ndarray]:
 
 
 def bessel_squares(lmax: int, x: np.ndarray, weight: np.ndarray) -> np.ndarray:
-    """S_l = sum_i weight_i j_l(x_i)^2 for l = 0..lmax (x > 0; see the module doc for the method)."""
+    """S_l = sum_i weight_i j_l(x_i)^2 for l = 0..lmax (x > 0; j_l from
+    :func:`topology.skies.transfer_shells.bessel_rows`), in blocks of CHUNK nodes."""
     x = np.asarray(x, dtype=float)
     weight = np.asarray(weight, dtype=float)
-    out = np.zeros(lmax + 1)
-    small = x < X_SMALL
-    if small.any():
-        xs, ws = x[small], weight[small]
-        top = min(lmax, int(X_SMALL + 4.0 * X_SMALL ** (1.0 / 3.0)) + 10)
-        ell = np.arange(top + 1)
-        out[: top + 1] += (spherical_jn(ell[:, None], xs[None, :]) ** 2) @ ws
-    for b in range(0, int((~small).sum()), CHUNK):
-        xb = x[~small][b:b + CHUNK]
-        wb = weight[~small][b:b + CHUNK]
-        thr = xb + 4.0 * np.cbrt(xb)
-        inv = 1.0 / xb
-        j0 = np.sin(xb) * inv
-        j1 = (j0 - np.cos(xb)) * inv
-        out[0] += wb @ (j0 * j0)
-        if lmax >= 1:
-            out[1] += wb @ (j1 * j1)
-        for ell in range(1, lmax):
-            j2 = (2 * ell + 1) * inv * j1 - j0
-            j2[ell + 1 > thr] = 0.0
-            out[ell + 1] += wb @ (j2 * j2)
-            j0, j1 = j1, j2
+    out = np.zeros(int(lmax) + 1)
+    for b in range(0, x.size, CHUNK):
+        wb = weight[b:b + CHUNK]
+        for ell, j in enumerate(bessel_rows(int(lmax), x[b:b + CHUNK])):
+            out[ell] += wb @ (j * j)
     return out
 
 
@@ -138,6 +120,15 @@ def _transfer_radial(cosmology, lmax: int):
     return lambda ell, k: -5.0 * delta(ell, np.asarray(k) / chi)
 
 
+def transfer_source(method: str) -> str:
+    """Where a flat sky's R_l(k) for the terms sw + doppler + isw comes from: "camb" (CAMB's
+    transfer, the eigenmode method with camb) or "shells" (the shell fit of
+    :mod:`topology.skies.transfer_shells`: the grid method, and the eigenmode method without camb)."""
+    from .spectra import have_camb
+
+    return "camb" if method == "eigenmode" and have_camb() else "shells"
+
+
 def transfer_k_floor(cosmology, lmax: int) -> float:
     """Smallest k chi_rec of CAMB's transfer samples (below it Delta_l ~ (k chi)^l, l >= 2, adds
     nothing measurable)."""
@@ -147,15 +138,21 @@ def transfer_k_floor(cosmology, lmax: int) -> float:
 
 
 @lru_cache(maxsize=64)
-def _kept_cl_cached(cosmology, lmax: int, kchi: float, terms: tuple) -> np.ndarray:
+def _kept_cl_cached(cosmology, lmax: int, kchi: float, terms: tuple, source: str) -> np.ndarray:
     cl = np.zeros(lmax + 1)
     if lmax < 2:
         return cl
     if terms == SW:
         cl[2:] = _sw_scale(cosmology) * sw_kept_integral(lmax, kchi)[2:]
         return cl
-    radial = _transfer_radial(cosmology, lmax)
-    x, w = kept_quadrature(transfer_k_floor(cosmology, lmax), kchi)
+    if source == "shells":
+        from .transfer_shells import shell_transfer
+
+        st = shell_transfer(cosmology, lmax, kchi)
+        radial, floor = st.radial, float(st.k[0])
+    else:
+        radial, floor = _transfer_radial(cosmology, lmax), transfer_k_floor(cosmology, lmax)
+    x, w = kept_quadrature(floor, kchi)
     t_uk = cosmology.t_cmb * 1e6
     weight = w * (t_uk / 5.0) ** 2 * primordial_power(x / cosmology.chi_rec_mpc) / x
     ell = np.arange(2, lmax + 1)
@@ -166,20 +163,20 @@ def _kept_cl_cached(cosmology, lmax: int, kchi: float, terms: tuple) -> np.ndarr
     return cl
 
 
-def kept_cl(cosmology, lmax: int, kchi: float, terms=SW) -> np.ndarray:
+def kept_cl(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb") -> np.ndarray:
     """C_l(K) (microK^2, l = 0..lmax, C_0 = C_1 = 0): the isotropic spectrum of the modes
     0 < k chi_rec <= K weighted by the taper w(k)^2, the continuum limit of a flat sky's lattice
-    sum (see the module doc)."""
-    return _kept_cl_cached(cosmology, int(lmax), float(kchi), _terms(terms)).copy()
+    sum (see the module doc); for the CAMB terms with R_l from ``source`` (:func:`transfer_source`)."""
+    return _kept_cl_cached(cosmology, int(lmax), float(kchi), _terms(terms), str(source)).copy()
 
 
-def complement_cl(cosmology, lmax: int, kchi: float, terms=SW) -> np.ndarray:
+def complement_cl(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb") -> np.ndarray:
     """max(C_l - C_l(K), 0): the isotropic power of the modes beyond the cut, with C_l the
     isotropic spectrum of ``terms`` (:func:`topology.skies.spectra.isotropic_cl`, the spectrum of
     the null skies). Negative differences (CAMB's own C_l below its transfer integral by up to
     ~0.5 % where the cut leaves almost nothing out) are set to 0."""
     terms = _terms(terms)
-    return np.maximum(isotropic_cl(cosmology, int(lmax), terms) - kept_cl(cosmology, lmax, kchi, terms), 0.0)
+    return np.maximum(isotropic_cl(cosmology, int(lmax), terms) - kept_cl(cosmology, lmax, kchi, terms, source), 0.0)
 
 
 def _integrand(cosmology, ell: int, k_lo: float, k_hi: float, terms: tuple):

@@ -9,11 +9,12 @@ bounded. The a_lm (l <= lmax) are exact for the kept modes.
 
 Temperature terms. ["sw"]: Delta T / T = -R / 5 at x_obs + chi_rec n, the Sachs-Wolfe term of
 a matter-dominated universe on a thin last-scattering shell (Phi = -3 R / 5; Sachs & Wolfe
-1967, common practice), i.e. the radial function j_l(k chi_rec). ["sw", "doppler", "isw"]
-(needs camb): j_l(k chi_rec) is replaced by -5 Delta_l(k), CAMB's line-of-sight temperature
-transfer (:mod:`topology.skies.transfer`): SW with the full transfer function and finite LSS
-thickness, Doppler, early and late ISW, exactly the physics of
-:func:`topology.skies.spectra.camb_cl`. a_00 and a_1m are then 0.
+1967, common practice), i.e. the radial function j_l(k chi_rec). ["sw", "doppler", "isw"]:
+j_l(k chi_rec) is replaced by -5 Delta_l(k), CAMB's line-of-sight temperature transfer
+(:mod:`topology.skies.transfer`): SW with the full transfer function and finite LSS thickness,
+Doppler, early and late ISW, exactly the physics of :func:`topology.skies.spectra.camb_cl`;
+without camb its shell fit shipped for the default cosmology
+(:mod:`topology.skies.transfer_shells`). a_00 and a_1m are then 0.
 """
 
 from __future__ import annotations
@@ -124,11 +125,18 @@ def eigenmode_alm(space, cosmology, seed: int, kchi_max: float, lmax: int, x_obs
     k_sky = k @ frame                         # (F^T q) components in the sky frame
     radial = None
     if transfer:
-        from .transfer import temperature_transfer
+        from .flat_cut import transfer_source
 
-        delta = temperature_transfer(cosmology, lmax)
-        chi_mpc = cosmology.chi_rec_mpc
+        if transfer_source("eigenmode") == "camb":
+            from .transfer import temperature_transfer
 
-        def radial(ell, kn):  # -5 Delta_l(k) -> j_l(k chi_rec) in the SW limit
-            return -5.0 * delta(ell, kn / chi_mpc)
+            delta = temperature_transfer(cosmology, lmax)
+            chi_mpc = cosmology.chi_rec_mpc
+
+            def radial(ell, kn):  # -5 Delta_l(k) -> j_l(k chi_rec) in the SW limit
+                return -5.0 * delta(ell, kn / chi_mpc)
+        else:   # without camb: the shell fit of CAMB's transfer shipped for the default cosmology
+            from .transfer_shells import shell_transfer
+
+            radial = shell_transfer(cosmology, lmax, kchi_max).radial
     return plane_wave_alm(k_sky, coef, 1.0, lmax, radial), int(2 * len(n))

@@ -100,10 +100,11 @@ def _integer_form(G: np.ndarray, m, max_table: int = 1 << 22):
 
 
 def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, workers: int | None = None,
-                         order: int = 3) -> np.ndarray:
+                         order: int = 3, weight=None) -> np.ndarray:
     """Half spectrum (complex64 (N1, N2, N3//2 + 1), index n mod N) of the torus E1 for the grid:
     -sigma(k) w(k) z_n / B^(n) with B^ the B-spline transform and w the taper of
-    :func:`~topology.skies.flat_modes.cut_weight`, zero outside 0 < |k| <= kchi_max (the ball of
+    :func:`~topology.skies.flat_modes.cut_weight` (or ``weight(|k|)``, k chi_rec, when given: a
+    shell of the transfer, its taper included), zero outside 0 < |k| <= kchi_max (the ball of
     :func:`~topology.skies.flat_modes.half_ball_modes`).
 
     Block by block: each block's normals (:func:`~topology.skies.flat_modes.block_gaussians`,
@@ -128,14 +129,19 @@ def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, wo
     dec = [_bspline_deconv(idx[0], N1, order), _bspline_deconv(idx[1], N2, order),
            _bspline_deconv(idx[2], N3, order)]
     lim = kchi_max**2 * (1 + 1e-12)
-    edge2 = (kchi_max - taper_width(kchi_max)) ** 2
+    edge2 = 0.0 if weight is not None else (kchi_max - taper_width(kchi_max)) ** 2
+
+    def radial_weight(k):
+        return cut_weight(k, kchi_max) if weight is None else weight(k)
+
     power = (N_S - 4.0) / 4.0
     form = _integer_form(G, m)
     if form is not None:
         g, S, s_box = form
         table = np.zeros(s_box + 1)
         sv = np.arange(1, s_box + 1, dtype=float)
-        table[1:] = np.where(g * sv <= lim, scale * (g * sv) ** power * cut_weight(np.sqrt(g * sv), kchi_max), 0.0)
+        inside = g * sv <= lim
+        table[1:][inside] = scale * (g * sv[inside]) ** power * radial_weight(np.sqrt(g * sv[inside]))
         table = table.astype(np.float32)
         diag = [(S[d, d] * idx[d] ** 2).astype(np.int32) for d in range(3)]
         cross = [(a, c, int(2 * S[a, c])) for a, c in ((0, 1), (0, 2), (1, 2)) if S[a, c] != 0]
@@ -170,9 +176,9 @@ def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, wo
             k2[k2 > lim] = np.inf                     # inf^power = 0 (power < 0)
             sig = k2.astype(np.float32)
             np.power(sig, np.float32(power), out=sig)
-            taper = k2 > edge2                        # the taper zone below the cut
+            taper = np.isfinite(k2) & (k2 > edge2)     # the taper zone below the cut (everywhere for a shell)
             if taper.any():
-                sig[taper] *= cut_weight(np.sqrt(k2[taper]), kchi_max).astype(np.float32)
+                sig[taper] *= radial_weight(np.sqrt(k2[taper])).astype(np.float32)
         sig *= bcast(dec[0], 0, t)
         sig *= bcast(dec[1], 1, t) * bcast(dec[2], 2, t)
         # a block never straddles n = 0, so it lands contiguously at n mod N
@@ -196,14 +202,15 @@ def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, wo
 
 
 def mode_list_spectrum(space, cosmology, seed: int, kchi_max: float, shape, workers: int | None = None,
-                       order: int = 3) -> np.ndarray:
+                       order: int = 3, weight=None) -> np.ndarray:
     """The half spectrum of :func:`dense_torus_spectrum` for any family, from the invariant mode
     list c_q of :func:`~topology.skies.flat_modes.invariant_coefficients` (divided by the
     B-spline transform)."""
     N1, N2, N3 = shape
     spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
     n, k, c = invariant_coefficients(space, cosmology, seed, kchi_max, workers)
-    c = c * cut_weight(np.linalg.norm(k, axis=1), kchi_max)
+    kn = np.linalg.norm(k, axis=1)
+    c = c * (cut_weight(kn, kchi_max) if weight is None else weight(kn))
     c = c * (_bspline_deconv(n[:, 0], N1, order) * _bspline_deconv(n[:, 1], N2, order)
              * _bspline_deconv(n[:, 2], N3, order))
     spec[n[:, 0] % N1, n[:, 1] % N2, n[:, 2]] = c
@@ -234,8 +241,9 @@ def band_limited_irfft(spec: np.ndarray, shape, m, workers: int | None = None) -
 
 
 def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float = 1.2,
-               workers: int | None = None, order: int = 3) -> np.ndarray:
-    """B-spline coefficients (float32, shape grid_shape) of the SW temperature on the torus cell.
+               workers: int | None = None, order: int = 3, weight=None) -> np.ndarray:
+    """B-spline coefficients (float32, shape grid_shape) of the SW temperature on the torus cell
+    (with ``weight(|k|)`` in place of the cut's taper: one shell of the transfer).
 
     Index (j1, j2, j3) is the point x = sum_d (j_d / N_d) a_d; sample with
     :func:`sample_grid`.
@@ -245,9 +253,9 @@ def torus_grid(space, cosmology, seed: int, kchi_max: float, oversample: float =
         raise InputError(f"the grid method would need {shape} cells (> {MAX_GRID_CELLS:.0e}); lower lmax or "
                          "enlarge the space", "[sky] lmax")
     if len(space.cosets) == 1:
-        spec = dense_torus_spectrum(space, cosmology, seed, kchi_max, shape, workers, order)
+        spec = dense_torus_spectrum(space, cosmology, seed, kchi_max, shape, workers, order, weight)
     else:
-        spec = mode_list_spectrum(space, cosmology, seed, kchi_max, shape, workers, order)
+        spec = mode_list_spectrum(space, cosmology, seed, kchi_max, shape, workers, order, weight)
     return band_limited_irfft(spec, shape, index_bounds(space.lattice, kchi_max), workers)
 
 
@@ -301,13 +309,54 @@ def sample_grid_coords(grid: np.ndarray, coords: np.ndarray, workers: int | None
 
 
 def grid_map(space, cosmology, seed: int, kchi_max: float, x_obs: np.ndarray, frame: np.ndarray, nside: int,
-             oversample: float = 1.2, workers: int | None = None, order: int = 3):
-    """(RING map float64, grid shape): the SW sky of the compact flat ``space`` seen from ``x_obs``
+             oversample: float = 1.2, workers: int | None = None, order: int = 3, shells=None, lmax: int | None = None):
+    """(RING map float64, grid shape): the sky of the compact flat ``space`` seen from ``x_obs``
     (chi_rec) with sky axes ``frame`` (columns, space coordinates), sampled at the pixel centres
-    of ``nside`` (no pixel window), microK; the grid of :func:`torus_grid`."""
+    of ``nside`` (no pixel window), microK; the grid of :func:`torus_grid`.
+
+    ``shells`` None: the SW term, one field on the sphere of radius chi_rec. Else a
+    :class:`~topology.skies.transfer_shells.ShellTransfer`: the sky is sum_s F_s(x_obs + r_s n),
+    F_s the field of the amplitudes times w(k) g_s(k); the shells for k <= k_late (late ISW)
+    have small grids and are sampled at N_side NSIDE_LATE, taken to a_lm (l <= lmax) and added.
+    """
     import healpy as hp
 
-    grid = torus_grid(space, cosmology, seed, kchi_max, oversample, workers, order)
+    if shells is None:
+        return _sample_sphere(torus_grid(space, cosmology, seed, kchi_max, oversample, workers, order),
+                              space, x_obs, frame, nside, workers, order)
+    sky, shape = None, None
+    for s, r in enumerate(shells.radii[:shells.n_near]):
+        def weight(k, s=s):
+            return cut_weight(k, kchi_max) * shells.weights(k)[:, s]
+
+        grid = torus_grid(space, cosmology, seed, kchi_max, oversample, workers, order, weight)
+        part, shape = _sample_sphere(grid, space, x_obs, frame * r, nside, workers, order)
+        sky = part if sky is None else sky + part
+    k_late = min(kchi_max, shells.k_late)
+    late = None
+    for s in range(shells.n_near, len(shells.radii)):
+        def weight(k, s=s):
+            return cut_weight(k, kchi_max) * shells.weights(np.minimum(k, k_late))[:, s]
+
+        grid = torus_grid(space, cosmology, seed, k_late, oversample, workers, order, weight)
+        part, _ = _sample_sphere(grid, space, x_obs, frame * shells.radii[s], NSIDE_LATE, workers, order)
+        late = part if late is None else late + part
+    if late is not None:
+        top = min(int(lmax) if lmax is not None else 3 * nside - 1, 3 * NSIDE_LATE - 1, 3 * nside - 1)
+        sky += hp.alm2map(hp.map2alm(late, lmax=top, iter=3), nside, lmax=top)
+    # no monopole and dipole: CAMB's transfer has none (Delta_0 = Delta_1 = 0)
+    sky -= hp.alm2map(hp.map2alm(sky, lmax=1, iter=3), nside, lmax=1)
+    return sky, shape
+
+
+#: N_side at which the late shells (k chi_rec <= 100, l below ~115) are sampled
+NSIDE_LATE = 64
+
+
+def _sample_sphere(grid, space, x_obs, frame, nside, workers, order):
+    """(RING map, grid shape) of ``grid`` at the pixel centres x_obs + frame n of ``nside``."""
+    import healpy as hp
+
     # sampled in NESTED order (neighbouring pixels, neighbouring grid cells: fewer cache misses
     # than RING order), then put in RING order
     vals = sample_grid_coords(grid, sphere_grid_coords(space, grid.shape, x_obs, frame, nside, nest=True), workers,
