@@ -138,19 +138,20 @@ def test_drawn_weights_have_the_method_of_images_covariance(monkeypatch):
 
 def test_matched_circles_of_a_high_degree_sky():
     # check: exact matching on predicted circle pairs, T_A(phi) = T_B(s phi + tau) (Cornish,
-    # Spergel & Starkman 1998, CQG 15, 2657), with modes to k = 152 (past the full draw) and the
+    # Spergel & Starkman 1998, CQG 15, 2657), with modes to k = 151 (past the full draw) and the
     # whole field in the a_lm: a degree-k mode on the sphere of radius chi has its power at
-    # l <~ k sin chi = 59 and falls off beyond (measured: 1e-3 of C_l over the next few l), so
-    # l_max 80 holds it; S (m-weighted, search.statistic) >= 0.999 on a map of N_side 256
-    # (bilinear error ~(l pixel)^2/8 <~ 3e-3 at l = 59); a random circle does not match
+    # l <~ k sin chi = 59 and falls off beyond (benchmarks/SPHERICAL_SKIES.md: C_l 12 past it is
+    # ~1e-5 of C_l well inside), so l_max 72 holds it; S (m-weighted, search.statistic) >= 0.999
+    # on a map of N_side 256 (bilinear error ~(l pixel)^2/8 <~ 3e-3 at l = 59); a random circle
+    # does not match
     from topology.search.sampling import sample_points
     from topology.search.statistic import s_of_twist
 
     space = make_dodecahedral({})
     cosmo = closed(0.4)
     obs = geo.Observer.make("spherical", [1.0, 0.2, 0.1, 0.3], geo.euler_zyz(0.3, 1.1, -0.7))
-    sky = sph.spherical_sky(space, obs, cosmo, lmax=80, kmax=152, seed=2)
-    tmap = hp.alm2map(sky.alm, 256, lmax=80)
+    sky = sph.spherical_sky(space, obs, cosmo, lmax=72, kmax=151, seed=2)
+    tmap = hp.alm2map(sky.alm, 256, lmax=72)
     pairs = predict_circles(space, obs, sky.meta["chi"])
     assert len(pairs) == 6
     n_phi, m_max = 256, 64
@@ -208,3 +209,20 @@ def test_tail_weights_hold_the_converged_spectrum():
     sky = sph.spherical_sky(trivial_space(), obs, cosmo, lmax=lmax, seed=1)
     assert sky.meta["kmax"] == kmax and sky.meta["tail_A"] == pytest.approx(info["A"])
     assert sph.spherical_sky(trivial_space(), obs, cosmo, lmax=lmax, kmax=kmax, seed=1).meta["tail_A"] == 0.0
+
+
+def test_alm_rotation_matches_healpy():
+    # check: healpy.rotate_alm (Wigner rotation by recursion, the reference implementation) with
+    # the ZYZ angles of R = Q^T, psi = gamma applied first; parity (-1)^l for det Q = -1
+    lmax = 20
+    rng = np.random.default_rng(0)
+    alm = rng.normal(size=hp.Alm.getsize(lmax)) + 1j * rng.normal(size=hp.Alm.getsize(lmax))
+    ell, m = hp.Alm.getlm(lmax)
+    alm[m == 0] = alm[m == 0].real
+    q = geo.euler_zyz(0.4, 2.1, -1.3)
+    r = q.T
+    beta, alpha, gamma = math.acos(r[2, 2]), math.atan2(r[1, 2], r[0, 2]), math.atan2(r[2, 1], -r[2, 0])
+    for sign in (1.0, -1.0):
+        ref = alm * (sign ** ell)
+        hp.rotate_alm(ref, gamma, beta, alpha, lmax=lmax)
+        assert np.abs(s3t.rotate_alm(alm, lmax, sign * q) - ref).max() < 1e-12

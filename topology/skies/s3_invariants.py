@@ -10,9 +10,10 @@ of the group average P(C) = (1/|Gamma|) sum D^k(a)^T C D^k(b)^T, an orthogonal p
   largest order is e^{i theta} (D^k(g1) diagonal) the fixed vectors lie in E = {a : e^{i (2a-k)
   theta} = 1}, and S restricted to E is (1/|G|) sum_g Phi(alpha_g) d^k(beta_g) Phi(gamma_g) on
   E x E (Euler form of h g h^-1); a few distinct beta_g (for I*: 0, 63.4, 116.6, 180 deg), each
-  from Delta^k = d^k(pi/2) by the Fourier form. Its eigenvalues are 0 or 1 (the spread is the
-  accuracy, :attr:`LeftDegree.defect`); the m_k eigenvectors of eigenvalue 1 give S = V V^H
-  and the (k+1) m_k invariant modes C = conj(V) W, W any m_k x (k+1) matrix.
+  from Delta^k = d^k(pi/2) by the Fourier form. S is a projector: its trace is the number m_k
+  of fixed vectors, and S applied to a fixed Gaussian block (twice, then orthonormalised) gives
+  V with S = V V^H (the departure from a projector is :attr:`LeftDegree.defect`); the (k+1) m_k
+  invariant modes are C = conj(V) W, W any m_k x (k+1) matrix.
 * Diagonal groups (a, b in {e^{i theta}}: lens spaces L(p, q)): D^k(a), D^k(b) are diagonal and
   P(C) keeps the entries with (2 alpha - k) theta_a + (2 beta - k) theta_b = 0 mod 2 pi for all
   pairs (the explicit modes of the lens space, products e^{i (m1 phi1 + m2 phi2)} in toroidal
@@ -29,8 +30,9 @@ from collections.abc import Iterator
 
 import numpy as np
 
-from .s3_tensors import band, band_lowrank
+from .. import geometry as geo
 from .s3_harmonics import apply_d, euler_angles, phases, wigner_d_direct, wigner_d_halfpi, wigner_stack
+from .s3_tensors import band, band_lowrank
 
 _ATOL = 1e-9
 #: degrees whose invariant modes a group keeps once computed (small: repeated draws of small fields)
@@ -51,14 +53,10 @@ def _rotation_to_i(axis: np.ndarray) -> np.ndarray:
 
 
 def _qmul(a, b):
-    from .. import geometry as geo
-
     return geo.quat_multiply(a, b)
 
 
 def _qconj(a):
-    from .. import geometry as geo
-
     return geo.quat_conjugate(a)
 
 

@@ -23,6 +23,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy.special import roots_legendre
 
 from .legendre import legendre_table
 from .spectra import A_S, K_PIVOT, N_S, primordial_power
@@ -53,7 +54,7 @@ def _partial_spectra(cosmology, lmax: int, kmax: int, weights: list) -> np.ndarr
     C_l = 2 pi int C P_l d cos theta by a Gauss-Legendre rule exact for every k and l."""
     chi = float(cosmology.chi_rec_over_curvature_radius)
     t_uk = cosmology.t_cmb * 1e6
-    x, w = np.polynomial.legendre.leggauss((kmax + lmax) // 2 + 1)
+    x, w = roots_legendre((kmax + lmax) // 2 + 1)
     cos_psi = math.cos(chi) ** 2 + math.sin(chi) ** 2 * x
     var = np.zeros(kmax + 1)
     var[KMIN:] = mode_variance(np.arange(KMIN, kmax + 1), cosmology.curvature_radius_mpc)

@@ -234,17 +234,26 @@ class SphereAlm:
 
 
 def rotate_alm(alm: np.ndarray, lmax: int, q: np.ndarray) -> np.ndarray:
-    """a_lm of n -> G(Q n) from those of G, for a 3x3 orthogonal Q (det -1: parity (-1)^l then
-    the proper part). Uses healpy.rotate_alm (Wigner rotation of the a_lm, exact)."""
-    import healpy as hp
+    """a_lm (healpy order) of n -> G(Q n) from those of G, for a 3x3 orthogonal Q.
+
+    det Q = -1: parity (-1)^l, then the proper part. n -> G(Q n) is G turned by R = Q^T; with
+    R = R_z(alpha) R_y(beta) R_z(gamma),
+        a'_lm = sum_m' e^{-i m alpha} d^l_{m m'}(beta) e^{-i m' gamma} a_lm'
+    (Wigner rotation of the a_lm; e.g. Varshalovich et al. 1988, ch. 4; common practice), with
+    d^l_{m m'}(beta) = d^(2l)(beta)[l - m, l - m'] of :func:`~topology.skies.s3_harmonics.wigner_d`
+    (in the standard basis |l, m> = i^a e_a the rotation e^{k beta / 2} about y is d^(2l)(beta)).
+    Checked against healpy.rotate_alm in the tests.
+    """
+    from healpy import Alm
+
+    from .s3_harmonics import wigner_d
 
     q = np.asarray(q, dtype=float)
-    out = np.array(alm, dtype=complex, copy=True)
+    alm = np.asarray(alm, dtype=complex)
+    ell_all, m_all = Alm.getlm(lmax)
     if np.linalg.det(q) < 0:
-        ell, _ = hp.Alm.getlm(lmax)
-        out *= (-1.0) ** ell
+        alm = alm * (-1.0) ** ell_all
         q = -q
-    # n -> G(Q n) is G rotated actively by R = Q^T; ZYZ Euler angles of R
     r = q.T
     beta = math.acos(max(-1.0, min(1.0, r[2, 2])))
     if abs(math.sin(beta)) > 1e-12:
@@ -253,5 +262,17 @@ def rotate_alm(alm: np.ndarray, lmax: int, q: np.ndarray) -> np.ndarray:
     else:
         alpha = math.atan2(r[1, 0], r[0, 0]) if r[2, 2] > 0 else math.atan2(-r[1, 0], -r[0, 0])
         gamma = 0.0
-    hp.rotate_alm(out, gamma, beta, alpha, lmax=lmax)     # healpy: psi = gamma first (checked)
+    out = np.zeros_like(alm)
+    for k, d in wigner_d(beta, 2 * lmax):
+        if k % 2:
+            continue
+        l = k // 2
+        m = np.arange(l, -l - 1, -1)                     # row/column c <-> m = l - c
+        idx = Alm.getidx(lmax, l, np.abs(m))
+        full = alm[idx].copy()
+        neg = m < 0
+        full[neg] = (-1.0) ** m[neg] * np.conj(full[neg])
+        rot = np.exp(-1j * m * alpha) * (d[0] @ (np.exp(-1j * m * gamma) * full))
+        keep = m >= 0
+        out[idx[keep]] = rot[keep]
     return out
