@@ -4,10 +4,12 @@ An E1 sky (cubic torus of side 1.6 chi_rec) at N_side 256, l_max 512 by the grid
 timed next to healpy.synfast of the isotropic SW spectrum at the same N_side and l_max, in
 the same run: ``--repeat`` interleaved runs (synfast, grid, grid with the quadratic spline),
 so that a shared machine's load hits both alike; best of each. Prints both times, their
-ratio, the spread of the per-run ratios, the grid, the stage times and the peak resident
-memory of the process.
+ratio, the spread of the per-run ratios, the grid, the cut k chi_rec and the complement's share
+of C_lmax (topology.skies.flat_cut), the stage times of the SW grid (the complement: its
+spectrum, a_lm draw and alm2map) and the peak resident memory of the process. ``--terms full``:
+SW, Doppler and ISW (the grid of shells), against synfast of CAMB's spectrum.
 
-    python benchmarks/flat_sky_speed.py [--nside 256] [--lmax 512] [--side 1.6] [--repeat 5]
+    python benchmarks/flat_sky_speed.py [--nside 256] [--lmax 512] [--side 1.6] [--repeat 5] [--terms sw|full]
 """
 
 from __future__ import annotations
@@ -22,8 +24,8 @@ import numpy as np
 from topology import geometry as geo
 from topology.cosmology import Cosmology
 from topology.skies import flat_grid, flat_modes
-from topology.skies.flat import flat_sky
-from topology.skies.spectra import sachs_wolfe_cl
+from topology.skies.flat import complement, flat_sky
+from topology.skies.spectra import isotropic_cl
 from topology.spaces import build_space
 
 
@@ -40,13 +42,16 @@ def main():
     ap.add_argument("--side", type=float, default=1.6, help="torus side in chi_rec")
     ap.add_argument("--oversample", type=float, default=1.2)
     ap.add_argument("--repeat", type=int, default=5)
+    ap.add_argument("--terms", choices=("sw", "full"), default="sw",
+                    help="full: SW, Doppler and ISW (the grid of shells of topology.skies.transfer_shells)")
     a = ap.parse_args()
+    terms = ("sw",) if a.terms == "sw" else ("sw", "doppler", "isw")
 
     cosmo = Cosmology()
     _ = cosmo.chi_rec_mpc
     space = build_space({"family": "E1", "lengths": [a.side] * 3})
     obs = geo.Observer.make("flat", [0.1, 0.2, 0.3], geo.euler_zyz(0.3, 0.7, -0.2))
-    cl = sachs_wolfe_cl(a.lmax, cosmo)
+    cl = isotropic_cl(cosmo, a.lmax, terms)
     rng = np.random.default_rng(0)
 
     def synfast():
@@ -56,7 +61,7 @@ def main():
 
     def grid_sky():
         return flat_sky(space, obs, cosmo, lmax=a.lmax, nside=a.nside, method="grid", seed=1,
-                             oversample=a.oversample)
+                        oversample=a.oversample, terms=terms)
 
     synfast()  # warm-up (healpy plans, imports)
     grid_sky()
@@ -67,12 +72,12 @@ def main():
         dt, sky = timed(grid_sky)
         t_grid.append(dt)
         t_fast.append(timed(lambda: flat_sky(space, obs, cosmo, lmax=a.lmax, nside=a.nside, method="grid",
-                                                  seed=1, oversample=a.oversample, spline_order=2))[0])
+                                             seed=1, oversample=a.oversample, spline_order=2, terms=terms))[0])
     pair = sorted(g / s for g, s in zip(t_grid, t_syn))
     t_syn, t_grid, t_fast = min(t_syn), min(t_grid), min(t_fast)
 
-    # stage times of one run (the steps of flat_sky's grid branch)
-    kc = float(a.lmax)
+    # stage times of one run (the steps of flat_sky's grid branch, SW)
+    kc = float(sky.meta["kchi_max"])
     shape = flat_grid.grid_shape(space, kc, a.oversample)
     t0 = time.perf_counter()
     spec = flat_grid.dense_torus_spectrum(space, cosmo, 1, kc, shape)
@@ -84,17 +89,21 @@ def main():
     t3 = time.perf_counter()
     flat_grid.sample_grid_coords(grid, coords)
     t4 = time.perf_counter()
+    extra, _ = complement(cosmo, a.lmax, kc, terms, 1, sky.meta.get("transfer") == "camb shells" and "shells" or "camb")
+    hp.alm2map(extra, a.nside, lmax=a.lmax)
+    t5 = time.perf_counter()
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
     print(f"E1 torus side {a.side} chi_rec, N_side {a.nside}, l_max {a.lmax}, grid {sky.meta['grid']} "
-          f"(oversample {a.oversample}), k chi_rec <= {kc:g}")
+          f"(oversample {a.oversample}), terms {list(terms)}, cut k chi_rec = {kc:.1f}, complement "
+          f"{sky.meta.get('complement_lmax', 0):.0%} of C_lmax")
     print(f"healpy.synfast      {t_syn:8.3f} s")
     print(f"flat grid sky       {t_grid:8.3f} s")
     print(f"ratio grid/synfast  {t_grid / t_syn:8.1f}   (target <= 20; best of each over {a.repeat} interleaved runs)")
     print(f"per-run ratios      {pair[0]:.1f} .. {pair[-1]:.1f}, median {pair[len(pair) // 2]:.1f}")
     print(f"quadratic spline    {t_fast:8.3f} s, ratio {t_fast / t_syn:.1f} (spline_order 2, ~2.5% rms)")
     print(f"stages: spectrum (normals x sigma) {t1 - t0:.3f} s, FFT {t2 - t1:.3f} s, pixel coordinates "
-          f"{t3 - t2:.3f} s, sampling {t4 - t3:.3f} s")
+          f"{t3 - t2:.3f} s, sampling {t4 - t3:.3f} s, complement {t5 - t4:.3f} s")
     print(f"peak resident memory {peak_mb:.0f} MB")
 
 

@@ -25,9 +25,11 @@ function as the isotropic null skies, :func:`topology.skies.spectra.isotropic_cl
 C_l is then the isotropic one at every l <= lmax, up to the discreteness of the lattice (the
 topology itself; the taper makes the lattice sum near the cut equal its continuum). The
 complement is isotropic: it lacks the matched-circle correlations the lattice modes beyond K
-would carry. Those are small: the stationary phase of a mode with k chi_rec >> l puts its
-projection at multipole l in caps of radius ~ l / (k chi_rec) about +-k^, which rarely hold
-both points of a matched pair (measured by benchmarks/flat_sky_spectrum.py).
+would carry (the stationary phase of a mode with k chi_rec >> l puts its projection at multipole
+l in caps of radius ~ l / (k chi_rec) about +-k^, which hold both points of a pair only for the
+largest and the smallest circles). Measured by benchmarks/flat_sky_spectrum.py --circles (l_max
+64, 2 deg beam): at K = l_max the expected correlation of matched points is 0.03-0.05 below that
+of every mode for circles of 18-66 deg (0.15 at 81 deg), at K = 1.5 l_max within 0.006 (0.04).
 
 C_l(K) is integrated with composite Gauss-Legendre panels (width PANEL in k chi_rec, NODES
 each; R_l oscillates with period 2 pi). For the SW term j_l comes from the upward recurrence

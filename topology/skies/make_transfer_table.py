@@ -21,13 +21,13 @@ from . import transfer_shells as ts
 
 
 def write_table(path: Path, lmax: int = ts.TABLE_LMAX, kmax: float = ts.TABLE_KMAX) -> ts.ShellTransfer:
-    import camb
+    from importlib.metadata import version
 
     from ..cosmology import Cosmology
 
-    st = ts.fit(Cosmology(), lmax, kmax)
+    st = ts.fit(Cosmology(), lmax, kmax)       # CAMB through topology.skies.transfer
     np.savez_compressed(path, k=st.k, radii=st.radii, g=st.g, k_late=st.k_late, lmax=st.lmax, n_near=st.n_near,
-                        camb_version=np.array(camb.__version__))
+                        camb_version=np.array(version("camb")))
     return st
 
 
