@@ -79,6 +79,12 @@ def header_cards(cfg, res) -> list:
     ]
     if "kmax" in sky.meta:
         cards.append(("KMAX", int(sky.meta["kmax"]), "highest S^3 harmonic degree"))
+    if "kchi_max" in sky.meta:
+        cards.append(("KCHIMAX", float(sky.meta["kchi_max"]), "flat: wave-number cut k chi_rec"))
+        cards.append(("COMPLMAX", float(sky.meta.get("complement_lmax", 0.0)),
+                      "flat: isotropic complement's share of C_lmax"))
+    if sky.meta.get("transfer"):
+        cards.append(("TRANSFER", str(sky.meta["transfer"]), "flat: radial function of the modes"))
     cards += [
         ("FWHMDEG", float(p["fwhm_deg"]), "Gaussian beam FWHM (deg)"),
         ("NOISEUK", float(p["noise_uk"]), "white noise rms per pixel (uK)"),
