@@ -104,9 +104,10 @@ def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, term
     """The default cut K (k chi_rec) of a flat sky; see the module doc.
 
     eigenmode: lmax. grid: max(lmax, min(K_pure, K_pix, K_cost)), K_pix of :func:`pixel_cut`,
-    K_pure the cut that alone
-    holds C_lmax to CL_ACCURACY (:func:`topology.skies.flat_cut.cut_for_accuracy`), K_cost the
-    largest cut whose grid has at most GRID_CELLS_PER_PIXEL x 12 N_side^2 cells.
+    K_pure the cut that alone holds C_lmax to CL_ACCURACY (SW:
+    :func:`topology.skies.flat_cut.cut_for_accuracy`; the CAMB terms' 3-10 lmax is never the
+    smallest), K_cost the largest cut whose grid has at most GRID_CELLS_PER_PIXEL x 12 N_side^2
+    cells.
     """
     from .flat_cut import cut_for_accuracy
     from .flat_grid import grid_shape
@@ -122,8 +123,7 @@ def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, term
 
     if not fits(float(lmax) + 1.0):
         return float(lmax)
-    # the pure cut of the CAMB terms (3-10 lmax) is never below the pixels' cut
-    hi = min(k_pix, cut_for_accuracy(cosmology, lmax) if tuple(terms) == ("sw",) else k_pix)
+    hi = min(k_pix, cut_for_accuracy(cosmology, lmax)) if tuple(terms) == ("sw",) else k_pix
     if fits(hi):
         return hi
     lo = float(lmax)
