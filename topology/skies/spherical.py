@@ -204,8 +204,8 @@ def draw_invariant_field(space, kmax: int, rng: np.random.Generator, variance) -
     """Draw C_k = s_k P_k(Z_k), k = KMIN..kmax, s_k^2 = |Gamma| variance[k] (k+1)/(2 pi^2).
 
     Z_k is drawn for every k in increasing order (real and imaginary parts from
-    rng.standard_normal), so a larger kmax extends a field without changing its lower degrees;
-    ``rng`` is advanced past the draws. ``variance`` is a sequence indexed by k (sigma_k^2, read
+    rng.standard_normal; above FULL_DRAW_KMAX only the invariant coefficients), so a larger kmax
+    extends a field without changing its lower degrees; ``rng`` is advanced past the draws. ``variance`` is a sequence indexed by k (sigma_k^2, read
     for k >= KMIN).
     """
     field = InvariantField(int(kmax), group_of(space.pairs), _amplitudes(len(space.pairs), kmax, variance),
@@ -216,8 +216,8 @@ def draw_invariant_field(space, kmax: int, rng: np.random.Generator, variance) -
 
 
 def _sky_frame(observer: geo.Observer) -> np.ndarray:
-    """Q (3x3, det +-1) with u(n) = P Q... : the direction n of the observer's sky frame seen as
-    the pure quaternion u = conj(x) (frame n), in the frame (j, k, i) of :mod:`s3_tensors`."""
+    """Q (3x3, det +-1) with Q n = the pure quaternion u(n) = conj(x) (frame n) of a direction n
+    of the observer's sky, written in the frame (j, k, i) of :mod:`topology.skies.s3_tensors`."""
     x = observer.point
     mq = geo.quat_multiply(geo.quat_conjugate(x)[None, :], observer.frame.T)   # (3, 4): u of e_x, e_y, e_z
     m = mq[:, 1:].T                                                            # M[:, j] = u(e_j) in (i, j, k)
@@ -231,8 +231,8 @@ def field_alm(field: InvariantField, observer: geo.Observer, chi: float, lmax: i
     = M n. Per degree, f(x y) = tr(C'^T D^k(y)) with C' = D^k(x)^T C_k (for a left group
     conj(D^k(x^-1) V) W: thin products), and the a_lm of y -> tr(C'^T D^k(y)) on the sphere of
     radius chi follow from the band |a - b| <= lmax of C' by spherical tensor operators
-    (:mod:`topology.skies.s3_tensors`), in the frame (j, k, i); a final rotation (healpy's
-    Wigner rotation of the a_lm) takes them to the observer's frame. No quadrature: exact up to
+    (:mod:`topology.skies.s3_tensors`), in the frame (j, k, i); a final Wigner rotation of the
+    a_lm (s3_tensors.rotate_alm) takes them to the observer's frame. No quadrature: exact up to
     rounding. Cost ~ (lmax+1)^2 kmax^2 / 4 for the tensors plus the group's thin products.
     """
     return _alm_and_counts(field, observer, chi, lmax)[0]
