@@ -15,7 +15,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-
 from . import spectra
 
 DEFAULT_LMAX = spectra.CAMB_LMAX_CALC
@@ -33,11 +32,7 @@ def table_text(lmax: int = DEFAULT_LMAX) -> str:
         "made by: python -m topology.skies.make_spectrum_table --lmax %d" % lmax,
         f"CAMB version {camb.__version__}: get_unlensed_scalar_cls(CMB_unit='muK', raw_cl=True), TT column",
         "terms: all linear scalar terms (SW, Doppler, early+late ISW, polarisation source); unlensed; no tensors",
-        (f"cosmology: H0 = {100 * cosmo.h}, ombh2 = {cosmo.omega_b_h2}, omch2 = {cosmo.omega_c_h2}, "
-         f"omk = {cosmo.omega_k}, TCMB = {cosmo.t_cmb} K, nnu = {cosmo.n_eff} (massless, mnu = 0)"),
-        (f"primordial: As = {spectra.A_S}, ns = {spectra.N_S}, pivot_scalar = {spectra.K_PIVOT} /Mpc, "
-         f"tau = {spectra.TAU_REIO} (Planck 2018 VI Table 2)"),
-        f"accuracy: set_for_lmax({lmax} + 50, lens_potential_accuracy=0), CAMB default accuracy",
+        *camb_settings(cosmo, lmax),
         "columns: ell  C_ell [microK^2, thermodynamic]  (C_0 = C_1 = 0)",
     ]
     lines = ["# " + h for h in head]
@@ -45,16 +40,32 @@ def table_text(lmax: int = DEFAULT_LMAX) -> str:
     return "\n".join(lines) + "\n"
 
 
-def main(argv=None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+def camb_settings(cosmo, lmax: int) -> list[str]:
+    """Header lines of a shipped CAMB table: the cosmology, the primordial spectrum, the accuracy."""
+    return [
+        (f"cosmology: H0 = {100 * cosmo.h}, ombh2 = {cosmo.omega_b_h2}, omch2 = {cosmo.omega_c_h2}, "
+         f"omk = {cosmo.omega_k}, TCMB = {cosmo.t_cmb} K, nnu = {cosmo.n_eff} (massless, mnu = 0)"),
+        (f"primordial: As = {spectra.A_S}, ns = {spectra.N_S}, pivot_scalar = {spectra.K_PIVOT} /Mpc, "
+         f"tau = {spectra.TAU_REIO} (Planck 2018 VI Table 2)"),
+        f"accuracy: set_for_lmax({lmax} + 50, lens_potential_accuracy=0), CAMB default accuracy",
+    ]
+
+
+def table_main(make_text, name: str, description: str, argv=None) -> int:
+    """The command line of a table maker: --lmax, --out (default topology/data/``name``)."""
+    ap = argparse.ArgumentParser(description=description)
     ap.add_argument("--lmax", type=int, default=DEFAULT_LMAX)
-    ap.add_argument("--out", default=str(Path(__file__).resolve().parents[1] / "data" / spectra.TABLE_NAME))
+    ap.add_argument("--out", default=str(Path(__file__).resolve().parents[1] / "data" / name))
     args = ap.parse_args(argv)
-    text = table_text(args.lmax)
+    text = make_text(args.lmax)
     Path(args.out).parent.mkdir(parents=True, exist_ok=True)
     Path(args.out).write_text(text)
     print(f"wrote {args.out} (lmax {args.lmax})")
     return 0
+
+
+def main(argv=None) -> int:
+    return table_main(table_text, spectra.TABLE_NAME, __doc__.splitlines()[0], argv)
 
 
 if __name__ == "__main__":

@@ -28,7 +28,6 @@ from __future__ import annotations
 
 import math
 from functools import lru_cache
-from importlib import resources
 
 import numpy as np
 
@@ -79,13 +78,7 @@ def camb_pol_cl(cosmology, lmax: int) -> dict:
 
 def read_pol_table(path=None):
     """(ell, C_EE, C_TE in microK^2, header lines) of the shipped table (or the file at ``path``)."""
-    if path is None:
-        text = resources.files("topology").joinpath("data", POL_TABLE_NAME).read_text()
-    else:
-        with open(path) as fh:
-            text = fh.read()
-    header = [ln for ln in text.splitlines() if ln.startswith("#")]
-    data = np.loadtxt(text.splitlines(), comments="#")
+    data, header = spectra.read_shipped(POL_TABLE_NAME, path)
     return data[:, 0].astype(int), data[:, 1], data[:, 2], header
 
 

@@ -249,7 +249,18 @@ def _d_block(delta: np.ndarray, beta: float, e: np.ndarray, cache: dict) -> np.n
 # ---------------------------------------------------------------------------------------------
 # diagonal groups (lens spaces)
 # ---------------------------------------------------------------------------------------------
-class DiagonalDegree:
+class DenseDegree:
+    """A degree whose invariant coefficients are the full (k+1, k+1) matrix C itself."""
+
+    def coefficients(self, w: np.ndarray) -> np.ndarray:
+        return w
+
+    def observed_band(self, w, x0, delta, lmax: int, scale: float) -> np.ndarray:
+        """band(scale D^k(x0)^T C, lmax): the coefficients of y -> f(x0 y)."""
+        return band(scale * rotate_thin(delta, x0, w, transpose=True), lmax)
+
+
+class DiagonalDegree(DenseDegree):
     """Invariant modes of a diagonal group at degree k: the entries of ``mask``."""
 
     def __init__(self, k: int, mask: np.ndarray):
@@ -266,13 +277,6 @@ class DiagonalDegree:
         c = np.zeros(self.mask.shape, dtype=complex)
         c[self.mask] = (g[0] + 1j * g[1]) * math.sqrt(0.5)
         return c
-
-    def coefficients(self, w: np.ndarray) -> np.ndarray:
-        return w
-
-    def observed_band(self, w, x0, delta, lmax: int, scale: float) -> np.ndarray:
-        """band(scale D^k(x0)^T C, lmax): the coefficients of y -> f(x0 y)."""
-        return band(scale * rotate_thin(delta, x0, w, transpose=True), lmax)
 
 
 class DiagonalGroup:
@@ -295,7 +299,7 @@ class DiagonalGroup:
 # ---------------------------------------------------------------------------------------------
 # any group: the projector from all Wigner matrices (small k)
 # ---------------------------------------------------------------------------------------------
-class GeneralDegree:
+class GeneralDegree(DenseDegree):
     def __init__(self, k: int, da: np.ndarray, db: np.ndarray):
         self.k = k
         n = k + 1
@@ -312,12 +316,6 @@ class GeneralDegree:
             g = rng.standard_normal((2, n, n))
             z = (g[0] + 1j * g[1]) * math.sqrt(0.5)
         return (self.matrix @ z.reshape(n * n)).reshape(n, n)
-
-    def coefficients(self, w: np.ndarray) -> np.ndarray:
-        return w
-
-    def observed_band(self, w, x0, delta, lmax: int, scale: float) -> np.ndarray:
-        return band(scale * rotate_thin(delta, x0, w, transpose=True), lmax)
 
 
 class GeneralGroup:

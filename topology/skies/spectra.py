@@ -152,15 +152,21 @@ def _camb_tt(cosmology, lcalc: int, A_s: float, n_s: float, k_pivot: float) -> n
     return out
 
 
-def read_table(path=None):
-    """(ell, C_l in microK^2, header lines) of the shipped table (or the file at ``path``)."""
+def read_shipped(name: str, path=None) -> tuple[np.ndarray, list[str]]:
+    """(columns (n_rows, n_cols), header lines) of the shipped table ``name`` in topology/data
+    (or of the file at ``path``)."""
     if path is None:
-        text = resources.files("topology").joinpath("data", TABLE_NAME).read_text()
+        text = resources.files("topology").joinpath("data", name).read_text()
     else:
         with open(path) as fh:
             text = fh.read()
     header = [ln for ln in text.splitlines() if ln.startswith("#")]
-    data = np.loadtxt(text.splitlines(), comments="#")
+    return np.loadtxt(text.splitlines(), comments="#", ndmin=2), header
+
+
+def read_table(path=None):
+    """(ell, C_l in microK^2, header lines) of the shipped table (or the file at ``path``)."""
+    data, header = read_shipped(TABLE_NAME, path)
     return data[:, 0].astype(int), data[:, 1], header
 
 
