@@ -147,6 +147,12 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "mask_threshold": Key(NUMBER, 0.5, "apodised masks: pixels with weight >= this count as kept", _positive),
         "orientation_nside": Key((int,), 4, "targeted: N_side of the coarse orientation grid (z axis directions)", _power_of_two),
         "positions": Key((list,), None, "targeted: observer positions to scan (default: [observer] position)"),
+        "rho_t": Key(NUMBER, 1.0, "T+E: expected S of a true pair in T (weight rho / sigma^2; "
+                     "topology.search.polarised)", _non_negative),
+        "rho_e": Key(NUMBER, 0.75, "T+E: expected S of a true pair in E (Riazuelo et al. 2006, noise-free; "
+                     "lower it for noise)", _non_negative),
+        "pol_apod_deg": Key(NUMBER, 5.0, "E and T+E: cosine apodisation of the polarisation mask before E is "
+                            "made (deg); E is searched beyond it", _non_negative),
         "targets": Key((list,), None, "topology run, targeted mode: spaces to test, tables in the [space] format "
                                      "(optionally with an observer position), e.g. [{family = \"lens\", p = 8, q = 1}]"),
     },

@@ -14,8 +14,19 @@ MIN_SKY_FRACTION = 0.2  # as [mask] min_sky_fraction of `topology run`
 def add_arguments(p):
     p.add_argument("map", help="HEALPix FITS map (RING or NESTED from the header)")
     p.add_argument("--mask", metavar="MASK.fits", help="mask (0/1 or apodised weights, any N_side)")
-    p.add_argument("--field", metavar="COLUMN", help="column of a multi-column map: index from 0 or name "
-                                                     "(default the first, temperature)")
+    p.add_argument("--field", metavar="COLUMN|E|T+E",
+                   help="column of a multi-column map: index from 0 or name (default the first, temperature); "
+                        "the reserved words E and T+E search the E-mode map made from the file's Q and U "
+                        "columns, or T and E together with the combined statistic (a column named E or T+E "
+                        "is chosen by its index)")
+    p.add_argument("--pol-convention", choices=["healpix", "iau"], metavar="healpix|iau",
+                   help="E, T+E: Q/U sign convention of the file when its header has no POLCCONV key "
+                        "(never guessed: such a file without this option is refused)")
+    p.add_argument("--pol-mask", metavar="MASK.fits", help="E, T+E: polarisation mask (default --mask), "
+                                                           "apodised before E is made")
+    p.add_argument("--pol-apod", type=float, metavar="DEG",
+                   help="E, T+E: cosine apodisation of the polarisation mask in degrees (default 5); E is searched "
+                        "beyond the taper")
     p.add_argument("--ordering", metavar="RING|NESTED",
                    help="pixel ordering of files whose header has no ORDERING key")
     p.add_argument("--min-sky-fraction", type=float, metavar="F", default=MIN_SKY_FRACTION,
@@ -65,7 +76,7 @@ def settings_for(args, cfg):
         raise InputError("needs [l_min, l_max]", "[search] l_range")
     return settings_from(sec, mode=args.mode, radii=parse_radii(args.radii) if args.radii else None,
                          fwhm_deg=args.fwhm, nside_work=args.nside_work, m_max=args.m_max,
-                         ordering=getattr(args, "ordering", None))
+                         ordering=getattr(args, "ordering", None), pol_apod_deg=getattr(args, "pol_apod", None))
 
 
 def read_inputs(args, settings):
@@ -74,16 +85,33 @@ def read_inputs(args, settings):
     done to them."""
     from ..errors import InputError
     from ..maps import check_resolution, check_sky_fraction, read_healpix
+    from ..search.polarised import polarised_field, polarised_input
 
     if not 0 <= args.min_sky_fraction < 1:
         raise InputError(f"must lie in [0, 1), got {args.min_sky_fraction:g}", "--min-sky-fraction")
     hint = "--ordering (or [search] ordering in the config)"
-    sky = read_healpix(args.map, field=args.field, ordering=settings.ordering, what="map", ordering_from=hint)
-    check_resolution(sky, settings.nside_work)
+    field = polarised_field(args.field)
+    if field is None:
+        for opt, v in (("--pol-convention", args.pol_convention), ("--pol-mask", args.pol_mask),
+                       ("--pol-apod", args.pol_apod)):
+            if v is not None:
+                raise InputError("only with --field E or T+E (a polarised search)", opt)
+        sky = read_healpix(args.map, field=args.field, ordering=settings.ordering, what="map", ordering_from=hint)
+        check_resolution(sky, settings.nside_work)
     mask = read_healpix(args.mask, ordering=settings.ordering, what="mask", ordering_from=hint) if args.mask else None
-    check_sky_fraction(sky, mask, args.min_sky_fraction, threshold=settings.mask_threshold,
-                       setting="--min-sky-fraction")
-    return sky, mask
+    pol = None
+    if field is not None:
+        pol_mask = (read_healpix(args.pol_mask, ordering=settings.ordering, what="mask", ordering_from=hint)
+                    if args.pol_mask else None)
+        sky, pol = polarised_input(args.map, field, settings, mask=mask, pol_mask=pol_mask,
+                                   convention=args.pol_convention, convention_from="--pol-convention",
+                                   ordering_from=hint, pol_mask_name=args.pol_mask)
+        check_sky_fraction(pol.e, pol.e_mask, args.min_sky_fraction, threshold=settings.mask_threshold,
+                           setting="--min-sky-fraction (E: the interior of the apodised polarisation mask)")
+    if field != "E":
+        check_sky_fraction(sky, mask, args.min_sky_fraction, threshold=settings.mask_threshold,
+                           setting="--min-sky-fraction")
+    return sky, mask, pol
 
 
 def run(args):
@@ -113,9 +141,10 @@ def _run(args):
     if args.plot:
         check_writable(args.plot, "plot")
     with held_notes():  # a refused input is one line, without the notes read before it
-        sky, mask = read_inputs(args, settings)
+        sky, mask, pol = read_inputs(args, settings)
     out = search_read(sky, mask, args.map, args.mask, settings, field=args.field, scenario=scenario,
-                      resume=args.resume, show_progress=False if args.quiet else None)
+                      resume=args.resume, show_progress=False if args.quiet else None, polarised=pol,
+                      pol_mask_path=args.pol_mask)
     out = _clean(out)
     if args.plot:
         from ..search.plot import plot_search
@@ -128,6 +157,14 @@ def _run(args):
     w = out["work"]
     print(f"{out['map']}: {s['mode']} search, {len(s['radii_deg'])} radii {min(s['radii_deg']):g}-{max(s['radii_deg']):g} deg, "
           f"FWHM {s['fwhm_deg']:g} deg, N_side {s['nside_work']}, m <= {s['m_max']}")
+    if out.get("polarisation"):
+        from ..search.polarised import weight_note
+
+        pi = out["polarisation"]
+        print(f"field {pi['field']}: E from Q, U ({pi['convention']} convention, columns {', '.join(pi['columns'])}), "
+              f"mask apodised {pi['apod_deg']:g} deg, E searched over {pi['e_kept_fraction_work']:.2f} of the sky")
+        if pi.get("weights"):
+            print(weight_note(pi["weights"]))
     print(f"{w['pairs']} circle pairs, {w['twists']} pair-twists, {w['modes']} pair-twist-modes in {out['elapsed_s']:.1f} s; "
           f"{out.get('skipped_circles', 0)} circles skipped (kept fraction < {s['min_kept']:g})")
     if "targeted" in out:

@@ -143,3 +143,47 @@ def leakage_bands(cl_ee: np.ndarray, mask: np.ndarray, *, nside: int, lmax: int,
         out.append({"l_min": int(lo), "l_max": int(hi), "b_over_e": float(pb / pe), "r_interior": r,
                     "b_rms_interior": float(math.sqrt(np.mean(b_in**2) / np.mean(tru**2)))})
     return out
+
+
+def emode_sky(pol, mask=None, *, nside_work: int, apod_deg: float = 5.0, threshold: float = 0.5):
+    """(E map, E mask) as :class:`~topology.maps.values.SkyMap` objects for the circle search, from
+    a :class:`~topology.maps.polarised.PolarisedMap` and a mask SkyMap (any N_side, or None).
+
+    Steps: the mask regraded to the map (:func:`~topology.maps.masks.mask_weights`, times the
+    observed Q, U pixels) and cut at ``threshold``; Q, U and that binary mask degraded to
+    N_side_E = min(N_side, 2 nside_work) when the map is finer (Q, U averaged over sub-pixels, a
+    pixel kept only when every sub-pixel is: the search uses l <= 3 nside_work - 1 only, and the
+    apodisation's distances at full resolution would cost gigabytes); then :func:`emode_map` with
+    ``apod_deg`` at lmax = 3 N_side_E - 1. The E mask keeps the pixels where the apodised weight
+    is 1 (the interior, beyond the taper): near the edge E is down-weighted and leaks most
+    (:func:`leakage_bands` measures it there). None when nothing is masked."""
+    import healpy as hp
+
+    from .masks import mask_weights
+    from .values import SkyMap
+
+    q, u = pol.q, pol.u
+    kept = np.asarray(mask_weights(mask, q), dtype=float) >= threshold
+    nside_e = int(min(q.nside, 2 * int(nside_work)))
+    qv = np.where(kept, q.values, 0.0).astype(float)
+    uv = np.where(kept, u.values, 0.0).astype(float)
+    if nside_e < q.nside:
+        qv = hp.ud_grade(qv, nside_e, order_in="RING")
+        uv = hp.ud_grade(uv, nside_e, order_in="RING")
+        kept = hp.ud_grade(kept.astype(float), nside_e, order_in="RING") >= 1.0 - 1e-9
+    if not kept.any():
+        raise InputError("keeps no pixel of the Q, U map", "polarisation mask")
+    lmax = 3 * nside_e - 1
+    whole = bool(kept.all())
+    e, w = emode_map(qv, uv, None if whole else kept.astype(float), lmax=lmax, apod_deg=apod_deg)
+    ones = np.ones(e.size, dtype=bool)
+    header = dict(pol.q.header)
+    header["COLUMN"] = "E"
+    sky = SkyMap(e.astype(np.float64), ones, nside_e, source=pol.q.source, header=header)
+    if whole:
+        return sky, None
+    inside = (w >= 1.0 - 1e-12).astype(np.float32)
+    if not inside.any():
+        raise InputError(f"no pixel lies {apod_deg:g} deg or more inside the mask (the E map's apodisation)",
+                         "polarisation mask")
+    return sky, SkyMap(inside, ones.copy(), nside_e, source="E mask (interior of the apodised mask)")

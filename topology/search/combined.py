@@ -99,6 +99,60 @@ def combined_best_twist(t_a, t_b, e_a, e_b, ia, ib, w_t: float, w_e: float, *, m
     return out
 
 
+def combined_rank_twist(t_a, t_b, e_a, e_b, ia, ib, w_t, w_e, orient, *, m_cut_t: int | None = None,
+                        m_cut_e: int | None = None, min_overlap: float = 0.25) -> dict:
+    """The ranked form of S_TE used by the search (:mod:`topology.search.polarised`): at each shift
+    the weighted mean of the chance-equivalent scores of the two maps,
+
+        S_TE,eq(tau) = (w_T S_eq,T(tau) + w_E S_eq,E(tau)) / (w_T + w_E),
+        S_eq,X = rank_score(S_X, f_X)   (f_X: the jointly kept fraction in map X),
+
+    so that cut circles (and a polarisation mask that differs from the temperature one) enter on
+    the full-circle null scale of each map, as in the temperature search; for full circles it is
+    :func:`combined_best_twist`'s S_TE. Maximised over the N_phi shifts, parabola through the best
+    shift and its neighbours. ``w_t``, ``w_e``: scalars or (k,); ``orient`` (k,): SAME or OPPOSITE
+    per pair. Returns {"s_eq", "s" (w-weighted S at that shift), "s_t", "s_e", "f_t", "f_e", "tau"},
+    each (k,); s_eq -inf where either map's pair has too little overlap."""
+    from .statistic import rank_score
+
+    ia = np.asarray(ia, dtype=int)
+    ib = np.asarray(ib, dtype=int)
+    orient = np.asarray(orient, dtype=int)
+    k = ia.size
+    w_t = np.broadcast_to(np.asarray(w_t, dtype=float), (k,))
+    w_e = np.broadcast_to(np.asarray(w_e, dtype=float), (k,))
+    n = t_a.n_phi
+    out = {key: np.full(k, -np.inf) for key in ("s_eq", "s", "s_t", "s_e")}
+    out.update({key: np.zeros(k) for key in ("f_t", "f_e", "tau")})
+    for o in (SAME, OPPOSITE):
+        rows = np.flatnonzero(orient == o)
+        if rows.size == 0:
+            continue
+        (st, ft) = _grids(t_a, t_b, ia[rows], ib[rows], m_cut_t, min_overlap)[o]
+        (se, fe) = _grids(e_a, e_b, ia[rows], ib[rows], m_cut_e, min_overlap)[o]
+        ok = np.isfinite(st) & np.isfinite(se)
+        wt, we = w_t[rows, None], w_e[rows, None]
+        eq = np.where(ok, (wt * rank_score(np.where(ok, st, 0.0), ft) + we * rank_score(np.where(ok, se, 0.0), fe))
+                      / (wt + we), -np.inf)
+        raw = np.where(ok, (wt * np.where(ok, st, 0.0) + we * np.where(ok, se, 0.0)) / (wt + we), -np.inf)
+        r = np.arange(rows.size)
+        j = np.argmax(eq, axis=1)
+        e0, em, ep = eq[r, j], eq[r, (j - 1) % n], eq[r, (j + 1) % n]
+        curv = em - 2.0 * e0 + ep
+        good = np.isfinite(em) & np.isfinite(ep) & (curv < 0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            d = np.clip(np.where(good, 0.5 * (em - ep) / np.where(good, curv, -1.0), 0.0), -0.5, 0.5)
+        out["s_eq"][rows] = np.where(good, e0 - 0.25 * (em - ep) * d, e0)
+        for key, g in (("s", raw), ("s_t", st), ("s_e", se)):   # the same quadratic at j + d
+            g0, gm, gp = g[r, j], g[r, (j - 1) % n], g[r, (j + 1) % n]
+            with np.errstate(invalid="ignore"):
+                out[key][rows] = np.where(good, g0 + 0.5 * d * (gp - gm) + 0.5 * d * d * (gp - 2 * g0 + gm), g0)
+        out["f_t"][rows], out["f_e"][rows] = ft[r, j], fe[r, j]
+        tau = 2.0 * np.pi * (j + d) / n
+        out["tau"][rows] = (tau if o == SAME else -tau) % (2.0 * np.pi)
+    return out
+
+
 def chance_spread(circ, m_cut: int | None = None, n_pairs: int = 2000, *, seed: int, min_separation: float = 0.2,
                   min_overlap: float = 0.25) -> float:
     """sigma_X: the standard deviation of S at a fixed twist (zero, same orientation) over random

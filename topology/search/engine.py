@@ -80,6 +80,9 @@ class SearchSettings:
     ordering: str | None = _default("ordering")
     orientation_nside: int = _default("orientation_nside")
     positions: tuple | None = _default("positions")
+    rho_t: float = _default("rho_t")
+    rho_e: float = _default("rho_e")
+    pol_apod_deg: float = _default("pol_apod_deg")
 
     def as_dict(self) -> dict:
         d = asdict(self)
@@ -129,6 +132,13 @@ def validate(s: SearchSettings) -> SearchSettings:
             raise InputError(f"must be at least 1, got {getattr(s, name)}", f"[search] {name}")
     if s.twist_oversample < 1:
         raise InputError(f"must be >= 1, got {s.twist_oversample}", "[search] twist_oversample")
+    for name in ("rho_t", "rho_e"):
+        if not 0 <= getattr(s, name) <= 1:
+            raise InputError(f"must lie in [0, 1], got {getattr(s, name)}", f"[search] {name}")
+    if s.rho_t + s.rho_e <= 0:
+        raise InputError("rho_t and rho_e are both 0: the T+E weights would all be 0", "[search] rho_e")
+    if not 0 <= s.pol_apod_deg <= 30:
+        raise InputError(f"must lie in [0, 30] degrees, got {s.pol_apod_deg}", "[search] pol_apod_deg")
     if not 0 <= s.min_separation_deg < 180:
         raise InputError(f"must lie in [0, 180), got {s.min_separation_deg}", "[search] min_separation_deg")
     return s
@@ -141,29 +151,54 @@ def task_id(key) -> str:
 
 
 def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenario=None, store=None,
-               show_progress: bool | None = False, map_name: str = "") -> dict:
+               show_progress: bool | None = False, map_name: str = "", polarised=None) -> dict:
     """Prepare the map, run the mode's tasks that ``store`` (default a fresh
     :class:`~topology.store.MemoryStore`) has not finished, serially, storing each result as it
     finishes, and summarise. The store stays with the caller (:func:`search_read` discards its
-    file checkpoint once the search is complete)."""
+    file checkpoint once the search is complete).
+
+    ``polarised``: a :class:`topology.search.polarised.PolarisedInput` (from
+    :func:`polarised_input`): field "E" searches its E map and mask instead of ``sky``, "T+E"
+    both with the combined statistic (:mod:`topology.search.polarised`); ``sky`` and ``mask`` are
+    then the temperature map (I) and its mask."""
     from ..maps import prepare_map
+    from .polarised import CombinedContext, combined_mode
 
     t0 = time.perf_counter()
     s = validate(settings or SearchSettings())
     if s.mode == "targeted" and scenario is None:
         raise InputError("the targeted search needs a config with [space] (and [cosmology], [observer])", "--config")
-    prepared = prepare_map(sky, mask, nside_work=s.nside_work, fwhm_deg=s.fwhm_deg, l_range=s.l_range,
+    field = polarised.field if polarised is not None else None
+
+    def prepare(m, k):
+        return prepare_map(m, k, nside_work=s.nside_work, fwhm_deg=s.fwhm_deg, l_range=s.l_range,
                            l_weights=s.l_weights, mask_threshold=s.mask_threshold)
+
+    if field == "E":
+        prepared = prepare(polarised.e, polarised.e_mask)
+    else:
+        prepared = prepare(sky, mask)
     ctx = SearchContext(prepared, s, scenario)
     mode = MODES[s.mode]()
+    if field == "T+E":
+        ctx = CombinedContext(ctx, SearchContext(prepare(polarised.e, polarised.e_mask), s, scenario), s.rho_t, s.rho_e)
+        mode = combined_mode(s.mode)
     keys = mode.tasks(ctx)
     store = store if store is not None else MemoryStore()
     tasks = [Task(id=task_id(k), fn=mode.run_task, kwargs={"ctx": ctx, "key": k}) for k in keys]
     run_tasks(tasks, store, SerialEngine(), show_progress, label=f"topology search ({s.mode})")
     results = {k: store.get(t.id) for k, t in zip(keys, tasks)}
     summary = mode.summarise(ctx, results)
+    pol_info = None
+    if polarised is not None:
+        pol_info = {**polarised.info, "field": field, "e_kept_fraction_work": float(
+            (ctx.e if field == "T+E" else ctx).prepared.kept_fraction)}
+        if field == "T+E":
+            pol_info["weights"] = summary.pop("weights")
     out = {
         "map": map_name or getattr(sky, "source", ""),
+        "field": field if field is not None else sky.header.get("COLUMN"),
+        "polarisation": pol_info,
         "settings": s.as_dict(),
         **summary,
         "map_info": {"nside_in": int(sky.nside), "nside_work": int(prepared.nside), "lmax": int(prepared.lmax),
@@ -182,7 +217,7 @@ def search_fingerprint(settings: dict, inputs: dict) -> str:
 
 
 def file_checkpoint(map_path, mask_path, settings: SearchSettings, *, scenario=None, column: str | None = None,
-                    resume: bool = False, checkpoint_path=None) -> FileStore:
+                    resume: bool = False, checkpoint_path=None, extra: dict | None = None) -> FileStore:
     """The checkpoint of a search of files, ``.topology-search-<fingerprint>.json`` in the current
     folder unless ``checkpoint_path`` is given: keyed by a fingerprint of the settings, the
     content of the map and mask files (not their names), the map column read and the scenario,
@@ -193,6 +228,7 @@ def file_checkpoint(map_path, mask_path, settings: SearchSettings, *, scenario=N
             ident[name] = file_digest(p)
     if column is not None:
         ident["field"] = column
+    ident.update(extra or {})
     if scenario is not None:
         ident["scenario"] = repr((scenario.space.describe(), scenario.chi, scenario.observer.point.tolist()))
     fp = search_fingerprint(settings.as_dict(), ident)
@@ -201,27 +237,49 @@ def file_checkpoint(map_path, mask_path, settings: SearchSettings, *, scenario=N
 
 
 def search_files(map_path, mask_path=None, settings: SearchSettings | None = None, *, field=None, scenario=None,
-                 resume: bool = False, show_progress: bool | None = None, checkpoint_path=None) -> dict:
-    """Read map (column ``field``: index or name, default the first) and mask, then
-    :func:`search_sky` with a file checkpoint after every task (:func:`file_checkpoint`)."""
+                 resume: bool = False, show_progress: bool | None = None, checkpoint_path=None,
+                 convention: str | None = None, pol_mask_path=None) -> dict:
+    """Read map (column ``field``: index or name, default the first; "E" or "T+E": the E map of
+    the file's Q, U, or T and E combined, :mod:`topology.search.polarised`, with the Q/U
+    ``convention`` "healpix" or "iau" unless the header's POLCCONV says it, and the polarisation
+    mask ``pol_mask_path``, default the mask) and mask, then :func:`search_sky` with a file
+    checkpoint after every task (:func:`file_checkpoint`)."""
     from ..maps import read_healpix
+    from .polarised import polarised_field, polarised_input
 
     s = validate(settings or SearchSettings())
-    sky = read_healpix(map_path, field=field, ordering=s.ordering, what="map")
     mask = read_healpix(mask_path, ordering=s.ordering, what="mask") if mask_path else None
+    pol = None
+    if polarised_field(field):
+        pol_mask = read_healpix(pol_mask_path, ordering=s.ordering, what="mask") if pol_mask_path else None
+        sky, pol = polarised_input(map_path, field, s, mask=mask, pol_mask=pol_mask, convention=convention,
+                                   pol_mask_name=str(pol_mask_path) if pol_mask_path else None)
+    else:
+        if convention is not None or pol_mask_path is not None:
+            raise InputError("a Q/U convention or polarisation mask needs field 'E' or 'T+E'", "field")
+        sky = read_healpix(map_path, field=field, ordering=s.ordering, what="map")
     return search_read(sky, mask, map_path, mask_path, s, field=field, scenario=scenario, resume=resume,
-                       show_progress=show_progress, checkpoint_path=checkpoint_path)
+                       show_progress=show_progress, checkpoint_path=checkpoint_path, polarised=pol,
+                       pol_mask_path=pol_mask_path)
 
 
 def search_read(sky, mask, map_path, mask_path, settings: SearchSettings, *, field=None, scenario=None,
-                resume: bool = False, show_progress: bool | None = None, checkpoint_path=None) -> dict:
+                resume: bool = False, show_progress: bool | None = None, checkpoint_path=None, polarised=None,
+                pol_mask_path=None) -> dict:
     """:func:`search_sky` on maps already read from ``map_path`` (column ``field``) and
-    ``mask_path``, with their file checkpoint."""
+    ``mask_path``, with their file checkpoint (``polarised``: :func:`search_sky`'s, whose
+    polarisation mask was read from ``pol_mask_path``)."""
     column = sky.header.get("COLUMN") if field is not None else None
+    extra = {}
+    if polarised is not None:
+        column = polarised.field
+        extra = {"convention": polarised.info.get("convention"), "columns": list(polarised.info.get("columns", []))}
+        if pol_mask_path:
+            extra["pol_mask"] = file_digest(pol_mask_path)
     store = file_checkpoint(map_path, mask_path, settings, scenario=scenario, column=column, resume=resume,
-                            checkpoint_path=checkpoint_path)
+                            checkpoint_path=checkpoint_path, extra=extra)
     out = search_sky(sky, mask, settings, scenario=scenario, store=store, show_progress=show_progress,
-                     map_name=str(map_path))
+                     map_name=str(map_path), polarised=polarised)
     store.discard()  # complete: nothing to resume
     return out
 

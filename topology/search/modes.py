@@ -77,6 +77,16 @@ class PairMode(Mode):
         raise NotImplementedError
 
     def run_task(self, ctx, key) -> dict:
+        cands, work, skipped, info, final_nside = self.final_candidates(ctx, key)
+        if cands is None:  # no usable pair at this radius (e.g. every S undefined): no candidates
+            return {"radius_deg": key, "candidates": [], "s_max": {}, "work": work, "skipped_circles": skipped,
+                    "levels": info}
+        return {"radius_deg": key, **self.report(ctx, np.radians(key), cands, final_nside), "work": work,
+                "skipped_circles": skipped, "levels": info}
+
+    def final_candidates(self, ctx, key) -> tuple:
+        """(the last level's Candidates or None when no pair is usable, work, circles skipped, one
+        record per level, the last level's N_side) of radius ``key`` (deg)."""
         s = ctx.settings
         radius = np.radians(key)
         levels = self.levels(ctx)
@@ -88,19 +98,15 @@ class PairMode(Mode):
                               ctx.level_mask(lv))
         valid = circ.kept_fraction >= s.min_kept
         skipped = int((~valid).sum())
-
-        def nothing() -> dict:  # no usable pair at this radius (e.g. every S undefined): no candidates
-            return {"radius_deg": key, "candidates": [], "s_max": {}, "work": work, "skipped_circles": skipped,
-                    "levels": info}
-
+        nothing = (None, work, skipped, info, levels[-1].nside)
         m_cut = st.effective_m_cut(circ.coeffs[valid] if valid.any() else circ.coeffs, s.m_max, s.power_fraction)
         if valid.sum() < (1 if self.antipodal else 2):
-            return nothing()
+            return nothing
         cands = self.coarse(ctx, circ, valid, m_cut, work)
         info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "m_cut": int(m_cut),
                      "kept": len(cands)})
         if len(cands) == 0:
-            return nothing()
+            return nothing
         # many coarse candidates (the best partners of every centre on a cut sky): the first
         # refinement evaluates only the finer pixels inside each candidate's coarse pixels
         inside = len(cands) > 4 * s.n_keep
@@ -112,11 +118,10 @@ class PairMode(Mode):
             info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "m_cut": int(cands.m_cut),
                          "kept": len(cands)})
             if len(cands) == 0:
-                return nothing()
+                return nothing
         if cands.s is None:  # a single level: evaluate the coarse candidates exactly
             cands = refine(ctx, levels[0], None, radius, cands, work, s.n_keep, self.antipodal)
-        return {"radius_deg": key, **self.report(ctx, radius, cands, levels[-1].nside), "work": work,
-                "skipped_circles": skipped, "levels": info}
+        return cands, work, skipped, info, levels[-1].nside
 
     def report(self, ctx, radius: float, c: Candidates, final_level: int) -> dict:
         """{candidates, s_max, best} of one radius from the last level's pairs: per orientation the
@@ -270,15 +275,20 @@ class TargetedMode(Mode):
             return {"position": position, "pairs": [], "S_combined": None, "n_pairs_used": 0, "euler_deg": None,
                     "work": work, "levels": []}
         levels = self.levels(ctx)
-        best, info = tg.scan_orientations(ctx, levels, pairs, work)
+        evaluate = self.evaluator(ctx, pairs)
+        best, info = tg.scan_orientations(ctx, levels, pairs, work, evaluate)
         # final values at the best orientation
-        sv, f, ok = tg.evaluate(ctx, levels[-1], pairs, best[:1], new_work())
+        sv, f, ok = evaluate(ctx, levels[-1], pairs, best[:1], new_work())
         comb, used = tg.combine(sv, f, ok)
         R = tg.rotations(best[:1])[0]
         return {"position": position, "pairs": tg.pair_records(pairs, R, sv[0], f[0], ok[0], levels[-1].nside),
                 "S_combined": float(comb[0]) if used[0] else None, "n_pairs_used": int(used[0]),
                 "euler_deg": [float(v) for v in np.degrees(best[0])], "work": work, "levels": info,
                 "rotation": R.tolist()}
+
+    def evaluator(self, ctx, pairs):
+        """The function of the pair values (S, f, usable) per orientation: :func:`.targeted.evaluate`."""
+        return tg.evaluate
 
     def summarise(self, ctx, results: dict) -> dict:
         work = total_work(results.values())

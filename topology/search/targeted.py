@@ -122,16 +122,20 @@ def combine(sv: np.ndarray, f: np.ndarray, ok: np.ndarray) -> tuple[np.ndarray, 
     return np.where(cnt > 0, eq.sum(axis=1) / np.maximum(cnt, 1), -np.inf), cnt
 
 
-def scan_orientations(ctx: SearchContext, levels: list[Level], pairs, work: dict) -> tuple[np.ndarray, list]:
+def scan_orientations(ctx: SearchContext, levels: list[Level], pairs, work: dict,
+                      evaluate_fn=None) -> tuple[np.ndarray, list]:
     """Best orientations (Euler angles, best first; at most ``n_keep``) after the last level, and
     one {nside, fwhm_deg, orientations} record per level. Each level keeps the ``n_keep`` best and
-    tries, for each, the next grid's directions within one step and gammas within two steps."""
+    tries, for each, the next grid's directions within one step and gammas within two steps.
+    ``evaluate_fn(ctx, lv, pairs, euler, work)`` gives the pair values (default :func:`evaluate`;
+    the T + E search passes its own)."""
     import healpy as hp
 
+    evaluate_fn = evaluate if evaluate_fn is None else evaluate_fn
     s = ctx.settings
     lv = levels[0]
     euler = orientation_grid(lv.nside)
-    comb, _ = combine(*evaluate(ctx, lv, pairs, euler, work))
+    comb, _ = combine(*evaluate_fn(ctx, lv, pairs, euler, work))
     info = [{"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "orientations": int(euler.shape[0])}]
     best = euler[np.argsort(-comb, kind="stable")[: s.n_keep]]
     for prev, lv in zip(levels[:-1], levels[1:]):
@@ -147,7 +151,7 @@ def scan_orientations(ctx: SearchContext, levels: list[Level], pairs, work: dict
             for dg in lv.step * np.arange(-n_g, n_g + 1):
                 cand.append(np.stack([ph, th, (g0 + dg) % (2 * np.pi)], axis=1))
         cand = np.unique(np.round(np.vstack(cand), 9), axis=0)
-        comb, _ = combine(*evaluate(ctx, lv, pairs, cand, work))
+        comb, _ = combine(*evaluate_fn(ctx, lv, pairs, cand, work))
         order = np.argsort(-comb, kind="stable")
         best = cand[order[: s.n_keep]]
         info.append({"nside": lv.nside, "fwhm_deg": float(np.degrees(lv.fwhm)), "orientations": int(cand.shape[0])})

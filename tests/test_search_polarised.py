@@ -1,0 +1,120 @@
+"""``topology search --field E`` and ``--field T+E`` through the command line: the JSON contract is
+the temperature one, a polarised file without a stated Q/U convention is refused in one line, and a
+pair of matched circles planted in T (under noise) and in E is found by E alone and by T + E with
+the combined value the two maps' S give.
+
+Test sky: an E1 cubic torus (side 1.6 chi_rec, antipodal pairs of radius 36.87 deg: cos alpha =
+L / 2 chi_rec, Cornish, Spergel & Starkman 1998). T is a group-invariant field plus an isotropic
+field of the same rms (so T alone matches only partly); E is another invariant field, turned into
+Q, U by healpy's spin-2 synthesis (B = 0; HEALPix convention, POLCCONV = COSMO).
+"""
+
+import json
+import subprocess
+import sys
+
+import healpy as hp
+import numpy as np
+import pytest
+
+from test_search_fields import invariant_field, isotropic_map
+from topology import geometry as geo
+from topology.circles import predict_circles
+from topology.cli import main
+from topology.completeness import match
+from topology.skies.polarised import write_iqu_fits
+from topology.spaces import build_space
+
+NSIDE = 32
+FAST = ["--nside-work", "32", "--m-max", "24", "--fwhm", "4", "--quiet", "--radii", "37", "--json"]
+
+
+@pytest.fixture(scope="module")
+def sky(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("pol")
+    space = build_space({"family": "E1", "lengths": [1.6, 1.6, 1.6]})
+    obs = geo.Observer.make("flat", [0.0, 0.0, 0.0], geo.euler_zyz(0.3, 0.6, -0.2))
+    t_sig = invariant_field(space, obs, NSIDE, 1, n_waves=400, qmax=10.0)
+    noise = isotropic_map(NSIDE, 7)
+    t = t_sig + 1.0 * t_sig.std() / noise.std() * noise
+    e = invariant_field(space, obs, NSIDE, 2, n_waves=400, qmax=10.0)
+    lmax = 3 * NSIDE - 1
+    a_e = hp.map2alm(e, lmax=lmax, iter=3)
+    zero = np.zeros_like(a_e)
+    _, q, u = hp.alm2map([zero, a_e, zero], NSIDE, lmax=lmax, pol=True)
+    write_iqu_fits(folder / "pol.fits", np.array([t, q, u]), [("POLCCONV", "COSMO", "Q/U convention")])
+    write_iqu_fits(folder / "noconv.fits", np.array([t, q, u]), [])
+    pair = next(p for p in predict_circles(space, obs, 1.0) if abs(np.degrees(p.radius) - 36.87) < 0.1)
+    return folder, pair
+
+
+def _topology(*args, cwd, monkeypatch, capsys):
+    """(exit code, stdout, stderr) of ``topology ARGS`` run in this process (as tests/test_search_cli.py
+    does: a new interpreter costs seconds of imports); one case below runs a real subprocess."""
+    monkeypatch.chdir(cwd)
+    capsys.readouterr()
+    code = main([*map(str, args)])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def _at_pair(out, pair):
+    """The candidate nearest the predicted pair: (centre error deg, twist error deg, record)."""
+    return min(((*match(c, pair), c) for c in out["candidates"]), key=lambda e: e[0])
+
+
+def test_e_and_te_keep_the_json_contract_and_find_the_pair(sky, monkeypatch, capsys):
+    folder, pair = sky
+    runs = {}
+    for field in ("0", "E", "T+E"):
+        code, out, err = _topology("search", folder / "pol.fits", "--field", field, *FAST, cwd=folder,
+                                   monkeypatch=monkeypatch, capsys=capsys)
+        assert code == 0, err
+        runs[field] = json.loads(out)
+    t, e, te = runs["0"], runs["E"], runs["T+E"]
+    assert set(e) == set(t) == set(te)
+    assert {k for c in e["candidates"] for k in c} == {k for c in t["candidates"] for k in c} \
+        == {k for c in te["candidates"] for k in c}
+    assert set(e["s_max"][0]) == set(t["s_max"][0]) == set(te["s_max"][0])
+    assert t["polarisation"] is None and e["polarisation"]["convention"] == "healpix"
+    assert e["field"] == "E" and te["field"] == "T+E"
+    # E alone: the planted pair is the best candidate, S near 1 (E of a full-sky pure-E Q, U is the
+    # field itself; the rest is interpolation and smoothing, as for T in test_search_modes)
+    d_e, tw_e, c_e = _at_pair(e, pair)
+    assert d_e < 3.0 and tw_e < 4.0 and c_e is e["candidates"][0] and c_e["S"] > 0.9
+    # T alone: the noise lowers the match of the pair
+    d_t, _, c_t = _at_pair(t, pair)
+    assert d_t < 3.0 and 0.3 < c_t["S"] < 0.8
+    # T + E: the pair is the best candidate, with S_TE = (w_T S_T + w_E S_E) / (w_T + w_E) of the
+    # weights it reports and the S of the T and E searches at the pair
+    d, tw, c = _at_pair(te, pair)
+    assert d < 3.0 and tw < 4.0 and c is te["candidates"][0]
+    w = te["polarisation"]["weights"][0]
+    assert w["w_t"] == pytest.approx(w["rho_t"] / w["sigma_t"] ** 2) and w["rho_e"] == 0.75
+    assert 0.05 < w["sigma_t"] < 0.5 and 0.05 < w["sigma_e"] < 0.5
+    want = (w["w_t"] * c_t["S"] + w["w_e"] * c_e["S"]) / (w["w_t"] + w["w_e"])
+    assert c["S"] == pytest.approx(want, abs=0.04)
+    assert c["S"] > c_t["S"] + 0.05  # measured 0.855 against 0.787
+
+
+@pytest.mark.parametrize("args,needle", [
+    (["pol.fits", "--field", "T+E", "--pol-convention", "iau"], "POLCCONV"),  # header and option disagree
+    (["pol.fits", "--field", "0", "--pol-convention", "iau"], "--pol-convention"),  # not a polarised search
+    (["pol.fits", "--field", "E", "--pol-mask", "missing.fits"], "missing.fits"),
+])
+def test_bad_polarised_input_is_one_line(sky, monkeypatch, capsys, args, needle):
+    folder, _ = sky
+    code, out, err = _topology("search", *args, *FAST, cwd=folder, monkeypatch=monkeypatch, capsys=capsys)
+    assert code == 2 and out == ""
+    err = err.strip()
+    assert needle in err and "\n" not in err and "Traceback" not in err
+
+
+def test_missing_convention_refused_by_the_command(sky):
+    # a real process: exit 2, one line naming the file and the option, no traceback, nothing on stdout
+    folder, _ = sky
+    r = subprocess.run([sys.executable, "-m", "topology", "search", "noconv.fits", "--field", "E", *FAST],
+                       capture_output=True, text=True, cwd=folder, timeout=120)
+    err = r.stderr.strip()
+    assert r.returncode == 2 and r.stdout == "" and "\n" not in err and "Traceback" not in err
+    assert "noconv.fits" in err and "no POLCCONV" in err and "--pol-convention" in err
