@@ -32,11 +32,13 @@ def cubic_shells(side, kmax):
     return k[sel], counts[sel]
 
 
-def lattice_cl(side, kmax, lmax, radial=None):
+def lattice_cl(side, kmax, lmax, radial=None, profile=None):
     """E[C_l] of the kept modes of a cubic torus: 4 pi sum_q sigma_q^2 w(q)^2 R_l(q)^2 over the
-    whole ball (both q and -q), R_l = j_l(q chi_rec) unless ``radial`` is given."""
+    whole ball (both q and -q), R_l = j_l(q chi_rec) unless ``radial`` is given, w the taper of
+    the cut or ``profile``'s weight."""
     k, counts = cubic_shells(side, kmax)
-    sig2 = flat_modes.mode_sigma(k, COSMO, side**3) ** 2 * flat_modes.cut_weight(k, kmax) ** 2
+    w = flat_modes.cut_weight(k, kmax) if profile is None else profile.weight(k)
+    sig2 = flat_modes.mode_sigma(k, COSMO, side**3) ** 2 * w ** 2
     ell = np.arange(lmax + 1)
     r = spherical_jn(ell[:, None], k[None, :]) if radial is None else radial(ell, k)
     cl = 4 * np.pi * (r**2 @ (counts * sig2))
@@ -84,24 +86,42 @@ def test_a_cut_alone_needs_seven_lmax():
 
 def test_e1_side_4_expected_spectrum_is_isotropic_within_one_percent():
     # What is compared: the exact expected C_l of the sky, i.e. the lattice sum of the kept modes
-    # (shells of the cubic torus of side 4 chi_rec, tapered cut at K = lmax = 128, the default
-    # of both methods at this lmax) plus the complement, against the closed-form isotropic SW
-    # spectrum (Gradshteyn & Ryzhik 6.574.2), in bands of l (measured: 0.997 in l = 2-5, the
-    # discreteness of few long modes, and 1.0000 in every band above). Without the complement
-    # the cut loses 5 / 14 / 30 / 68 % in l 31-50 / 51-75 / 76-100 / 101-128 (the deficit the
-    # issue measured on random skies with a sharp cut: 6 / 12 / 28 %).
+    # (shells of the cubic torus of side 4 chi_rec, the boosted profile of the cut) plus the
+    # complement, against the closed-form isotropic SW spectrum (Gradshteyn & Ryzhik 6.574.2),
+    # in bands of l, at K = lmax (the complement carries almost all of C_lmax) and at the
+    # lattice cut (the lattice alone within LATTICE_SHARE; measured: K = 140.8 for lmax 128).
+    # Without boost or complement the cut K = lmax loses 5 / 14 / 30 / 68 % in l 31-50 / 51-75 /
+    # 76-100 / 101-128 (the deficit the issue measured on random skies with a sharp cut:
+    # 6 / 12 / 28 %).
     lmax = 128
     iso = sachs_wolfe_cl(lmax, COSMO)
-    lat = lattice_cl(4.0, float(lmax), lmax)
-    comp = flat_cut.complement_cl(COSMO, lmax, float(lmax))
-    for lo, hi in BANDS:
-        assert band(lat + comp, iso, lo, hi) == pytest.approx(1.0, abs=0.01), (lo, hi)
-    assert band(lat, iso, 31, 50) < 0.96 and band(lat, iso, 76, 100) < 0.75 and band(lat, iso, 101, 128) < 0.4
-    # the cut's own deficit is restored exactly in the continuum: the lattice sum equals the
-    # continuum kept power C_l(K) to 0.1 % in every band from l = 6 (discreteness of 4 chi_rec)
-    kept = flat_cut.kept_cl(COSMO, lmax, float(lmax))
-    for lo, hi in BANDS[1:]:
-        assert band(lat, kept, lo, hi) == pytest.approx(1.0, abs=1e-3), (lo, hi)
+    bare = lattice_cl(4.0, float(lmax), lmax)
+    assert band(bare, iso, 31, 50) < 0.96 and band(bare, iso, 76, 100) < 0.75 and band(bare, iso, 101, 128) < 0.4
+    k_lat = flat_cut.lattice_cut(COSMO, lmax)
+    assert lmax < k_lat < 1.25 * lmax
+    for K in (float(lmax), k_lat):
+        profile, kept = flat_cut.cut_profile(COSMO, lmax, K)
+        lat = lattice_cl(4.0, K, lmax, profile=profile)
+        comp = flat_cut.complement_cl(COSMO, lmax, K)
+        for lo, hi in BANDS:
+            assert band(lat + comp, iso, lo, hi) == pytest.approx(1.0, abs=0.01), (K, lo, hi)
+        # the boosted lattice sum equals its continuum kept power to 0.2 % in every band from
+        # l = 6 (discreteness of 4 chi_rec; measured 0.9985 in l 101-128 at K = lmax, above 0.9997
+        # elsewhere)
+        for lo, hi in BANDS[1:]:
+            assert band(lat, kept, lo, hi) == pytest.approx(1.0, abs=2e-3), (K, lo, hi)
+    for lo, hi in BANDS[1:]:        # at the lattice cut the lattice alone holds C_l
+        assert band(lat, iso, lo, hi) == pytest.approx(1.0, abs=flat_cut.LATTICE_SHARE), (lo, hi)
+
+
+def test_lattice_cut_is_the_smallest_that_leaves_the_share():
+    # the cut follows from the share asked: at lattice_cut the complement carries <= 2 % of every
+    # C_l (l <= lmax), one step (lmax / 20) below it more; the boost stays moderate (w^2 < 3)
+    for lmax in (48, 96):
+        K = flat_cut.lattice_cut(COSMO, lmax)
+        assert np.max(flat_cut.complement_share(COSMO, lmax, K)) <= flat_cut.LATTICE_SHARE
+        assert np.max(flat_cut.complement_share(COSMO, lmax, K - lmax / 20)) > flat_cut.LATTICE_SHARE
+        assert flat_cut.cut_profile(COSMO, lmax, K)[0].largest_square() < 3.0
 
 
 def test_e1_side_4_skies_hold_the_isotropic_spectrum():
@@ -125,13 +145,13 @@ def test_grid_and_eigenmode_share_the_complement():
     # same seed: the same lattice amplitudes and the same complement (its own "tail" stream)
     space = build_space({"family": "E1", "lengths": [1.6, 1.6, 1.6]})
     obs = geo.Observer.make("flat", [0.13, -0.21, 0.07], geo.euler_zyz(0.3, 0.9, -0.4))
-    eig = flat_sky(space, obs, COSMO, lmax=32, nside=16, method="eigenmode", seed=3)
+    eig = flat_sky(space, obs, COSMO, lmax=32, nside=16, method="eigenmode", seed=3, kchi_max=32.0)
     grd = flat_sky(space, obs, COSMO, lmax=32, nside=16, method="grid", seed=3, kchi_max=32.0)
     assert eig.meta["kchi_max"] == grd.meta["kchi_max"] == 32.0
     assert 0.9 < eig.meta["complement_lmax"] < 1.0          # C_lmax comes almost all from beyond the cut
     me = hp.alm2map(eig.alm, 16, lmax=32)
     assert np.std(grd.map - me) < 0.03 * np.std(me)
-    bare = flat_sky(space, obs, COSMO, lmax=32, nside=16, method="eigenmode", seed=3, complete=False)
+    bare = flat_sky(space, obs, COSMO, lmax=32, nside=16, method="eigenmode", seed=3, complete=False, kchi_max=32.0)
     assert np.std(hp.alm2map(bare.alm, 16, lmax=32) - me) > 0.3 * np.std(me)
 
 
@@ -144,25 +164,27 @@ def test_full_terms_complement_restores_camb_cl():
 
     lmax, K = 30, 40.0
     delta = temperature_transfer(COSMO, lmax)
-    lat = lattice_cl(6.0, K, lmax, radial=lambda ell, k: -5.0 * delta(ell, k / COSMO.chi_rec_mpc))
+    radial = lambda ell, k: -5.0 * delta(ell, k / COSMO.chi_rec_mpc)   # noqa: E731
     ref = camb_cl(COSMO, lmax)
+    bare = lattice_cl(6.0, K, lmax, radial=radial)
+    assert band(bare, ref, 2, 5) < 0.95 and band(bare, ref, 21, 30) < 0.4
+    lat = lattice_cl(6.0, K, lmax, radial=radial, profile=flat_cut.cut_profile(COSMO, lmax, K, FULL)[0])
     comp = flat_cut.complement_cl(COSMO, lmax, K, FULL)
-    assert band(lat, ref, 2, 5) < 0.95 and band(lat, ref, 21, 30) < 0.4
     for lo, hi in ((2, 5), (6, 10), (11, 20), (21, 30)):
         assert band(lat + comp, ref, lo, hi) == pytest.approx(1.0, abs=0.01), (lo, hi)
 
 
 def test_default_cut():
-    # eigenmode: K = lmax. grid: the pure cut (~7 lmax) capped by the pixels (K + 4 K^(1/3) <=
-    # 3 N_side - 1) and by the cost (42 grid cells per pixel): K ~ 1.35 lmax for a small grid at
-    # lmax = 2 N_side, K ~ lmax at the speed target (side 1.6, N_side 256, l_max 512: 320^3 cells)
+    # eigenmode: the lattice cut (derived from LATTICE_SHARE). grid: the lattice cut capped by the
+    # pixels (K + 4 K^(1/3) <= 3 N_side - 1) and by the cost (42 grid cells per pixel): K ~ lmax at
+    # the speed target (side 1.6, N_side 256, l_max 512: 320^3 cells)
     from topology.skies.flat import choose_cut, pixel_cut
     from topology.skies.flat_grid import grid_shape
 
     space = build_space({"family": "E1", "lengths": [1.6, 1.6, 1.6]})
-    assert choose_cut(space, COSMO, 128, 64, "eigenmode", ("sw",)) == 128.0
-    k = choose_cut(space, COSMO, 128, 64, "grid", ("sw",))
-    assert k == pixel_cut(64) and k + 4 * k ** (1 / 3) == pytest.approx(191.0) and 1.3 < k / 128 < 1.4
+    k_lat = flat_cut.lattice_cut(COSMO, 128)
+    assert choose_cut(space, COSMO, 128, 64, "eigenmode", ("sw",)) == k_lat
+    assert choose_cut(space, COSMO, 128, 64, "grid", ("sw",)) == k_lat < pixel_cut(64)
     k = choose_cut(space, COSMO, 512, 256, "grid", ("sw",))
     assert 512 <= k < 530 and np.prod(grid_shape(space, k, 1.2)) <= 42 * 12 * 256**2
     big = build_space({"family": "E1", "lengths": [4.0, 4.0, 4.0]})

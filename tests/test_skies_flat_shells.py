@@ -68,7 +68,7 @@ def test_grid_full_terms_match_the_eigenmode_sums():
 
 def test_shell_sky_expected_spectrum_is_camb_cl():
     # check: CAMB's unlensed TT (camb_cl): a cubic torus of side 6 chi_rec, shell transfer, cut
-    # at k chi_rec = 40: lattice sum 4 pi sum sigma^2 w^2 R_l^2 + complement within 1 % of CAMB
+    # at k chi_rec = 40 (boosted profile): lattice sum 4 pi sum sigma^2 w^2 R_l^2 + complement within 1 % of CAMB
     # in bands of l <= 30
     lmax, K, side = 30, 40.0, 6.0
     nm = int(K * side / (2 * np.pi))
@@ -77,7 +77,8 @@ def test_shell_sky_expected_spectrum_is_camb_cl():
     k = 2 * np.pi * np.sqrt(np.arange(1, len(counts) + 1)) / side
     sel = (k <= K) & (counts > 0)
     k, counts = k[sel], counts[sel]
-    sig2 = flat_modes.mode_sigma(k, COSMO, side**3) ** 2 * flat_modes.cut_weight(k, K) ** 2
+    profile = flat_cut.cut_profile(COSMO, lmax, K, FULL, "shells")[0]
+    sig2 = flat_modes.mode_sigma(k, COSMO, side**3) ** 2 * profile.weight(k) ** 2
     r = transfer_shells.shell_transfer(COSMO, lmax, K).radial(np.arange(lmax + 1), k)
     lat = 4 * np.pi * (r**2 @ (counts * sig2))
     lat[:2] = 0

@@ -23,7 +23,6 @@ Non-compact families E11-E17 use the compact cover the skies use
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 
@@ -76,10 +75,13 @@ def covariance_work(space, observer, lmax: int, kchi_max: float) -> float:
     return 4.0 * half / len(space.cosets) * float(n_coefficients(lmax)) ** 2
 
 
-def flat_mode_blocks(space, observer, cosmology, lmax: int, kchi_max: float, radial, block: int | None = None):
+def flat_mode_blocks(space, observer, cosmology, lmax: int, kchi_max: float, radial, block: int | None = None,
+                     profile=None):
     """Yield real blocks W (N, 2B), Fortran order, with C = sum over blocks of W W^T: the columns
     sqrt(|O|) Re u and sqrt(|O|) Im u of B orbit representatives (see the module doc).
-    ``radial(ell, k)``: the radial function of :mod:`topology.harmonic.radial`."""
+    ``radial(ell, k)``: the radial function of :mod:`topology.harmonic.radial`; ``profile``: the
+    modes' radial weight (:class:`~topology.skies.flat_modes.CutProfile`, the skies' own; default
+    the taper of the cut)."""
     check_space(space)
     if observer.geometry != "flat":
         raise InputError(f"a flat space needs a flat observer, got {observer.geometry!r}", "[observer] position")
@@ -91,6 +93,7 @@ def flat_mode_blocks(space, observer, cosmology, lmax: int, kchi_max: float, rad
     if not space.compact:
         space, _, _ = compact_cover(space, observer)
     n_all, k_all, w_all = orbit_representatives(space, kchi_max)
+    weight = (lambda k: cut_weight(k, kchi_max)) if profile is None else profile.weight
     x = np.asarray(observer.point[:3], dtype=float)
     F = np.asarray(observer.frame[:3, :], dtype=float)
     cosets = [(np.asarray(R, dtype=float), np.asarray(t, dtype=float)) for R, t in space.cosets]
@@ -102,7 +105,7 @@ def flat_mode_blocks(space, observer, cosmology, lmax: int, kchi_max: float, rad
         k = k_all[b0:b0 + block]
         B = len(k)
         kn = np.linalg.norm(k, axis=1)
-        col = 4.0 * np.pi * mode_sigma(kn, cosmology, space.covering_cell_volume) * cut_weight(kn, kchi_max) \
+        col = 4.0 * np.pi * mode_sigma(kn, cosmology, space.covering_cell_volume) * weight(kn) \
             * np.sqrt(w_all[b0:b0 + block] / len(cosets))
         ku, inv = np.unique(np.round(kn, 12), return_inverse=True)
         factor = np.asarray(radial(ell, ku))[:, inv] * col[None, :]      # (lmax - 1, B)

@@ -7,26 +7,29 @@ The flow: the space's Gamma-invariant modes and their Gaussian amplitudes
 sampled at the pixel centres (:mod:`topology.skies.flat_grid`). Both methods draw the same
 amplitude for the same mode from the same seed.
 
-Modes kept and the complement. The lattice modes 0 < k chi_rec <= K (the cut, :func:`choose_cut`;
-tapered over its last 8, :func:`topology.skies.flat_modes.cut_weight`) plus, unless
-``complete=False``, the isotropic Gaussian field of the power the cut leaves out, C_l - C_l(K)
-(:mod:`topology.skies.flat_cut`): the continuum power of the modes beyond K, from the same
-spectrum function as the isotropic null skies, drawn from the "tail" stream of the seed (a_lm to
-lmax). The expected C_l is then the isotropic one at every l <= lmax (to 1e-3 for E1 of side 4
-chi_rec, tests/test_skies_flat_cut.py), apart from the lattice's discreteness at low l, which
-is the topology. A cut alone would need K ~ 7 lmax for 1 % at l = lmax (SW;
-:func:`topology.skies.flat_cut.cut_for_accuracy`), ~350 times the modes of K = lmax.
+Modes kept, their boost and the complement. The lattice modes 0 < k chi_rec <= K (the cut,
+:func:`choose_cut`) with the radial weight of :func:`topology.skies.flat_cut.cut_profile`: a
+taper over the last 8 of K and "boost" bumps below it whose weights make the modes there carry
+the power of the modes beyond the cut (a mode of k chi_rec >> l adds about the same power to
+every l < k chi_rec, as those beyond do), placed only where the lattice is dense. Unless
+``complete=False``, the isotropic Gaussian field of the power still missing, C_l - C_l(K)
+(:mod:`topology.skies.flat_cut`), drawn from the "tail" stream of the seed (a_lm to lmax), from
+the same spectrum function as the isotropic null skies. The expected C_l is then the isotropic
+one at every l <= lmax (to 3e-3 for E1 of side 4 chi_rec, tests/test_skies_flat_cut.py), apart
+from the lattice's discreteness at low l, which is the topology. A bare cut would need K ~ 7
+lmax for 1 % at l = lmax (SW; :func:`topology.skies.flat_cut.cut_for_accuracy`), ~350 times the
+modes of K = lmax; the boost needs K a little above lmax.
 
-Default cut: K = lmax for the eigenmode method (its cost, modes x a_lm, is already seconds at
-lmax 64). For the grid the pure cut, capped by the pixels (:func:`pixel_cut`: the sampled map
-holds l up to about K, and power beyond 3 N_side would alias in the harmonic transform) and by
-the cost (at most GRID_CELLS_PER_PIXEL grid cells per pixel, the grid of the speed target), never
-below lmax: K ~ lmax at the speed target (N_side 256, l_max 512, side 1.6 chi_rec), about
-1.35 lmax at lmax = 2 N_side where the grid is small against the pixels (e.g. N_side 64 and
-sides below ~2 chi_rec). The complement lacks the matched-circle correlations of the modes it
-stands for: with K = lmax the correlation of the two circles of a pair is lower than with
-every mode by 0.03-0.05 for radii of 18-66 deg, with K = 1.5 lmax by < 0.01
-(benchmarks/flat_sky_spectrum.py --circles).
+Default cut: the lattice cut (:func:`topology.skies.flat_cut.lattice_cut`), the smallest K whose
+boosted lattice leaves at most LATTICE_SHARE = 2 % of any C_l (l <= lmax) to the isotropic
+complement: 1.2 lmax at lmax 64, 1.1 lmax at lmax 128 (SW), 1.15 lmax at lmax 128 (CAMB
+terms), i.e. 1.3-1.7 times the modes of K = lmax. The grid's cut is also capped by the pixels
+(:func:`pixel_cut`: the sampled map holds l up to about K, and power beyond 3 N_side would alias
+in the harmonic transform) and by the cost (at most GRID_CELLS_PER_PIXEL grid cells per pixel,
+the grid of the speed target), never below lmax: K ~ lmax at the speed target (N_side 256,
+l_max 512, side 1.6 chi_rec), where the boost still carries most of the power the cut leaves
+out and the complement the rest. The complement lacks the matched-circle correlations of the
+modes it stands for; the boosted modes have them (benchmarks/flat_sky_spectrum.py --circles).
 
 Temperature terms:
 
@@ -76,9 +79,9 @@ from ..bandlimit import check_band_limit, lmax_limit
 from ..errors import InputError
 from .base import TERMS, Sky, stream_rng
 from .flat_eigenmode import eigenmode_alm
-from .flat_cut import transfer_source
+from .flat_cut import cut_profile, transfer_source
 from .flat_grid import grid_map
-from .flat_modes import check_space, compact_cover
+from .flat_modes import check_space, compact_cover, plain_profile
 
 METHODS = ("eigenmode", "grid", "auto")
 AUTO_LMAX = 64             # method "auto": eigenmode up to this lmax, grid above
@@ -100,21 +103,29 @@ def pixel_cut(nside: int) -> float:
     return max(k, 1.0)
 
 
-def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, terms, oversample: float = 1.2) -> float:
+def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, terms, oversample: float = 1.2,
+               source: str = "sw") -> float:
     """The default cut K (k chi_rec) of a flat sky; see the module doc.
 
-    eigenmode: lmax. grid: max(lmax, min(K_pure, K_pix, K_cost)), K_pix of :func:`pixel_cut`,
-    K_pure the cut that alone holds C_lmax to CL_ACCURACY (SW:
-    :func:`topology.skies.flat_cut.cut_for_accuracy`; the CAMB terms' 3-10 lmax is never the
-    smallest), K_cost the largest cut whose grid has at most GRID_CELLS_PER_PIXEL x 12 N_side^2
-    cells.
+    K_lattice: the smallest cut whose boosted lattice leaves at most LATTICE_SHARE of any C_l to
+    the isotropic complement (:func:`topology.skies.flat_cut.lattice_cut`). eigenmode:
+    K_lattice, lowered (not below lmax) while the work would pass the eigenmode guard. grid:
+    max(lmax, min(K_lattice, K_pix, K_cost)), K_pix of :func:`pixel_cut`, K_cost the largest cut
+    whose grid has at most GRID_CELLS_PER_PIXEL x 12 N_side^2 cells.
     """
-    from .flat_cut import cut_for_accuracy
+    from .flat_cut import lattice_cut
+    from .flat_eigenmode import MAX_EIGEN_WORK, eigenmode_work
     from .flat_grid import grid_shape
 
     lmax = int(lmax)
+    k_lattice = lattice_cut(cosmology, lmax, terms, source, volume=space.covering_cell_volume)
+    if method != "grid":
+        k = k_lattice
+        while k > lmax and eigenmode_work(space, lmax, k) > MAX_EIGEN_WORK:
+            k = max(float(lmax), k - max(1.0, lmax / 20.0))
+        return float(k)
     k_pix = pixel_cut(nside) if nside is not None else 0.0
-    if method != "grid" or k_pix <= lmax:
+    if k_pix <= lmax:
         return float(lmax)
     cells = GRID_CELLS_PER_PIXEL * 12 * nside * nside
 
@@ -123,7 +134,7 @@ def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, term
 
     if not fits(float(lmax) + 1.0):
         return float(lmax)
-    hi = min(k_pix, cut_for_accuracy(cosmology, lmax)) if tuple(terms) == ("sw",) else k_pix
+    hi = min(k_pix, k_lattice)
     if fits(hi):
         return hi
     lo = float(lmax)
@@ -133,17 +144,19 @@ def choose_cut(space, cosmology, lmax: int, nside: int | None, method: str, term
     return lo
 
 
-def complement(cosmology, lmax: int, kchi: float, terms, seed: int, source: str = "camb") -> tuple[np.ndarray, float]:
-    """(a_lm to lmax, healpy order; share of C_lmax): the isotropic field of the power beyond the
-    cut (:func:`topology.skies.flat_cut.complement_cl`, R_l from ``source``), drawn from the
-    "tail" stream of ``seed``."""
+def complement(cosmology, lmax: int, kchi: float, terms, seed: int, source: str = "camb",
+               volume: float | None = None) -> tuple[np.ndarray, float]:
+    """(a_lm to lmax, healpy order; largest share of any C_l): the isotropic field of the power
+    the boosted lattice of a torus of ``volume`` leaves out
+    (:func:`topology.skies.flat_cut.complement_cl`, R_l from ``source``), drawn from the "tail"
+    stream of ``seed``."""
     from .flat_cut import complement_cl
     from .isotropic import gaussian_alm
     from .spectra import isotropic_cl
 
-    cl = complement_cl(cosmology, lmax, kchi, terms, source)
+    cl = complement_cl(cosmology, lmax, kchi, terms, source, volume=volume)
     iso = isotropic_cl(cosmology, lmax, terms)
-    share = float(cl[lmax] / iso[lmax]) if lmax >= 2 and iso[lmax] > 0 else 0.0
+    share = float(np.max(cl[2:] / iso[2:])) if lmax >= 2 else 0.0
     return gaussian_alm(cl, stream_rng(seed, "tail")), share
 
 
@@ -211,21 +224,24 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
         method = "eigenmode" if lmax <= AUTO_LMAX else "grid"
     if method == "grid" and nside is None:
         raise InputError("the grid method needs nside", "[sky] nside")
+    source = transfer_source(method) if full else "sw"
     kchi = float(kchi_max) if kchi_max is not None else choose_cut(space, cosmology, lmax, nside, method, terms,
-                                                                    oversample)
+                                                                    oversample, source)
+    volume = space.covering_cell_volume
+    profile = cut_profile(cosmology, lmax, kchi, terms, source, volume=volume)[0] if complete else plain_profile(kchi)
     x_obs = np.asarray(observer.point[:3], dtype=float)
     F = np.asarray(observer.frame[:3, :], dtype=float)  # columns: sky axes in space coordinates
     meta = {"family": given.family, "params": dict(given.params), "seed": int(seed), "kchi_max": kchi,
             "observer": x_obs.tolist(), "terms": list(terms)}
     if free is not None:   # the open directions' period (the discretisation of their spectrum)
         meta.update(free_axes=free[0], free_length=",".join(f"{L:g}" for L in free[1]))
-    source = transfer_source(method) if full else "sw"
+    meta["boost_max_w2"] = round(profile.largest_square(), 4)
     meta["transfer"] = {"sw": "sachs-wolfe", "camb": "camb", "shells": "camb shells"}[source]
     if method == "eigenmode":
-        alm, n_modes = eigenmode_alm(space, cosmology, seed, kchi, lmax, x_obs, F, transfer=full)
+        alm, n_modes = eigenmode_alm(space, cosmology, seed, kchi, lmax, x_obs, F, transfer=full, profile=profile)
         meta.update(method="eigenmode", n_modes=n_modes)
         if complete:
-            extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed, source)
+            extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed, source, volume)
             alm += extra
         return Sky(lmax=lmax, alm=alm, nside=nside, terms=terms, meta=meta)
     shells = None
@@ -234,11 +250,11 @@ def flat_sky(space, observer, cosmology, *, lmax: int, nside: int | None = None,
 
         shells = shell_transfer(cosmology, lmax, kchi)
     sky, shape = grid_map(space, cosmology, seed, kchi, x_obs, F, nside, oversample, workers, spline_order, shells,
-                          lmax)
+                          lmax, profile)
     if complete:
         import healpy as hp
 
-        extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed, source)
+        extra, meta["complement_lmax"] = complement(cosmology, lmax, kchi, terms, seed, source, volume)
         sky += hp.alm2map(extra, nside, lmax=lmax)
     meta.update(method="grid", grid=shape, oversample=float(oversample), spline_order=int(spline_order))
     return Sky(lmax=lmax, map=sky, nside=nside, terms=terms, meta=meta)

@@ -17,19 +17,20 @@ T_l / C_l ~ l^2 / (2 K^2) (about 95 % at K = l, 25 % at 1.5 l, 1 % at 7.1 l; mea
 (SW) or 3-10 lmax (CAMB transfer, whose tail the finite thickness of last scattering damps only
 beyond k chi_rec ~ 10^3), i.e. 30-350 times the modes of K = lmax: beyond any budget.
 
-So a flat sky keeps the lattice modes up to a cut K (:func:`topology.skies.flat.choose_cut`),
-weighted by the taper w(k) of :func:`topology.skies.flat_modes.cut_weight`, and adds the
-isotropic Gaussian field of C_l - C_l(K), C_l(K) = 4 pi (T/5)^2 int dk/k P_R w^2 R_l^2
-(:func:`complement_cl`: the continuum power of the modes beyond the cut, from the same spectrum
-function as the isotropic null skies, :func:`topology.skies.spectra.isotropic_cl`). Its expected
-C_l is then the isotropic one at every l <= lmax, up to the discreteness of the lattice (the
-topology itself; the taper makes the lattice sum near the cut equal its continuum). The
-complement is isotropic: it lacks the matched-circle correlations the lattice modes beyond K
-would carry (the stationary phase of a mode with k chi_rec >> l puts its projection at multipole
-l in caps of radius ~ l / (k chi_rec) about +-k^, which hold both points of a pair only for the
-largest and the smallest circles). Measured by benchmarks/flat_sky_spectrum.py --circles (l_max
-64, 2 deg beam): at K = l_max the expected correlation of matched points is 0.03-0.05 below that
-of every mode for circles of 18-66 deg (0.15 at 81 deg), at K = 1.5 l_max within 0.006 (0.04).
+So a flat sky keeps the lattice modes up to a cut K (:func:`topology.skies.flat.choose_cut`)
+and weights them by the profile of :func:`cut_profile`: the taper w(k) of
+:func:`topology.skies.flat_modes.cut_weight` plus boost bumps below the cut, chosen by a linear
+programme so that the modes below K carry the power of those beyond it. What the boosted lattice
+still leaves out is added as the isotropic Gaussian field of C_l - C_l(K), C_l(K) = 4 pi (T/5)^2
+int dk/k P_R w^2 R_l^2 (:func:`complement_cl`: from the same spectrum function as the isotropic
+null skies, :func:`topology.skies.spectra.isotropic_cl`). Its expected C_l is then the isotropic
+one at every l <= lmax, up to the discreteness of the lattice (the topology itself; the taper
+and the smooth bumps make the lattice sum near the cut equal its continuum). The complement is
+isotropic: it lacks the matched-circle correlations the lattice modes beyond K would carry (for
+the Sachs-Wolfe term every lattice mode matches exactly on the circles, whatever its k), which
+is why the boost is preferred: at the lattice cut (:func:`lattice_cut`, 1.1-1.2 lmax) the
+complement carries at most 2 % of any C_l, against 35-55 % of C_lmax with the taper alone at the
+same cut. Measured by benchmarks/flat_sky_spectrum.py --circles (see its output in the README).
 
 C_l(K) is integrated with composite Gauss-Legendre panels (width PANEL in k chi_rec, NODES
 each; R_l oscillates with period 2 pi). For the SW term j_l comes from the upward recurrence
@@ -56,6 +57,16 @@ SW = ("sw",)
 FULL = ("sw", "doppler", "isw")
 #: the C_l accuracy a flat sky is held to at every l <= lmax (lattice + complement)
 CL_ACCURACY = 0.01
+#: the boost bumps of :func:`cut_profile` cover k chi_rec in [K (1 - BOOST_SPAN), K]
+BOOST_SPAN = 0.5
+#: cost of the largest bump coefficient in the programme of :func:`cut_profile`, per multipole
+BOOST_PENALTY = 1e-3
+#: the boosted lattice may exceed the isotropic C_l by this fraction of CL_ACCURACY
+BOOST_OVERSHOOT = 0.2
+#: lattice modes per bump shell below which a boost is not placed (:func:`dense_from`)
+DENSE_MODES = 100
+#: the lattice cut (:func:`lattice_cut`) leaves at most this share of any C_l to the complement
+LATTICE_SHARE = 0.02
 
 
 def _terms(terms) -> tuple:
@@ -172,13 +183,168 @@ def kept_cl(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb") -
     return _kept_cl_cached(cosmology, int(lmax), float(kchi), _terms(terms), str(source)).copy()
 
 
-def complement_cl(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb") -> np.ndarray:
-    """max(C_l - C_l(K), 0): the isotropic power of the modes beyond the cut, with C_l the
-    isotropic spectrum of ``terms`` (:func:`topology.skies.spectra.isotropic_cl`, the spectrum of
-    the null skies). Negative differences (CAMB's own C_l below its transfer integral by up to
-    ~0.5 % where the cut leaves almost nothing out) are set to 0."""
+def complement_cl(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb", boost: bool = True,
+                  volume: float | None = None) -> np.ndarray:
+    """max(C_l - C_l(K), 0): the isotropic power the lattice modes up to the cut leave out, with
+    C_l the isotropic spectrum of ``terms`` (:func:`topology.skies.spectra.isotropic_cl`, the
+    spectrum of the null skies) and C_l(K) the kept power of the boosted profile
+    (:func:`cut_profile`, for a torus of ``volume``; the taper alone, :func:`kept_cl`, with
+    ``boost=False``). Negative
+    differences (CAMB's own C_l below its transfer integral by up to ~0.5 % where the cut leaves
+    almost nothing out; the boost's allowance of BOOST_OVERSHOOT CL_ACCURACY) are set to 0."""
     terms = _terms(terms)
-    return np.maximum(isotropic_cl(cosmology, int(lmax), terms) - kept_cl(cosmology, lmax, kchi, terms, source), 0.0)
+    kept = cut_profile(cosmology, lmax, kchi, terms, source, volume=volume)[1] if boost \
+        else kept_cl(cosmology, lmax, kchi, terms, source)
+    return np.maximum(isotropic_cl(cosmology, int(lmax), terms) - kept, 0.0)
+
+
+def spectrum_rows(cosmology, lmax: int, x: np.ndarray, terms=SW, source: str = "camb", kchi: float | None = None) -> np.ndarray:
+    """f_l(x_i), (lmax + 1, len(x)), l = 0..lmax (rows 0, 1 zero): the isotropic integrand of C_l
+    per unit quadrature weight, C_l = sum_i w_i f_l(x_i) (microK^2), x = k chi_rec. SW:
+    (4 pi / 25) T^2 A_s (k_p chi)^(1 - n_s) x^(n_s - 2) j_l(x)^2; CAMB terms: 4 pi (T/5)^2
+    P_R(x / chi_rec) / x R_l(x)^2 with R_l from ``source`` (the shells fitted up to ``kchi``)."""
+    x = np.asarray(x, dtype=float)
+    lmax = int(lmax)
+    out = np.zeros((lmax + 1, x.size))
+    if lmax < 2 or not x.size:
+        return out
+    terms = _terms(terms)
+    if terms == SW:
+        f = _sw_scale(cosmology) * x ** (N_S - 2.0)
+        for ell, j in enumerate(bessel_rows(lmax, x)):
+            if ell >= 2:
+                out[ell] = f * j * j
+        return out
+    if source == "shells":
+        from .transfer_shells import shell_transfer
+
+        radial = shell_transfer(cosmology, lmax, float(kchi if kchi is not None else x.max())).radial
+    else:
+        radial = _transfer_radial(cosmology, lmax)
+    t_uk = cosmology.t_cmb * 1e6
+    f = 4.0 * math.pi * (t_uk / 5.0) ** 2 * primordial_power(x / cosmology.chi_rec_mpc) / x
+    for b in range(0, x.size, CHUNK):
+        r = radial(np.arange(2, lmax + 1), x[b:b + CHUNK])
+        out[2:, b:b + CHUNK] = f[b:b + CHUNK] * r * r
+    return out
+
+
+def dense_from(volume: float | None, half_width: float) -> float:
+    """The smallest k chi_rec at which a shell of width 2 h holds DENSE_MODES lattice modes of a
+    torus of volume V (chi_rec^3): 4 pi k^2 2h V / (2 pi)^3 = DENSE_MODES (0 for V None: the
+    continuum). Below it the lattice sum over a bump is not its continuum integral."""
+    if volume is None:
+        return 0.0
+    return math.sqrt(DENSE_MODES * (2.0 * math.pi) ** 3 / (8.0 * math.pi * half_width * float(volume)))
+
+
+def _bump_layout(kchi: float, volume: float | None = None) -> tuple[np.ndarray, float]:
+    """Centres and half-width of the boost bumps: h = D / 2 (D the taper width), centres K - h,
+    K - 2h, ... down to K (1 - BOOST_SPAN) (at least h) and to where the lattice is dense
+    (:func:`dense_from`); possibly none."""
+    K = float(kchi)
+    h = 0.5 * taper_width(K)
+    lo = max(h, K * (1.0 - BOOST_SPAN), dense_from(volume, h) + h)
+    if lo > K - h:
+        return np.zeros(0), h
+    n = int(math.floor((K - h - lo) / h)) + 1
+    return K - h * (1.0 + np.arange(n)), h
+
+
+@lru_cache(maxsize=64)
+def _profile_cached(cosmology, lmax: int, kchi: float, terms: tuple, source: str, accuracy: float,
+                    volume: float | None):
+    from scipy.optimize import linprog
+
+    from .flat_modes import CutProfile
+
+    K = float(kchi)
+    taper = _kept_cl_cached(cosmology, lmax, K, terms, source) if lmax >= 2 else np.zeros(lmax + 1)
+    centres, h = _bump_layout(K, volume)
+    if lmax < 2 or not centres.size:
+        return CutProfile(K), taper
+    iso = isotropic_cl(cosmology, lmax, terms)
+    lo = float(centres.min() - h)
+    x, w = quadrature(max(lo, transfer_k_floor(cosmology, lmax) if (terms != SW and source != "shells") else lo), K)
+    u = (x[None, :] - centres[:, None]) / h
+    bumps = np.where(np.abs(u) < 1.0, np.cos(0.5 * np.pi * u) ** 2, 0.0) * w       # (J, nodes)
+    B = spectrum_rows(cosmology, lmax, x, terms, source, K) @ bumps.T               # (lmax + 1, J)
+    ell = slice(2, lmax + 1)
+    A = B[ell] / iso[ell, None]                     # relative power of each bump at each l
+    miss = (iso[ell] - taper[ell]) / iso[ell]       # relative power the cut leaves out
+    L, J = A.shape
+    # variables c (J), s (L), o (L), z: minimise sum_l (s_l + o_l) + BOOST_PENALTY L z  s.t.
+    # A c <= miss + BOOST_OVERSHOOT accuracy,  miss - A c <= s,  A c - miss <= o,  c_j <= z,  all >= 0
+    Z, I = np.zeros, np.eye(L)
+    cost = np.concatenate([Z(J), np.ones(2 * L), [BOOST_PENALTY * L]])
+    A_ub = np.block([[A, Z((L, 2 * L + 1))],
+                     [-A, -I, Z((L, L + 1))],
+                     [A, Z((L, L)), -I, Z((L, 1))],
+                     [np.eye(J), Z((J, 2 * L)), -np.ones((J, 1))]])
+    b_ub = np.concatenate([miss + BOOST_OVERSHOOT * accuracy, -miss, miss, Z(J)])
+    res = linprog(cost, A_ub=A_ub, b_ub=b_ub, bounds=(0, None), method="highs")
+    c = np.maximum(res.x[:J], 0.0) if res.status == 0 else np.zeros(J)
+    keep = c > 0
+    profile = CutProfile(K, centres[keep], h, c[keep])
+    kept = taper.copy()
+    kept[ell] += B[ell] @ c
+    return profile, kept
+
+
+def cut_profile(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb",
+                accuracy: float = CL_ACCURACY, volume: float | None = None):
+    """(profile, kept C_l): the radial weight of a flat sky's lattice modes up to the cut K and
+    the expected C_l it gives (microK^2, l = 0..lmax).
+
+    The taper alone leaves out C_l - C_l(K) (:func:`kept_cl`). Bumps below the cut
+    (:class:`~topology.skies.flat_modes.CutProfile`, over the top BOOST_SPAN of [0, K]) raise the
+    weight of the modes there so that they carry that power: c_j >= 0 from the linear programme
+
+        minimise sum_l |m_l - sum_j c_j A_lj| + p L max_j c_j   s.t.   sum_j c_j A_lj <= m_l + e accuracy
+
+    A_lj the power of bump j at multipole l and m_l the power left out, both relative to the
+    isotropic C_l (l = 2..lmax, L of them). The cost on the largest c_j (p = BOOST_PENALTY)
+    spreads the boost over the bumps: without it the programme's vertex solutions put it in a few
+    (w^2 up to 17 at K = 1.5 lmax), with it w^2 <= 2.5 for a shortfall larger by < 0.005.
+    The sky then has the isotropic C_l to within e accuracy above (e = BOOST_OVERSHOOT) and a
+    shortfall below,
+    which the isotropic complement makes up (:func:`complement_cl`). Bumps only where the lattice
+    of a torus of ``volume`` (chi_rec^3; None: the continuum) is dense (:func:`dense_from`): the
+    weights act on lattice modes, and C_l of a sparse shell is not its continuum integral (a cube
+    of side 0.4 chi_rec has no mode below k chi_rec = 15.7, so a boost there would claim power its
+    sky lacks); without dense shells the profile is the taper alone. Every mode is a mode of the
+    space, so the matched-circle correlations of the power that a bare cut loses are kept; a
+    mode of k chi_rec >> l adds about the same power to every l < k chi_rec (j_l(x)^2 averages
+    1 / (2 x^2)), as the modes beyond the cut do, and the bumps just below K fill l near lmax.
+    The shortfall vanishes once K is a little above lmax (:func:`lattice_cut`)."""
+    vol = None if volume is None else round(float(volume), 12)
+    return _profile_cached(cosmology, int(lmax), float(kchi), _terms(terms), str(source), float(accuracy), vol)
+
+
+def lattice_cut(cosmology, lmax: int, terms=SW, source: str = "camb", share: float = LATTICE_SHARE,
+                k_limit: float | None = None, volume: float | None = None) -> float:
+    """The smallest cut K (k chi_rec, in steps of lmax / 20 from lmax) whose boosted lattice
+    (:func:`cut_profile`) leaves at most ``share`` of C_l to the isotropic complement at every
+    l <= lmax; ``k_limit`` (default 2 lmax) when none below it does."""
+    lmax = max(int(lmax), 2)
+    top = float(k_limit) if k_limit is not None else 2.0 * lmax
+    step = max(1.0, lmax / 20.0)
+    K = float(lmax)
+    while K < top:
+        if float(np.max(complement_share(cosmology, lmax, K, terms, source, volume=volume))) <= share:
+            return K
+        K += step
+    return top
+
+
+def complement_share(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb",
+                     accuracy: float = CL_ACCURACY, volume: float | None = None) -> np.ndarray:
+    """(C_l - kept C_l) / C_l, l = 2..lmax, clipped at 0: the share of each multipole the
+    isotropic complement carries with the boosted cut of :func:`cut_profile`."""
+    terms = _terms(terms)
+    iso = isotropic_cl(cosmology, int(lmax), terms)[2:]
+    kept = cut_profile(cosmology, lmax, kchi, terms, source, accuracy, volume)[1][2:]
+    return np.maximum(iso - kept, 0.0) / iso
 
 
 def _integrand(cosmology, ell: int, k_lo: float, k_hi: float, terms: tuple):

@@ -105,12 +105,13 @@ def eigenmode_work(space, lmax: int, kchi_max: float) -> float:
 
 
 def eigenmode_alm(space, cosmology, seed: int, kchi_max: float, lmax: int, x_obs: np.ndarray, frame: np.ndarray,
-                  transfer: bool = False):
+                  transfer: bool = False, profile=None):
     """(a_lm, number of modes): the sky of the compact flat ``space`` seen from ``x_obs`` (chi_rec)
     with sky axes ``frame`` (columns, space coordinates), healpy order, l <= lmax, microK.
 
     The modes 0 < |k| chi_rec <= kchi_max of :func:`invariant_coefficients` (seed ``seed``),
-    weighted by :func:`~topology.skies.flat_modes.cut_weight`; the
+    weighted by ``profile`` (a :class:`~topology.skies.flat_modes.CutProfile`; default the taper
+    :func:`~topology.skies.flat_modes.cut_weight`); the
     number of modes counts both q and -q. ``transfer``: CAMB's line-of-sight transfer instead of
     j_l (the terms sw, doppler, isw; see the module doc). InputError when the work exceeds
     MAX_EIGEN_WORK.
@@ -120,7 +121,8 @@ def eigenmode_alm(space, cosmology, seed: int, kchi_max: float, lmax: int, x_obs
         raise InputError(f"the eigenmode method would need {work:.2e} mode x a_lm products (limit "
                          f"{MAX_EIGEN_WORK:.0e}); lower lmax or use method = \"grid\"", "[sky] lmax")
     n, k, c = invariant_coefficients(space, cosmology, seed, kchi_max)
-    c = c * cut_weight(np.linalg.norm(k, axis=1), kchi_max)
+    kn = np.linalg.norm(k, axis=1)
+    c = c * (cut_weight(kn, kchi_max) if profile is None else profile.weight(kn))
     coef = c * np.exp(1j * (k @ x_obs))      # e^{i q.(x_obs + r n)}
     k_sky = k @ frame                         # (F^T q) components in the sky frame
     radial = None

@@ -42,8 +42,8 @@ from scipy import ndimage
 
 from ..errors import InputError
 from .flat_modes import (
-    BLOCK, block_gaussians, cut_weight, hermitian_plane, index_blocks, index_bounds, invariant_coefficients,
-    sw_sigma_constant, taper_width, thread_count,
+    BLOCK, CutProfile, block_gaussians, hermitian_plane, index_blocks, index_bounds, invariant_coefficients,
+    plain_profile, sw_sigma_constant, thread_count,
 )
 from .spectra import N_S
 
@@ -99,12 +99,24 @@ def _integer_form(G: np.ndarray, m, max_table: int = 1 << 22):
     return None
 
 
+def _radial_weight(weight, kchi_max: float):
+    """(w(|k|) callable, edge below which w = 1) of a grid's ``weight``: None -> the taper of the
+    cut; a :class:`~topology.skies.flat_modes.CutProfile` -> its weight and edge; a callable
+    (one shell of the transfer) -> itself, edge 0."""
+    if weight is None:
+        weight = plain_profile(kchi_max)
+    if isinstance(weight, CutProfile):
+        return weight.weight, weight.edge
+    return weight, 0.0
+
+
 def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, workers: int | None = None,
                          order: int = 3, weight=None) -> np.ndarray:
     """Half spectrum (complex64 (N1, N2, N3//2 + 1), index n mod N) of the torus E1 for the grid:
-    -sigma(k) w(k) z_n / B^(n) with B^ the B-spline transform and w the taper of
-    :func:`~topology.skies.flat_modes.cut_weight` (or ``weight(|k|)``, k chi_rec, when given: a
-    shell of the transfer, its taper included), zero outside 0 < |k| <= kchi_max (the ball of
+    -sigma(k) w(k) z_n / B^(n) with B^ the B-spline transform and w the radial weight of
+    ``weight`` (None: the taper of :func:`~topology.skies.flat_modes.cut_weight`; a
+    :class:`~topology.skies.flat_modes.CutProfile`; or a callable w(|k|), k chi_rec: a shell of
+    the transfer, its profile included), zero outside 0 < |k| <= kchi_max (the ball of
     :func:`~topology.skies.flat_modes.half_ball_modes`).
 
     Block by block: each block's normals (:func:`~topology.skies.flat_modes.block_gaussians`,
@@ -129,10 +141,8 @@ def dense_torus_spectrum(space, cosmology, seed: int, kchi_max: float, shape, wo
     dec = [_bspline_deconv(idx[0], N1, order), _bspline_deconv(idx[1], N2, order),
            _bspline_deconv(idx[2], N3, order)]
     lim = kchi_max**2 * (1 + 1e-12)
-    edge2 = 0.0 if weight is not None else (kchi_max - taper_width(kchi_max)) ** 2
-
-    def radial_weight(k):
-        return cut_weight(k, kchi_max) if weight is None else weight(k)
+    radial_weight, edge = _radial_weight(weight, kchi_max)
+    edge2 = edge * edge
 
     power = (N_S - 4.0) / 4.0
     form = _integer_form(G, m)
@@ -210,7 +220,7 @@ def mode_list_spectrum(space, cosmology, seed: int, kchi_max: float, shape, work
     spec = np.zeros((N1, N2, N3 // 2 + 1), dtype=np.complex64)
     n, k, c = invariant_coefficients(space, cosmology, seed, kchi_max, workers)
     kn = np.linalg.norm(k, axis=1)
-    c = c * (cut_weight(kn, kchi_max) if weight is None else weight(kn))
+    c = c * _radial_weight(weight, kchi_max)[0](kn)
     c = c * (_bspline_deconv(n[:, 0], N1, order) * _bspline_deconv(n[:, 1], N2, order)
              * _bspline_deconv(n[:, 2], N3, order))
     spec[n[:, 0] % N1, n[:, 1] % N2, n[:, 2]] = c
@@ -309,10 +319,12 @@ def sample_grid_coords(grid: np.ndarray, coords: np.ndarray, workers: int | None
 
 
 def grid_map(space, cosmology, seed: int, kchi_max: float, x_obs: np.ndarray, frame: np.ndarray, nside: int,
-             oversample: float = 1.2, workers: int | None = None, order: int = 3, shells=None, lmax: int | None = None):
+             oversample: float = 1.2, workers: int | None = None, order: int = 3, shells=None, lmax: int | None = None,
+             profile=None):
     """(RING map float64, grid shape): the sky of the compact flat ``space`` seen from ``x_obs``
     (chi_rec) with sky axes ``frame`` (columns, space coordinates), sampled at the pixel centres
-    of ``nside`` (no pixel window), microK; the grid of :func:`torus_grid`.
+    of ``nside`` (no pixel window), microK; the grid of :func:`torus_grid`, the modes weighted by
+    ``profile`` (a :class:`~topology.skies.flat_modes.CutProfile`; default the taper of the cut).
 
     ``shells`` None: the SW term, one field on the sphere of radius chi_rec. Else a
     :class:`~topology.skies.transfer_shells.ShellTransfer`: the sky is sum_s F_s(x_obs + r_s n),
@@ -321,13 +333,15 @@ def grid_map(space, cosmology, seed: int, kchi_max: float, x_obs: np.ndarray, fr
     """
     import healpy as hp
 
+    if profile is None:
+        profile = plain_profile(kchi_max)
     if shells is None:
-        return _sample_sphere(torus_grid(space, cosmology, seed, kchi_max, oversample, workers, order),
+        return _sample_sphere(torus_grid(space, cosmology, seed, kchi_max, oversample, workers, order, profile),
                               space, x_obs, frame, nside, workers, order)
     sky, shape = None, None
     for s, r in enumerate(shells.radii[:shells.n_near]):
         def weight(k, s=s):
-            return cut_weight(k, kchi_max) * shells.weights(k)[:, s]
+            return profile.weight(k) * shells.weights(k)[:, s]
 
         grid = torus_grid(space, cosmology, seed, kchi_max, oversample, workers, order, weight)
         part, shape = _sample_sphere(grid, space, x_obs, frame * r, nside, workers, order)
@@ -336,7 +350,7 @@ def grid_map(space, cosmology, seed: int, kchi_max: float, x_obs: np.ndarray, fr
     late = None
     for s in range(shells.n_near, len(shells.radii)):
         def weight(k, s=s):
-            return cut_weight(k, kchi_max) * shells.weights(np.minimum(k, k_late))[:, s]
+            return profile.weight(k) * shells.weights(np.minimum(k, k_late))[:, s]
 
         grid = torus_grid(space, cosmology, seed, k_late, oversample, workers, order, weight)
         part, _ = _sample_sphere(grid, space, x_obs, frame * shells.radii[s], NSIDE_LATE, workers, order)

@@ -273,6 +273,71 @@ def cut_weight(k_chi, kchi_max: float) -> np.ndarray:
     return np.sin(0.5 * np.pi * t) ** 2
 
 
+class CutProfile:
+    """The radial weight w(k) of a flat sky's lattice modes (k in units of 1/chi_rec):
+
+        w(k)^2 = t(k)^2 + sum_j c_j b_j(k),   b_j(k) = cos^2(pi/2 (k - k_j) / h) on |k - k_j| < h,
+
+    t the taper of :func:`cut_weight` (1 below K - D, 0 at the cut K) and b_j the "boost" bumps
+    (centres k_j <= K - h, half-width h, c_j >= 0) that let modes below the cut carry the power of
+    the modes beyond it (:func:`topology.skies.flat_cut.cut_profile` chooses c_j). Without bumps
+    w = t. w = 1 below :attr:`edge`, 0 beyond K; between, from a table of w on a grid of step
+    STEP (linear interpolation, error < 1e-5; the taper alone is evaluated exactly).
+    """
+
+    STEP = 1.0 / 64.0
+
+    def __init__(self, kchi_max: float, centres=(), half_width: float = 1.0, coeffs=()):
+        self.kchi_max = float(kchi_max)
+        self.centres = tuple(float(c) for c in centres)
+        self.half_width = float(half_width)
+        self.coeffs = tuple(float(c) for c in coeffs)
+        if len(self.centres) != len(self.coeffs):
+            raise ValueError("one coefficient per bump")
+        K = self.kchi_max
+        lo = K - taper_width(K)
+        if self.coeffs:
+            lo = min(lo, min(self.centres) - self.half_width)
+        self.edge = max(lo, 0.0)
+        n = max(2, int(math.ceil((K - self.edge) / self.STEP)) + 1)
+        self._k = np.linspace(self.edge, K, n)
+        self._w = np.sqrt(cut_weight(self._k, K) ** 2 + self.boost(self._k))
+
+    def boost(self, k) -> np.ndarray:
+        """sum_j c_j b_j(k)."""
+        k = np.asarray(k, dtype=float)
+        out = np.zeros_like(k)
+        h = self.half_width
+        for c, kj in zip(self.coeffs, self.centres):
+            u = (k - kj) / h
+            out += c * np.where(np.abs(u) < 1.0, np.cos(0.5 * np.pi * u) ** 2, 0.0)
+        return out
+
+    def weight(self, k) -> np.ndarray:
+        """w(|k|) (same shape and float kind as ``k``)."""
+        k = np.asarray(k)
+        if not self.coeffs:
+            return cut_weight(k, self.kchi_max)
+        w = np.interp(k, self._k, self._w, left=1.0, right=0.0)
+        return w.astype(k.dtype, copy=False) if np.issubdtype(k.dtype, np.floating) else w
+
+    @property
+    def boosted(self) -> bool:
+        return any(c > 0 for c in self.coeffs)
+
+    def largest_square(self) -> float:
+        """max_k w(k)^2 (1 without bumps)."""
+        return float(max(1.0, np.max(self._w) ** 2))
+
+    def __repr__(self) -> str:
+        return f"CutProfile(K={self.kchi_max:g}, bumps={len(self.coeffs)}, max w^2={self.largest_square():.3f})"
+
+
+def plain_profile(kchi_max: float) -> CutProfile:
+    """The taper alone (no boost)."""
+    return CutProfile(kchi_max)
+
+
 def mode_sigma(k_chi: np.ndarray, cosmology, volume_chi3: float) -> np.ndarray:
     """rms of the SW temperature amplitude per torus mode, microK.
 
