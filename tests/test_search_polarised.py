@@ -118,3 +118,18 @@ def test_missing_convention_refused_by_the_command(sky):
     err = r.stderr.strip()
     assert r.returncode == 2 and r.stdout == "" and "\n" not in err and "Traceback" not in err
     assert "noconv.fits" in err and "no POLCCONV" in err and "--pol-convention" in err
+
+
+def test_run_refuses_a_polarised_field_before_any_output(sky, tmp_path, monkeypatch, capsys):
+    # topology run has no polarised null or injected skies yet: field = "E" is refused in one line
+    # naming the entry, not read as a column called E, and no output folder is made
+    folder, _ = sky
+    cfg = tmp_path / "run.toml"
+    cfg.write_text(f'[[maps]]\nname = "pol"\npath = "{folder / "pol.fits"}"\nfield = "T+E"\n'
+                   '[search]\nradii = "30:50:10"\nnside_work = 8\nfwhm_deg = 8.0\nm_max = 8\n'
+                   '[significance]\nn_null = 9\n[execution]\nengine = "serial"\n')
+    code, out, err = _topology("run", cfg, "--out", tmp_path / "out", cwd=tmp_path, monkeypatch=monkeypatch,
+                               capsys=capsys)
+    err = err.strip()
+    assert code == 2 and "\n" not in err and "[[maps]] #1 field" in err and "not in topology run yet" in err
+    assert not (tmp_path / "out").exists()

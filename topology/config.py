@@ -168,7 +168,8 @@ SCHEMA.update({
     "maps": {
         "name": Key((str,), None, "name of the map in the report (letters, digits, - and _)"),
         "path": Key((str,), None, "HEALPix FITS file (path relative to the config); or give an inline sky instead"),
-        "field": Key((int, str), 0, "column of a multi-column map: index or name (default the first, temperature)"),
+        "field": Key((int, str), 0, "column of a multi-column map: index or name (default the first, temperature); "
+                                    "E and T+E are reserved (polarised searches: topology search only for now)"),
         "ordering": Key((str,), None, "RING or NESTED when the FITS header has no ORDERING key"),
         "space": Key((dict,), None, "inline synthetic sky: a [space] table (family and parameters, or isotropic)"),
         "observer": Key((dict,), None, "inline synthetic sky: an [observer] table"),

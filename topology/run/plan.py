@@ -116,6 +116,13 @@ def map_specs(cfg: Config) -> list[MapSpec]:
         has_path, has_inline = "path" in e, "space" in e
         if has_path == has_inline:
             raise InputError("give either path (a FITS map) or an inline sky (space, observer, sky)", where)
+        if isinstance(e.get("field"), str) and e["field"].strip().upper() in ("E", "T+E"):
+            # reserved words of a polarised search (topology.search.polarised): refused rather than read as a
+            # column name, since the run's null skies and injections are temperature only
+            raise InputError(f"field = {e['field']!r} (a polarised search) is not in topology run yet: its null "
+                             f"and injected skies are temperature only, so E / T+E would have no threshold or "
+                             f"alpha_min; search the map with topology search MAP --field {e['field'].strip().upper()}",
+                             f"{where} field")
         if has_path:
             path = resolve_path(cfg.base_dir, e["path"])
             if not Path(path).is_file():
