@@ -65,12 +65,13 @@ def test_text_output_with_noise_and_mask(tmp_path, capsys):
     (("scales = [1.0, 2.0]", 'mask = "galactic"'), "[harmonic] mask"),
     (("scales = [1.0, 2.0]", "nside = 4"), "[harmonic] noise_uk"),
     (("scales = [1.0, 2.0]", "nside = 1"), "[harmonic] lmax"),
-    (('family = "E1"\nlengths = [1.2, 1.2, 1.2]', 'family = "lens"\np = 5\nq = 2'), "[space] family"),
+    (('family = "E1"\nlengths = [1.2, 1.2, 1.2]', 'family = "lens"\np = 5\nq = 2'), "[harmonic] terms"),
 ])
 def test_bad_input_is_one_line_naming_key_and_file(tmp_path, capsys, edit, where):
     cfg = _write(tmp_path, CONFIG.replace(*edit))
     if edit[1].startswith('family = "lens"'):
         cfg.write_text(cfg.read_text().replace("position = [0.1, 0.2, 0.3]", "position = [1.0, 0.0, 0.0, 0.0]")
+                       .replace("lmax = 4", 'lmax = 4\nterms = ["sw", "doppler", "isw"]')   # SW only
                        + "\n[cosmology]\nomega_k = -0.05\n")
     assert main(["harmonic", str(cfg)]) == 2
     err = capsys.readouterr().err.strip().splitlines()

@@ -66,16 +66,24 @@ def _print(out: dict) -> None:
     from ..spaces.registry import describe_space
 
     where = out["pixels"] or "full sky, no noise"
+    spherical = out.get("geometry") == "spherical"
+    modes = (f"S^3 modes k <= {out['kmax']} (Omega_K = {out['omega_k']:g}, chi_rec/R_c = {out['chi']:.4g})"
+             if spherical else f"modes k chi_rec <= {out['kchi_max']:g}")
     print(f"{describe_space(out['family'], out['params'])}: l = 2..{out['lmax']} ({out['n_coefficients']} real a_lm), "
-          f"terms {','.join(out['terms'])}, modes k chi_rec <= {out['kchi_max']:g}; {out['form']} form ({where})")
+          f"terms {','.join(out['terms'])}, {modes}; {out['form']} form ({where})")
     print(f"KL divergence from isotropy: {format_kl(out['kl_nats'])} nats"
           + ("" if out["finite"] else f" (the space's covariance has rank {out['rank']} of {out['n_coefficients']}: "
                                       "it is singular, the isotropic sky almost never looks like it)"))
     if out["rows"]:
-        print(f"{'scale':>8} {'KL (nats)':>12} {'nearest image':>14} {'circles':>8}")
+        if spherical:
+            print("scales multiply the curvature radius R_c (Omega_K / scale^2); nearest image in units of R_c")
+        extra = f" {'Omega_K':>9} {'chi_rec/R_c':>11}" if spherical else ""
+        print(f"{'scale':>8}{extra} {'KL (nats)':>12} {'nearest image':>14} {'circles':>8}")
         for r in out["rows"]:
             near = "-" if r["nearest_image"] is None else f"{r['nearest_image']:.3f}"
-            print(f"{r['scale']:8.3f} {format_kl(r['kl_nats']):>12} {near:>14} {'yes' if r['circles'] else 'no':>8}")
+            extra = f" {r['omega_k']:9.4g} {r['chi']:11.4f}" if spherical else ""
+            print(f"{r['scale']:8.3f}{extra} {format_kl(r['kl_nats']):>12} {near:>14} "
+                  f"{'yes' if r['circles'] else 'no':>8}")
     like = out.get("likelihood")
     if like:
         print(f"\nlikelihood of {like['map']} ({like['pixels']}): ln L(space) - ln L(isotropic), "

@@ -8,7 +8,8 @@ import math
 def kl_figure(summary: dict, path, title: str = "") -> None:
     """Write the divergence of each row of ``summary`` (:func:`topology.harmonic.survey.divergence_rows`)
     against its scale, log scale in nats; infinite divergences as markers at the top, scales
-    with matched circles (nearest image < 2 chi_rec) shaded. PNG or PDF by the suffix of ``path``."""
+    with matched circles (nearest image < 2 chi_rec; spherical: < 2 chi_rec / R_c) shaded. PNG or
+    PDF by the suffix of ``path``."""
     from ..plots import pyplot
 
     plt = pyplot()
@@ -23,14 +24,20 @@ def kl_figure(summary: dict, path, title: str = "") -> None:
     if inf:
         ax.semilogy(inf, [top] * len(inf), "^", color="C3", label="infinite (singular covariance)")
     near = summary.get("nearest_image")
-    if near:   # every length scales with s, so the nearest image is at s * near: circles below s = 2 / near
+    spherical = summary.get("geometry") == "spherical"
+    if spherical:   # the curvature radius scales with s, chi_rec / R_c not exactly as 1/s: the rows' flags
+        ring = [r["scale"] for r in rows if r["circles"]]
+        if ring:
+            ax.axvspan(min(ring), max(ring), color="0.9", zorder=0, label="matched circles exist")
+    elif near:   # every length scales with s, so the nearest image is at s * near: circles below s = 2 / near
         edge = 2.0 / near
         lo = min(r["scale"] for r in rows)
         if edge > lo:
             ax.axvspan(lo, min(edge, max(r["scale"] for r in rows)), color="0.9", zorder=0,
                        label="matched circles exist")
     ax.axhline(1.0, color="0.5", lw=0.8, ls=":")
-    ax.set_xlabel("scale s (lengths and observer position times s)")
+    ax.set_xlabel("scale s (curvature radius times s: Omega_K / s^2)" if spherical
+                  else "scale s (lengths and observer position times s)")
     ax.set_ylabel("KL divergence from isotropy (nats)")
     if math.isfinite(top) and fin:
         ax.set_ylim(top=top * 2.0)

@@ -4,8 +4,12 @@
 work); :func:`divergence_rows` computes D(space || isotropic) for the configured space and for
 each scale s of ``scales``, where the space's lengths and the observer's position are multiplied
 by s (the whole picture scaled: the observer keeps its place in the fundamental domain; the open
-directions of E11-E17 keep the skies' period). Each row also gives the distance from the
-observer to its nearest image (circles exist when it is below 2 chi_rec).
+directions of E11-E17 keep the skies' period). For a spherical space s multiplies the curvature
+radius R_c: Omega_K becomes Omega_K / s^2 (h, omega_b h^2, omega_c h^2 fixed, Omega_Lambda
+taking up the change), the space S^3/Gamma and the observer's place in it unchanged, so the
+last-scattering radius chi_rec / R_c falls about as 1/s. Each row also gives the distance from
+the observer to its nearest image (chi_rec for flat spaces, R_c for spherical ones; circles
+exist when it is below twice the last-scattering radius).
 """
 
 from __future__ import annotations
@@ -103,8 +107,21 @@ def scaled(space_sec: dict, observer, scale: float, cosmology):
     return space, geo.Observer(observer.geometry, point, np.array(observer.frame))
 
 
+def curvature_scaled(cosmology, scale: float):
+    """The background with the curvature radius times ``scale``: Omega_K / scale^2 (InputError
+    naming [harmonic] scales when it has no last-scattering surface)."""
+    try:
+        c = cosmology.with_omega_k(cosmology.omega_k / float(scale) ** 2)
+        c.chi_rec_over_curvature_radius
+    except InputError as e:
+        raise InputError(f"scale {scale:g} (Omega_K = {cosmology.omega_k / float(scale) ** 2:.4g}): {e.reason}",
+                         "[harmonic] scales") from None
+    return c
+
+
 def nearest_image(space, observer) -> float | None:
-    """The distance (chi_rec) from the observer to its nearest image, None beyond NEAREST_REACH."""
+    """The distance from the observer to its nearest image (the space's units: chi_rec flat, R_c
+    curved), None beyond NEAREST_REACH."""
     r = 2.0
     while r <= NEAREST_REACH:
         hol = space.elements_within(observer, r)
@@ -124,10 +141,15 @@ def divergence(space, observer, cosmology, settings: HarmonicSettings, pixels: P
     return pixel_kl(cov.matrix, cov.iso_diagonal, pixels), cov
 
 
-def row(scale: float, d: Divergence, cov, near: float | None) -> dict:
-    return {"scale": float(scale), "kl_nats": d.kl_nats if d.finite else None, "finite": d.finite,
-            "rank": d.rank, "n": d.n, "n_modes": int(cov.n_modes), "nearest_image": near,
-            "circles": bool(near is not None and near < 2.0)}
+def row(scale: float, d: Divergence, cov, near: float | None, cosmology=None) -> dict:
+    """One row of the table; ``cosmology`` (spherical spaces) adds omega_k and chi = chi_rec / R_c."""
+    chi = 1.0 if cosmology is None else float(cosmology.chi_rec_over_curvature_radius)
+    out = {"scale": float(scale), "kl_nats": d.kl_nats if d.finite else None, "finite": d.finite,
+           "rank": d.rank, "n": d.n, "n_modes": int(cov.n_modes), "nearest_image": near,
+           "circles": bool(near is not None and near < 2.0 * chi)}
+    if cosmology is not None:
+        out.update(omega_k=float(cosmology.omega_k), chi=chi, kmax=int(cov.meta["kmax"]))
+    return out
 
 
 def divergence_rows(cfg, settings: HarmonicSettings | None = None, progress=None, keep: list | None = None) -> dict:
@@ -139,22 +161,35 @@ def divergence_rows(cfg, settings: HarmonicSettings | None = None, progress=None
 
     s = settings_from_config(cfg) if settings is None else settings
     sc = scenario_from_config(cfg)
-    if sc.space.geometry != "flat":
-        raise InputError(f"the harmonic covariance is available for flat spaces only so far, not "
+    spherical = sc.space.geometry == "spherical"
+    if sc.space.geometry not in ("flat", "spherical"):
+        raise InputError(f"the harmonic covariance is available for flat and spherical spaces, not "
                          f"{sc.space.geometry} (family {sc.space.family})", "[space] family")
+    backgrounds = [curvature_scaled(sc.cosmology, v) for v in s.scales or ()] if spherical else None
+    if spherical:                                   # every scale's cost and cut checked before any work
+        from .spherical import check_spherical, check_work, degree_cut
+
+        for c in [sc.cosmology] + backgrounds:
+            chi = check_spherical(sc.space, sc.observer, c, s.terms)
+            check_work(sc.space, s.lmax, degree_cut(s.lmax, chi, s.kchi_max))
     px = s.pixels()
     d, cov = divergence(sc.space, sc.observer, sc.cosmology, s, px)
-    out = {"family": sc.space.family, "params": dict(sc.space.params), "lmax": s.lmax,
-           "n_coefficients": cov.n, "kchi_max": cov.kchi_max, "terms": list(s.terms),
+    out = {"family": sc.space.family, "params": dict(sc.space.params), "geometry": sc.space.geometry,
+           "lmax": s.lmax, "n_coefficients": cov.n, "kchi_max": cov.kchi_max, "terms": list(s.terms),
            "form": d.form, "pixels": px.description if px is not None else None,
            "kl_nats": d.kl_nats if d.finite else None, "finite": d.finite, "rank": d.rank,
            "nearest_image": nearest_image(sc.space, sc.observer), "rows": []}
+    if spherical:
+        out.update(omega_k=float(sc.cosmology.omega_k), chi=float(cov.meta["chi"]), kmax=int(cov.meta["kmax"]))
     if s.scales:
         space_sec = cfg.section("space")
         for i, scale in enumerate(s.scales):
-            sp, obs = scaled(space_sec, sc.observer, scale, sc.cosmology)
-            di, ci = divergence(sp, obs, sc.cosmology, s, px)
-            out["rows"].append(row(scale, di, ci, nearest_image(sp, obs)))
+            if spherical:
+                sp, obs, cosmo = sc.space, sc.observer, backgrounds[i]
+            else:
+                (sp, obs), cosmo = scaled(space_sec, sc.observer, scale, sc.cosmology), sc.cosmology
+            di, ci = divergence(sp, obs, cosmo, s, px)
+            out["rows"].append(row(scale, di, ci, nearest_image(sp, obs), cosmo if spherical else None))
             if keep is not None:
                 keep.append(ci)
             raise_if_stopped()

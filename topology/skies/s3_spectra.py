@@ -77,6 +77,20 @@ def s3_sachs_wolfe_cl(cosmology, lmax: int, kmax: int, weights: np.ndarray | Non
     return _partial_spectra(cosmology, lmax, kmax, [u])[0]
 
 
+def _richardson(c_2k: np.ndarray, c_4k: np.ndarray) -> np.ndarray:
+    """C(inf) = C(4K) + (C(4K) - C(2K)) / 3: the truncation error ~ 1/K^2 extrapolated away."""
+    return c_4k + (c_4k - c_2k) / 3.0
+
+
+def converged_sachs_wolfe_cl(cosmology, lmax: int, kmax: int) -> np.ndarray:
+    """SW C_l (microK^2) of the simply connected S^3 with all degrees: Richardson extrapolation of
+    the spectra truncated at 2 kmax and 4 kmax (the target of :func:`tail_weights`)."""
+    top = 4 * kmax
+    k = np.arange(top + 1)
+    c_2k, c_4k = _partial_spectra(cosmology, lmax, top, [k <= 2 * kmax, np.ones(top + 1)])
+    return _richardson(c_2k, c_4k)
+
+
 def tail_weights(cosmology, lmax: int, kmax: int) -> tuple[np.ndarray, dict]:
     """w_k = 1 + A (k / kmax)^4, k = 0..kmax, and {"A", "cl_error"} (module docstring).
 
@@ -90,7 +104,7 @@ def tail_weights(cosmology, lmax: int, kmax: int) -> tuple[np.ndarray, dict]:
     ramp = np.where(k <= kmax, (k / kmax) ** 4, 0.0)
     c_k, c_2k, c_4k, c_ramp = _partial_spectra(cosmology, lmax, top,
                                                [k <= kmax, k <= 2 * kmax, np.ones(top + 1), ramp])
-    full = c_4k + (c_4k - c_2k) / 3.0
+    full = _richardson(c_2k, c_4k)
     ell = np.arange(2, lmax + 1)
     rel_k, rel_r = (full[ell] - c_k[ell]) / full[ell], c_ramp[ell] / full[ell]
     a = float(rel_k @ rel_r / (rel_r @ rel_r)) if lmax >= 2 else 0.0

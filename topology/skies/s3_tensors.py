@@ -197,6 +197,21 @@ def band_lowrank(left: np.ndarray, right: np.ndarray, lmax: int) -> np.ndarray:
     return out
 
 
+def shell_phases(k: int, chi: float) -> np.ndarray:
+    """The diagonal of Lambda = D^k(e^{i chi}) in the standard order: e^{-2 i (k/2 - a) chi}, a = 0..k."""
+    return np.exp(-2j * (k / 2.0 - np.arange(k + 1)) * chi)
+
+
+def multipole_factors(k: int, lam: np.ndarray) -> np.ndarray:
+    """f[l, q] = lambda_l (2l+1)/(k+1) sqrt(4 pi/(2l+1)) (-1)^q (l, q = 0..len(lam) - 1), with
+    lambda_l = <T^l_0, Lambda> = sum_a t_l[0, a] Lambda_a: the common factor of a_{l,+-q} of a
+    degree-k field (module docstring; :meth:`SphereAlm.add`)."""
+    ell = np.arange(len(lam))[:, None]
+    q = np.arange(len(lam))[None, :]
+    f = lam[:, None] * (2.0 * ell + 1.0) / (k + 1.0) * math.sqrt(4.0 * math.pi) / np.sqrt(2.0 * ell + 1.0)
+    return f * (-1.0) ** q
+
+
 class SphereAlm:
     """Accumulates a_lm(F), l <= lmax, |m| <= l, of F = sum_k tr(C_k^T D^k(exp(chi u))) in the
     frame (j, k, i) (module docstring). ``add(k, band(C_k))`` per degree; :meth:`real_alm`
@@ -211,7 +226,7 @@ class SphereAlm:
     def add(self, k: int, b: np.ndarray) -> None:
         """Add degree k given its band ``b`` (:func:`band`, at least min(lmax, k) + 1 rows)."""
         top = min(self.lmax, k)
-        ph = np.exp(-2j * (k / 2.0 - np.arange(k + 1)) * self.chi)     # Lambda, standard order
+        ph = shell_phases(k, self.chi)
         sums = np.zeros((top + 1, top + 1, 4))                          # [l, q, part]
         lam = np.zeros(top + 1, dtype=complex)
         for l, t in coupling_rows(k, top):
@@ -219,8 +234,7 @@ class SphereAlm:
             sums[l, :l + 1] = np.matmul(t[:, None, :], b[:l + 1])[:, 0, :]
         ell = np.arange(top + 1)[:, None]
         q = np.arange(top + 1)[None, :]
-        f = lam[:, None] * (2.0 * ell + 1.0) / (k + 1.0) * math.sqrt(4.0 * math.pi) / np.sqrt(2.0 * ell + 1.0)
-        f = f * (-1.0) ** q
+        f = multipole_factors(k, lam)
         self.neg[:top + 1, :top + 1] += f * (1j ** (-q)) * (sums[..., 0] + 1j * sums[..., 1])
         self.pos[:top + 1, :top + 1] += f * (1j ** q) * (-1.0) ** ell * (sums[..., 2] + 1j * sums[..., 3])
 
@@ -231,6 +245,58 @@ class SphereAlm:
         ell, m = Alm.getlm(self.lmax)
         out = self.pos[ell, m] + (-1.0) ** m * np.conj(self.neg[ell, m])
         return scale / math.sqrt(2.0) * out
+
+
+class ColumnAlm:
+    """The a_lm at degree k of single-column coefficient matrices C = u e_b^T (the sparse form of
+    :meth:`SphereAlm.add`, for many such C at once: the harmonic covariance of
+    :mod:`topology.harmonic.spherical`). Only column a = b of C enters the band, so
+
+        a_{l,-q}(F) = f_lq i^-q t_l[q, b] u[b - q]            (b >= q),
+        a_{l,+q}(F) = f_lq i^q (-1)^l t_l[q, k - b] u[b + q]    (b + q <= k),
+
+    F = tr(C^T D^k(exp(chi u))), f = :func:`multipole_factors`, t_l the Clebsch-Gordan rows of
+    :func:`coupling_rows` (all l <= min(lmax, k) kept: (L+1)^2 (k+1) numbers)."""
+
+    def __init__(self, k: int, lmax: int, chi: float):
+        self.k = int(k)
+        self.top = min(int(lmax), self.k)
+        ph = shell_phases(self.k, chi)
+        self.t = np.zeros((self.top + 1, self.top + 1, self.k + 1))         # [l, q, a]
+        lam = np.zeros(self.top + 1, dtype=complex)
+        for l, t in coupling_rows(self.k, self.top):
+            self.t[l, :l + 1] = t
+            lam[l] = t[0] @ ph
+        q = np.arange(self.top + 1)
+        ell = q[:, None]
+        f = multipole_factors(self.k, lam)
+        self.f_neg = f * (1j ** (-q))[None, :]
+        self.f_pos = f * (1j ** q)[None, :] * (-1.0) ** ell
+
+    def real_alm(self, u: np.ndarray, b: np.ndarray, scale: float = 1.0, ell=None, m=None
+                 ) -> tuple[np.ndarray, np.ndarray]:
+        """(A, B), each (P, M) complex: the a_lm (healpy's, m >= 0, as :meth:`SphereAlm.real_alm`) at
+        the P pairs (``ell``, ``m``) (default: every l <= min(lmax, k), m <= l, healpy's order) of
+        scale sqrt(2) Re F_j and of scale sqrt(2) Re (i F_j), F_j the field of C_j = u[:, j] e_{b_j}^T;
+        u (k+1, M), b (M,) integer columns."""
+        if ell is None:
+            from healpy import Alm
+
+            ell, m = Alm.getlm(self.top)
+        ell = np.asarray(ell, dtype=int)[:, None]
+        q = np.asarray(m, dtype=int)[:, None]
+        b = np.asarray(b, dtype=int)[None, :]
+        j = np.arange(b.shape[1])[None, :]
+        lo, hi = b - q, b + q
+        u = np.asarray(u)
+        u_lo = np.where(lo >= 0, u[np.clip(lo, 0, self.k), j], 0.0)                    # [pair, j]
+        u_hi = np.where(hi <= self.k, u[np.clip(hi, 0, self.k), j], 0.0)
+        neg = self.f_neg[ell, q] * self.t[ell, q, b] * u_lo
+        pos = self.f_pos[ell, q] * self.t[ell, q, self.k - b] * u_hi
+        c = np.conj(neg)
+        c *= (-1.0) ** q
+        s = scale / math.sqrt(2.0)
+        return s * (pos + c), (1j * s) * (pos - c)
 
 
 def rotate_alm(alm: np.ndarray, lmax: int, q: np.ndarray) -> np.ndarray:

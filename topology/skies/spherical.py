@@ -193,11 +193,27 @@ def invariant_mode_counts(space, kmax: int) -> np.ndarray:
     return invariant_ranks(space.pairs, kmax)
 
 
-def _amplitudes(order: int, kmax: int, variance) -> np.ndarray:
-    """s_k = sqrt(|Gamma| sigma_k^2 (k+1) / (2 pi^2)) for k >= KMIN, else 0."""
+def mode_amplitudes(order: int, kmax: int, variance) -> np.ndarray:
+    """s_k = sqrt(|Gamma| sigma_k^2 (k+1) / (2 pi^2)) for k >= KMIN, else 0 (|Gamma| = ``order``)."""
     k = np.arange(kmax + 1)
     var = np.array([float(variance[i]) if i >= KMIN else 0.0 for i in k])
     return np.sqrt(order * var * (k + 1) / (2.0 * math.pi**2))
+
+
+def degree_variances(cosmology, lmax: int, kmax: int, tail: bool) -> tuple[np.ndarray, dict | None]:
+    """(sigma_k^2 w_k for k = 0..kmax (zero below KMIN), tail information or None): the variance
+    per mode of each degree of a sky to ``lmax`` (:func:`~topology.skies.s3_spectra.mode_variance`),
+    times the tail weights w_k when ``tail`` (:func:`~topology.skies.s3_spectra.tail_weights`,
+    fitted at this lmax and kmax; the w_k in tail["weights"]). The one source of the skies' spectrum and of the harmonic
+    covariance (:mod:`topology.harmonic.spherical`)."""
+    variance = np.zeros(kmax + 1)
+    variance[KMIN:] = mode_variance(np.arange(KMIN, kmax + 1), cosmology.curvature_radius_mpc)
+    tail_info = None
+    if tail:
+        weights, tail_info = tail_weights(cosmology, lmax, kmax)
+        variance *= weights
+        tail_info = {**tail_info, "weights": weights}
+    return variance, tail_info
 
 
 def draw_invariant_field(space, kmax: int, rng: np.random.Generator, variance) -> InvariantField:
@@ -208,14 +224,14 @@ def draw_invariant_field(space, kmax: int, rng: np.random.Generator, variance) -
     extends a field without changing its lower degrees; ``rng`` is advanced past the draws. ``variance`` is a sequence indexed by k (sigma_k^2, read
     for k >= KMIN).
     """
-    field = InvariantField(int(kmax), group_of(space.pairs), _amplitudes(len(space.pairs), kmax, variance),
+    field = InvariantField(int(kmax), group_of(space.pairs), mode_amplitudes(len(space.pairs), kmax, variance),
                            rng.bit_generator.state)
     for _ in field.degrees(rng=rng):     # advance rng past the draws
         pass
     return field
 
 
-def _sky_frame(observer: geo.Observer) -> np.ndarray:
+def sky_frame(observer: geo.Observer) -> np.ndarray:
     """Q (3x3, det +-1) with Q n = the pure quaternion u(n) = conj(x) (frame n) of a direction n
     of the observer's sky, written in the frame (j, k, i) of :mod:`topology.skies.s3_tensors`."""
     x = observer.point
@@ -250,7 +266,7 @@ def _alm_and_counts(field: InvariantField, observer: geo.Observer, chi: float, l
         if s == 0.0 or deg.count == 0:
             continue
         acc.add(k, deg.observed_band(w, x0, delta, band_l, s))
-    small = rotate_alm(acc.real_alm(field.scale), band_l, _sky_frame(observer))
+    small = rotate_alm(acc.real_alm(field.scale), band_l, sky_frame(observer))
     from healpy import Alm
 
     alm = np.zeros(Alm.getsize(lmax), dtype=complex)
@@ -312,15 +328,9 @@ def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside:
                              f"give kmax <= {KMAX_LIMIT} (the sky is then complete to l ~ kmax chi / 2 = "
                              f"{int(KMAX_LIMIT * chi / 2)}) or lower lmax", "[sky] kmax")
     kmax = _check_int(kmax, "[sky] kmax", KMIN, KMAX_LIMIT)
-    rc = cosmology.curvature_radius_mpc
-    variance = np.zeros(kmax + 1)
-    variance[KMIN:] = mode_variance(np.arange(KMIN, kmax + 1), rc)
-    tail_info = None
-    if tail:
-        weights, tail_info = tail_weights(cosmology, lmax, kmax)
-        variance *= weights
+    variance, tail_info = degree_variances(cosmology, lmax, kmax, tail)
     t_uk = cosmology.t_cmb * 1e6
-    field = InvariantField(int(kmax), group_of(space.pairs), _amplitudes(len(space.pairs), kmax, variance),
+    field = InvariantField(int(kmax), group_of(space.pairs), mode_amplitudes(len(space.pairs), kmax, variance),
                            stream_rng(seed, "signal").bit_generator.state, scale=-t_uk / 5.0)
     alm, counts = _alm_and_counts(field, observer, chi, lmax)
     field = replace(field, counts=counts)
@@ -334,5 +344,6 @@ def spherical_sky(space, observer: geo.Observer, cosmology, *, lmax: int, nside:
 
 
 __all__ = ["spherical_sky", "invariant_mode_counts", "mode_variance", "draw_invariant_field", "field_alm",
+           "degree_variances", "mode_amplitudes", "sky_frame",
            "field_alm_by_grid", "InvariantField", "s3_sachs_wolfe_cl", "tail_weights", "zonal_s3", "KMAX_LIMIT",
            "KMIN"]
