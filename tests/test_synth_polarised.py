@@ -62,6 +62,9 @@ def test_iqu_columns_convention_and_temperature(tmp_path, capsys):
 
 @pytest.mark.parametrize("text,match", [
     (POL.replace('family = "isotropic"', 'family = "E1"\nlengths = [1.0, 1.0, 1.0]') + "polarisation = true\n",
+     "polarised flat skies need camb"),
+    ("[cosmology]\nomega_k = -0.02\n" + POL.replace('family = "isotropic"', 'family = "lens"\np = 8\nq = 3\n')
+     + "polarisation = true\n",
      "not implemented yet"),
     (POL.replace('terms = ["sw", "doppler", "isw"]', "") + "polarisation = true\n", "terms"),
     (POL + 'polarisation = true\nqu_convention = "cosmo"\n', "'healpix' or 'iau'"),

@@ -129,8 +129,9 @@ def _run(args, cfg):
     from ..spaces.registry import describe_space
 
     polar = bool(cfg.get("sky", "polarisation"))
-    if polar:  # I, Q, U: isotropic skies only (skies.polarised)
-        from ..skies.polarised import synthesize_polarised, write_iqu_fits
+    if polar:  # I, Q, U: isotropic and flat skies (skies.polarised, skies.flat_polarised)
+        from ..skies import synthesize_polarised
+        from ..skies.polarised import write_iqu_fits
 
         res = synthesize_polarised(cfg)
         write = lambda tmp: write_iqu_fits(tmp, res.map, res.header, dtype=args.dtype)  # noqa: E731

@@ -7,7 +7,10 @@ over configs:
 * :func:`sky_params` - the validated ``[sky]`` section with every default filled in;
 * :func:`sky_from_config` - the Sky of a config and its Scenario (None for isotropic skies);
 * :func:`synthesize` - the observed map, its mask, the Sky, the predicted pairs and the FITS
-  header cards (:class:`SynthResult`).
+  header cards (:class:`SynthResult`);
+* :func:`synthesize_polarised` - the same for ``[sky] polarisation = true``: I, Q, U of an
+  isotropic sky (:mod:`topology.skies.polarised`) or a flat space
+  (:mod:`topology.skies.flat_polarised`).
 
 ``[space] family = "isotropic"`` gives an isotropic sky and takes no other ``[space]`` key.
 Method "auto": flat spaces use the eigenmode sum for lmax <= AUTO_EIGENMODE_LMAX and the grid
@@ -30,7 +33,7 @@ from ..errors import InputError
 from .base import TERMS, Sky
 
 __all__ = ["Sky", "TERMS", "SynthResult", "sky_params", "sky_from_config", "synthesize",
-           "AUTO_EIGENMODE_LMAX", "default_kmax", "SKY_TERMS", "check_sky_terms"]
+           "AUTO_EIGENMODE_LMAX", "default_kmax", "SKY_TERMS", "check_sky_terms", "synthesize_polarised"]
 
 #: the sets of temperature terms each kind of sky makes (every set with "sw"): isotropic skies
 #: (analytic SW, or CAMB's unlensed TT / the shipped table), flat skies (analytic SW, or CAMB's
@@ -194,4 +197,61 @@ def synthesize(cfg, *, hits=None) -> SynthResult:
     pairs = predict_circles(sc.space, sc.observer, sc.chi) if sc is not None else []
     res = SynthResult(map=m, mask=mask, sky=sky, pairs=pairs, scenario=sc, params=p)
     res.header = header_cards(cfg, res)
+    return res
+
+
+def synthesize_polarised(cfg):
+    """The observed I, Q, U sky of a config with ``[sky] polarisation = true``: a SynthResult
+    (topology.skies) whose ``map`` is (3, 12 nside^2) in microK, in the configured Q/U
+    convention, with the FITS header cards (POLCCONV and the polarisation noise added).
+    Isotropic skies and flat spaces E1-E17 (:func:`topology.skies.flat_polarised.flat_polarised_sky`,
+    the eigenmode sum; needs camb); every key and the hit-count file are checked before any sky
+    is made."""
+    from ..scenario import cosmology_from_config
+    from .instrument import galactic_mask
+    from .io import header_cards
+    from .polarised import CONVENTIONS, observe_polarised, polarised_cl, polarised_sky
+
+    family = cfg.get("space", "family")
+    p = sky_params(cfg)
+    sc = None
+    if family == "isotropic":
+        extra = sorted(k for k in cfg.section("space") if k != "family")
+        if extra:
+            raise InputError(f"the isotropic sky takes no [space] parameters, got {', '.join(extra)}",
+                             f"[space] {extra[0]}")
+        cosmo = cosmology_from_config(cfg)
+        polarised_cl(cosmo, p["lmax"], p["terms"])          # terms, camb or table: before any work
+    else:
+        from ..scenario import scenario_from_config
+
+        sc = scenario_from_config(cfg)
+        if sc.space.geometry != "flat":
+            raise InputError(f"polarised skies of {sc.space.geometry} spaces are not implemented yet (family "
+                             f"{family!r}); isotropic and flat (E1-E17) skies make I, Q, U", "[sky] polarisation")
+        cosmo = sc.cosmology
+    hits = read_hits(cfg, p["nside"])
+    conv = cfg.get("sky", "qu_convention")
+    noise_pol = cfg.get("sky", "noise_pol_uk")
+    mask = galactic_mask(p["nside"], float(p["mask_b_deg"])) if p["mask"] == "galactic" else None
+    pairs = []
+    if sc is None:
+        sky = polarised_sky(cosmo, lmax=p["lmax"], terms=p["terms"], seed=p["seed"])
+    else:
+        from ..circles import predict_circles
+        from .flat_polarised import flat_polarised_sky
+
+        sky = flat_polarised_sky(sc.space, sc.observer, cosmo, lmax=p["lmax"], nside=p["nside"], seed=p["seed"],
+                                 terms=p["terms"], method=p["method"])
+        pairs = predict_circles(sc.space, sc.observer, sc.chi)
+    m = observe_polarised(sky, nside=p["nside"], lmax=p["lmax"], fwhm_deg=p["fwhm_deg"], noise_uk=p["noise_uk"],
+                          noise_pol_uk=noise_pol, hits=hits, pixwin=bool(p["pixwin"]), seed=p["seed"],
+                          mask=mask if p["apply_mask"] else None, convention=conv)
+    res = SynthResult(map=m, mask=mask, sky=sky, pairs=pairs, scenario=sc, params=p)
+    sigma_p = math.sqrt(2.0) * p["noise_uk"] if noise_pol is None else float(noise_pol)
+    res.header = header_cards(cfg, res) + [
+        ("POLAR", True, "I, Q, U columns"),
+        ("POLCCONV", CONVENTIONS[conv], "Q/U convention: COSMO (HEALPix) or IAU"),
+        ("NOISEPUK", sigma_p, "white noise rms per pixel on Q and U (uK)"),
+    ]
     return res

@@ -1,4 +1,5 @@
-"""Isotropic polarised skies: T, Q, U from the TT, EE and TE spectra, and their observation.
+"""Isotropic polarised skies: T, Q, U from the TT, EE and TE spectra, and their observation
+(which also observes the polarised skies of flat spaces, :mod:`topology.skies.flat_polarised`).
 
 Spectra (C_l in microK^2, thermodynamic, l = 0..lmax, C_0 = C_1 = 0): CAMB's unlensed scalar
 TT, EE and TE for the configured cosmology (the same run settings as
@@ -40,11 +41,11 @@ POL_TABLE_NAME = "camb_unlensed_ee_te.txt"
 #: Q/U conventions: HEALPix ("COSMO" in the FITS key POLCCONV) and IAU (U of opposite sign)
 CONVENTIONS = {"healpix": "COSMO", "iau": "IAU"}
 #: SeedSequence children of a seed used here, far from the streams of skies.base (0, 1, 2...)
-POL_STREAMS = {"e_signal": 16, "pol_noise": 17}
+POL_STREAMS = {"e_signal": 16, "pol_noise": 17, "e_tail": 18}
 
 
 def pol_rng(seed, stream: str) -> np.random.Generator:
-    """The Generator of one polarisation stream ("e_signal", "pol_noise") of ``seed``
+    """The Generator of one polarisation stream ("e_signal", "pol_noise", "e_tail") of ``seed``
     (a distinct SeedSequence child, as :func:`topology.skies.base.stream_rng`)."""
     index = POL_STREAMS[stream]
     return np.random.default_rng(np.random.SeedSequence(int(seed)).spawn(index + 1)[index])
@@ -157,7 +158,7 @@ def observe_polarised(sky: Sky, *, nside: int, fwhm_deg: float = 0.0, noise_uk: 
     if convention not in CONVENTIONS:
         raise InputError(f"must be 'healpix' or 'iau', got {convention!r}", "[sky] qu_convention")
     if "alm_e" not in sky.meta:
-        raise InputError("this sky has no polarisation (only isotropic polarised skies have E modes yet)",
+        raise InputError("this sky has no polarisation (isotropic and flat polarised skies have E modes)",
                          "[sky] polarisation")
     sigma_p = math.sqrt(2.0) * float(noise_uk) if noise_pol_uk is None else noise_pol_uk
     if isinstance(sigma_p, bool) or not isinstance(sigma_p, (int, float, np.integer, np.floating)) \
@@ -198,44 +199,6 @@ def observe_polarised(sky: Sky, *, nside: int, fwhm_deg: float = 0.0, noise_uk: 
     q[unseen] = hp.UNSEEN
     u[unseen] = hp.UNSEEN
     return np.stack([i_map, q, u])
-
-
-def synthesize_polarised(cfg):
-    """The observed I, Q, U sky of a config with ``[sky] polarisation = true``: a SynthResult
-    (topology.skies) whose ``map`` is (3, 12 nside^2) in microK, in the configured Q/U
-    convention, with the FITS header cards (POLCCONV and the polarisation noise added).
-    Isotropic skies only; every key and the hit-count file are checked before any sky is made."""
-    from ..scenario import cosmology_from_config
-    from . import SynthResult, read_hits, sky_params
-    from .instrument import galactic_mask
-    from .io import header_cards
-
-    family = cfg.get("space", "family")
-    if family != "isotropic":
-        raise InputError(f"polarised skies of multiply connected spaces are not implemented yet (family {family!r}); "
-                         "only [space] family = \"isotropic\" makes I, Q, U", "[sky] polarisation")
-    extra = sorted(k for k in cfg.section("space") if k != "family")
-    if extra:
-        raise InputError(f"the isotropic sky takes no [space] parameters, got {', '.join(extra)}", f"[space] {extra[0]}")
-    p = sky_params(cfg)
-    cosmo = cosmology_from_config(cfg)
-    polarised_cl(cosmo, p["lmax"], p["terms"])          # terms, camb or table: before any work
-    hits = read_hits(cfg, p["nside"])
-    conv = cfg.get("sky", "qu_convention")
-    noise_pol = cfg.get("sky", "noise_pol_uk")
-    mask = galactic_mask(p["nside"], float(p["mask_b_deg"])) if p["mask"] == "galactic" else None
-    sky = polarised_sky(cosmo, lmax=p["lmax"], terms=p["terms"], seed=p["seed"])
-    m = observe_polarised(sky, nside=p["nside"], lmax=p["lmax"], fwhm_deg=p["fwhm_deg"], noise_uk=p["noise_uk"],
-                          noise_pol_uk=noise_pol, hits=hits, pixwin=bool(p["pixwin"]), seed=p["seed"],
-                          mask=mask if p["apply_mask"] else None, convention=conv)
-    res = SynthResult(map=m, mask=mask, sky=sky, pairs=[], scenario=None, params=p)
-    sigma_p = math.sqrt(2.0) * p["noise_uk"] if noise_pol is None else float(noise_pol)
-    res.header = header_cards(cfg, res) + [
-        ("POLAR", True, "I, Q, U columns"),
-        ("POLCCONV", CONVENTIONS[conv], "Q/U convention: COSMO (HEALPix) or IAU"),
-        ("NOISEPUK", sigma_p, "white noise rms per pixel on Q and U (uK)"),
-    ]
-    return res
 
 
 def write_iqu_fits(path, iqu: np.ndarray, cards: list, *, dtype: str = "float32") -> None:
