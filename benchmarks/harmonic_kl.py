@@ -3,6 +3,7 @@ observer, mask and noise, and what the covariance costs.
 
     python benchmarks/harmonic_kl.py            # about 2-4 minutes on 2 cores
     python benchmarks/harmonic_kl.py --quick    # the size table at lmax 8 only
+    python benchmarks/harmonic_kl.py --spherical   # section 7 only (about a minute)
 
 Prints:
 1. D(space || isotropic) of the cubic torus E1 [L, L, L], the chimney E11 [L, L] and the slab E16
@@ -20,6 +21,12 @@ Prints:
    and for E1 of side 1.2 chi_rec at lmax 8, N_side 8, 5 microK noise and a |b| < 20 deg cut, the
    fraction of isotropic maps that exclude each scale with a coarse and a finer orientation grid
    (the calibration on maps of the space makes both honest; the finer grid has more power).
+7. Spherical spaces (Sachs-Wolfe, against the simply connected S^3 of the same background):
+   L(p, 1) against p at Omega_K = -0.05 (chi_rec / R_c = 0.71), and the dodecahedral space at
+   Omega_K = -0.015 and -0.05 against lmax: the divergence with the isotropic complement beyond the
+   skies' degrees (default), with twice the degrees (convergence), without the complement (exactly
+   the skies' distribution: tail weights; singular when the kept modes span fewer than N
+   directions), the invariant modes and the time of the covariance.
 """
 
 from __future__ import annotations
@@ -140,12 +147,53 @@ def likelihood_table():
         print(f"{name:>22} " + " ".join(f"{f:6.2f}" for f in res.iso_excluded) + f" {time.perf_counter() - t0:6.1f}")
 
 
+def spherical_table(lens_lmax=10, lens_p=(2, 4, 8, 12, 20), dodec_lmax=(10, 16, 20)):
+    centre = geo.Observer.make("spherical", [1.0, 0.0, 0.0, 0.0])
+
+    def one(spec, cosmo, lmax, **kw):
+        t0 = time.perf_counter()
+        cov = space_covariance(build_space(spec), centre, cosmo, lmax=lmax, **kw)
+        t1 = time.perf_counter()
+        d = gaussian_kl(cov.matrix, np.diag(cov.iso_diagonal)).kl_nats
+        return d, cov, t1 - t0
+
+    print("\n7. spherical spaces (SW), KL divergence from S^3 (nats); observer at 1; cov s: covariance time")
+    cosmo = Cosmology(omega_k=-0.05)
+    chi = cosmo.chi_rec_over_curvature_radius
+    print(f"   L(p, 1) at Omega_K = -0.05 (chi_rec/R_c = {chi:.3f}), lmax {lens_lmax}; circles when pi/p < chi")
+    print(f"{'p':>5} {'circles':>8} {'KL':>10} {'KL 2 kmax':>10} {'KL skies':>10} {'kmax':>5} {'modes':>8} "
+          f"{'cov s':>7}")
+    for p in lens_p:
+        spec = {"family": "lens", "p": p, "q": 1}
+        d, cov, t = one(spec, cosmo, lens_lmax)
+        d2 = one(spec, cosmo, lens_lmax, kchi_max=2 * cov.kchi_max)[0]
+        d0 = one(spec, cosmo, lens_lmax, complement=False)[0]
+        print(f"{p:5d} {'yes' if np.pi / p < chi else 'no':>8} {d:10.4g} {d2:10.4g} {d0:10.4g} {cov.meta['kmax']:5d} "
+              f"{cov.n_modes:8d} {t:7.2f}")
+    print("   dodecahedral space (circles when pi/10 < chi_rec/R_c)")
+    print(f"{'Omega_K':>8} {'chi':>6} {'lmax':>5} {'N':>5} {'KL':>10} {'KL 2 kmax':>10} {'KL skies':>10} {'kmax':>5} "
+          f"{'modes':>7} {'cov s':>7}")
+    for ok in (-0.015, -0.05):
+        c = Cosmology(omega_k=ok)
+        for lmax in dodec_lmax:
+            spec = {"family": "dodecahedral"}
+            d, cov, t = one(spec, c, lmax)
+            d2 = one(spec, c, lmax, kchi_max=2 * cov.kchi_max)[0]
+            d0 = one(spec, c, lmax, complement=False)[0]
+            print(f"{ok:8.3f} {cov.meta['chi']:6.3f} {lmax:5d} {cov.n:5d} {d:10.4g} {d2:10.4g} {d0:10.4g} "
+                  f"{cov.meta['kmax']:5d} {cov.n_modes:7d} {t:7.2f}")
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help="the size table at lmax 8 only")
     sizes = (0.6, 1.0, 1.4, 1.8, 2.0, 2.2, 2.6, 3.0)
     ap.add_argument("--likelihood", action="store_true", help="the likelihood section (6) only")
+    ap.add_argument("--spherical", action="store_true", help="the spherical section (7) only")
     args = ap.parse_args()
+    if args.spherical:
+        spherical_table()
+        return
     if args.quick:
         size_table(8, sizes)
         return
@@ -160,6 +208,7 @@ def main():
                 ({"family": "E1", "lengths": [1.0, 1.0, 1.0]}, 30), ({"family": "E1", "lengths": [1.5, 1.5, 1.5]}, 30),
                 ({"family": "E1", "lengths": [2.0, 2.0, 2.0]}, 30), ({"family": "E6", "lengths": [1.0, 1.0, 1.0]}, 30)])
     likelihood_table()
+    spherical_table()
 
 
 if __name__ == "__main__":

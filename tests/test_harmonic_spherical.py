@@ -175,3 +175,8 @@ def test_command_line_spherical_rows_json_and_plot(tmp_path, capsys):
     assert main(["harmonic", str(cfg)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "[harmonic] scales" in err[0] and str(cfg) in err[0], err
+    # the likelihood of a map is flat-only so far: refused in one line before any work
+    cfg.write_text(LENS_CONFIG.replace("lmax = 4", "lmax = 4\nnside = 4\nnoise_uk = 5.0"))
+    assert main(["harmonic", str(cfg), "--map", str(tmp_path / "none.fits")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--map" in err[0], err

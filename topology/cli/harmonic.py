@@ -41,6 +41,9 @@ def run(args):
                 raise InputError("plot file exists (use --force to overwrite)", str(args.plot))
         if args.mask and not args.map:
             raise InputError("--mask goes with --map", "--mask")
+        if args.map and cosmology_from_config(cfg).omega_k < 0:
+            raise InputError("the likelihood of a map is implemented for flat spaces only (a spherical scale changes "
+                             "the background, and with it the isotropic reference)", "--map")
         data = read_map_pixels(settings, args.map, args.mask, cosmology_from_config(cfg)) if args.map else None
         kept = [] if data is not None else None
         out = divergence_rows(cfg, settings, keep=kept)

@@ -5,6 +5,7 @@ Modules, one concern each, data flowing down the list:
 * basis.py       the real a_lm basis (l = 2..lmax), real harmonics, conversions from healpy
 * radial.py      radial functions of the temperature terms; the isotropic C_l at a wave-number cut
 * flat.py        a flat space's invariant modes (those of the skies) as columns of the covariance
+* spherical.py   a spherical space's invariant S^3 modes (those of the skies) as columns, its degree cut
 * covariance.py  the covariance from blocks of modes (BLAS rank updates) and the dispatch by space
 * pixels.py      the observed pixels of a map (noise, mask, beam, monopole and dipole) in N x N form
 * kl.py          the Kullback-Leibler divergence of two zero-mean Gaussians, full sky or pixel space

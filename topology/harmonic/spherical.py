@@ -128,12 +128,12 @@ def spherical_cut(cosmology, lmax: int, chi: float, kchi_max: float | None = Non
 
 
 def mode_work(space, lmax: int, kmax: int) -> tuple[int, float]:
-    """(invariant modes of degrees KMIN..kmax, floating-point operations of their rank updates
-    2 x 2 N^2 per complex mode), from the character formula (cheap)."""
+    """(invariant modes of degrees KMIN..kmax, floating-point operations of their rank updates:
+    N^2 per real column, two columns per complex mode), from the character formula (cheap)."""
     from ..spaces.spherical import mode_counts
 
     modes = int(mode_counts(space, kmax)[KMIN:].sum())
-    return modes, 4.0 * modes * float(n_coefficients(lmax)) ** 2
+    return modes, 2.0 * modes * float(n_coefficients(lmax)) ** 2
 
 
 def check_work(space, lmax: int, kmax: int) -> int:
