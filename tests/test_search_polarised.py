@@ -120,16 +120,49 @@ def test_missing_convention_refused_by_the_command(sky):
     assert "noconv.fits" in err and "no POLCCONV" in err and "--pol-convention" in err
 
 
-def test_run_refuses_a_polarised_field_before_any_output(sky, tmp_path, monkeypatch, capsys):
-    # topology run has no polarised null or injected skies yet: field = "E" is refused in one line
-    # naming the entry, not read as a column called E, and no output folder is made
-    folder, _ = sky
+RUN = ('[instrument]\nfwhm_deg = 8.0\nnoise_uk = 1.0\nnside = 16\nlmax = 32\nterms = {terms}\n'
+       '[search]\nradii = "30:50:10"\nnside_work = 8\nfwhm_deg = 8.0\nm_max = 8\ncentre_nside = 2\n'
+       '[significance]\nn_null = 9\nfalse_alarm = 0.2\ninjection_radii = "40:40:10"\nseed = 2\n'
+       '[execution]\nengine = "serial"\n')
+FULL = '["sw", "doppler", "isw"]'
+
+
+def _run_config(tmp_path, maps, terms=FULL):
     cfg = tmp_path / "run.toml"
-    cfg.write_text(f'[[maps]]\nname = "pol"\npath = "{folder / "pol.fits"}"\nfield = "T+E"\n'
-                   '[search]\nradii = "30:50:10"\nnside_work = 8\nfwhm_deg = 8.0\nm_max = 8\n'
-                   '[significance]\nn_null = 9\n[execution]\nengine = "serial"\n')
+    cfg.write_text("".join(f'[[maps]]\nname = "{n}"\npath = "{p}"\nfield = "{f}"\n' for n, p, f in maps)
+                   + RUN.format(terms=terms))
+    return cfg
+
+
+def test_run_of_field_e_plans_polarised_nulls_and_no_injections(sky, tmp_path, monkeypatch, capsys):
+    # [[maps]] field = "E": the plan keeps the field, makes no injected skies (none are polarised yet)
+    # and says so on stderr; a null task searches a polarised isotropic sky (shipped EE/TE table)
+    from topology.config import load_config
+    from topology.run import scan
+    from topology.run import tasks as T
+    from topology.run.plan import plan_from_config
+    from topology.skies import spectra
+
+    folder, _ = sky
+    plan = plan_from_config(load_config(_run_config(tmp_path, [("pol", folder / "pol.fits", "E")])), tmp_path / "o")
+    assert plan.pol_field == "E" and plan.significance["injection_families"] == []
+    assert not [t for t in scan.build_tasks(plan) if t.id.startswith("inj/")]
+    assert "no alpha_min calibration" in capsys.readouterr().err
+    monkeypatch.setattr(spectra, "have_camb", lambda: False)
+    r = T.task_null(plan, T.null_id(0))
+    assert len(r["s_max"]) == 3 and all(0.2 < s < 1.0 for s in r["s_max"])
+
+
+@pytest.mark.parametrize("maps,terms,needle", [
+    ([("a", "pol.fits", "T+E"), ("b", "pol.fits", "0")], FULL, "one field kind per run"),
+    ([("a", "pol.fits", "E")], '["sw"]', "[instrument] terms"),
+    ([("a", "noconv.fits", "E")], FULL, "pol_convention in [[maps]] #1"),
+])
+def test_bad_polarised_run_is_one_line(sky, tmp_path, monkeypatch, capsys, maps, terms, needle):
+    folder, _ = sky
+    cfg = _run_config(tmp_path, [(n, folder / p, f) for n, p, f in maps], terms)
     code, out, err = _topology("run", cfg, "--out", tmp_path / "out", cwd=tmp_path, monkeypatch=monkeypatch,
                                capsys=capsys)
-    err = err.strip()
-    assert code == 2 and "\n" not in err and "[[maps]] #1 field" in err and "not in topology run yet" in err
-    assert not (tmp_path / "out").exists()
+    err = err.strip().splitlines()
+    assert code == 2 and len([e for e in err if e.startswith("topology run: error")]) == 1
+    assert needle in err[-1] and not (tmp_path / "out").exists()

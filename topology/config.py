@@ -169,8 +169,10 @@ SCHEMA.update({
         "name": Key((str,), None, "name of the map in the report (letters, digits, - and _)"),
         "path": Key((str,), None, "HEALPix FITS file (path relative to the config); or give an inline sky instead"),
         "field": Key((int, str), 0, "column of a multi-column map: index or name (default the first, temperature); "
-                                    "E and T+E are reserved (polarised searches: topology search only for now)"),
+                                    "E or T+E: the E map of the file's Q, U, or T and E combined (topology.search.polarised)"),
         "ordering": Key((str,), None, "RING or NESTED when the FITS header has no ORDERING key"),
+        "pol_convention": Key((str,), None, "field E or T+E: Q/U convention of a file without a POLCCONV header key, "
+                              "\"healpix\" or \"iau\" (never guessed)"),
         "space": Key((dict,), None, "inline synthetic sky: a [space] table (family and parameters, or isotropic)"),
         "observer": Key((dict,), None, "inline synthetic sky: an [observer] table"),
         "sky": Key((dict,), None, "inline synthetic sky: [sky] keys (seed, lmax ...); beam and noise come from [instrument]"),
@@ -184,6 +186,8 @@ SCHEMA.update({
     "instrument": {
         "fwhm_deg": Key(NUMBER, 1.0, "beam FWHM of the maps in degrees (null and injected skies get it)", _non_negative),
         "noise_uk": Key(NUMBER, 0.0, "white noise rms per pixel in microK (null and injected skies)", _non_negative),
+        "noise_pol_uk": Key(NUMBER, None, "maps of field E or T+E: white noise rms per pixel on each of Q and U of "
+                            "the null skies in microK (default sqrt(2) noise_uk)", _non_negative),
         "nside": Key((int,), None, "N_side of null and injected skies (default: that of the first map)", _power_of_two),
         "lmax": Key((int,), None, "highest multipole of null and injected skies (default 2 nside)", _positive),
         "terms": Key((list,), ["sw"], "temperature terms of null and injected skies: ['sw'] or ['sw', 'doppler', 'isw']"),

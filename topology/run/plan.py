@@ -21,6 +21,7 @@ from ..config import Config, config_from_dict, did_you_mean, naming_file, rename
 from ..bandlimit import check_band_limit, default_lmax, lmax_limit
 from ..cosmology import Cosmology
 from ..errors import InputError
+from ..search.polarised import polarised_field
 from ..store import config_hash, file_digest
 
 MAP_NAME = re.compile(r"^[A-Za-z0-9_.-]{1,64}$")
@@ -37,6 +38,7 @@ class MapSpec:
     ordering: str | None = None
     inline: dict | None = None
     nside: int | None = None
+    pol_convention: str | None = None  # field "E" / "T+E": the Q/U convention when the header has none
 
 
 @dataclass
@@ -59,6 +61,7 @@ class RunPlan:
     config_path: str | None = None
     sim_nside: int = 64  # N_side of the null and injected skies
     sim_lmax: int = 128  # their l_max
+    pol_field: str | None = None  # "E" or "T+E" when the maps are searched in polarisation (null skies too)
 
     @property
     def cosmology(self) -> Cosmology:
@@ -116,18 +119,18 @@ def map_specs(cfg: Config) -> list[MapSpec]:
         has_path, has_inline = "path" in e, "space" in e
         if has_path == has_inline:
             raise InputError("give either path (a FITS map) or an inline sky (space, observer, sky)", where)
-        if isinstance(e.get("field"), str) and e["field"].strip().upper() in ("E", "T+E"):
-            # reserved words of a polarised search (topology.search.polarised): refused rather than read as a
-            # column name, since the run's null skies and injections are temperature only
-            raise InputError(f"field = {e['field']!r} (a polarised search) is not in topology run yet: its null "
-                             f"and injected skies are temperature only, so E / T+E would have no threshold or "
-                             f"alpha_min; search the map with topology search MAP --field {e['field'].strip().upper()}",
-                             f"{where} field")
+        pol = polarised_field(e.get("field"))
+        if pol and has_inline:
+            raise InputError(f"field = {e['field']!r}: inline skies of a run are temperature only; write a polarised "
+                             f"sky with topology synth ([sky] polarisation = true) and give its path", f"{where} field")
+        if "pol_convention" in e and not pol:
+            raise InputError("only with field = \"E\" or \"T+E\"", f"{where} pol_convention")
         if has_path:
             path = resolve_path(cfg.base_dir, e["path"])
             if not Path(path).is_file():
                 raise InputError("map file not found", path)
-            specs.append(MapSpec(name, path, e.get("field", 0), e.get("ordering")))
+            specs.append(MapSpec(name, path, pol or e.get("field", 0), e.get("ordering"),
+                                 pol_convention=e.get("pol_convention")))
         else:
             inline = {k: dict(e[k]) for k in ("space", "observer", "sky") if k in e}
             for k in ("observer", "sky"):
@@ -164,7 +167,16 @@ def read_map_files(maps: list[MapSpec], mask: dict) -> None:
 
     mask_map = run_mask(mask, 0) if "path" in mask else None
     for i, m in enumerate(maps):
-        if m.path:
+        if m.path and polarised_field(m.field):
+            from ..maps import read_iqu
+
+            sky = read_iqu(m.path, convention=m.pol_convention, ordering=m.ordering,
+                           ordering_from=f"ordering in [[maps]] #{i + 1}",
+                           convention_from=f"pol_convention in [[maps]] #{i + 1}").i
+            m.nside = int(sky.nside)
+            check_sky_fraction(sky, mask_map, float(mask["min_sky_fraction"]), setting="[mask] min_sky_fraction")
+            del sky
+        elif m.path:
             sky = read_healpix(m.path, field=m.field, ordering=m.ordering, what="map",
                                ordering_from=f"ordering in [[maps]] #{i + 1}")
             m.nside = int(sky.nside)
@@ -239,6 +251,11 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
 
     check_config(cfg)
     maps = map_specs(cfg)
+    kinds = {polarised_field(m.field) or "T" for m in maps}
+    if len(kinds) > 1:
+        raise InputError(f"the maps mix fields {', '.join(sorted(kinds))}: one field kind per run (T, E or T+E), since "
+                         f"the null skies are searched as the maps are", "[[maps]] field")
+    pol_field = next(iter(kinds)) if kinds != {"T"} else None
     cosmo = cosmology_from_config(cfg)
     with naming_file(cfg):
         check_inline_skies(cfg, cosmo)
@@ -254,7 +271,8 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
     mask.setdefault("min_sky_fraction", cfg.get("mask", "min_sky_fraction"))
     read_map_files(maps, mask)
 
-    instrument = {k: cfg.get("instrument", k) for k in ("fwhm_deg", "noise_uk", "nside", "lmax", "terms")}
+    instrument = {k: cfg.get("instrument", k) for k in ("fwhm_deg", "noise_uk", "noise_pol_uk", "nside", "lmax",
+                                                         "terms")}
     terms = tuple(instrument["terms"])
     if set(terms) - {"sw", "doppler", "isw"} or "sw" not in terms:
         raise InputError(f"must be ['sw'] or ['sw', 'doppler', 'isw'], got {list(terms)}", "[instrument] terms")
@@ -310,6 +328,9 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
         raise InputError(f"injection radii {injection_radii.min():g}..{injection_radii.max():g} deg lie outside the "
                          f"searched radii {radii.min():g}..{radii.max():g} deg", "[significance] injection_radii")
     significance["injection_families"] = injection_families(cfg)
+    if pol_field:
+        check_polarised_run(pol_field, terms, targets, instrument)
+        significance["injection_families"] = []   # no polarised injected skies yet (POLARISED_NOTE)
     check_run_terms(terms, cosmo, significance["injection_families"], targets, maps, sim_lmax)
     if targets:
         targeted.check_injectable(targets, cfg.section("cosmology"), cfg.base_dir, sim_lmax)
@@ -338,7 +359,27 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
                    injection_radii_deg=injection_radii, out_dir=out, config_hash=config_hash(cfg.sections),
                    execution=execution, targets=targets, inputs=inputs,
                    config_path=str(cfg.path.resolve()) if cfg.path else None, sim_nside=sim_nside,
-                   sim_lmax=sim_lmax)
+                   sim_lmax=sim_lmax, pol_field=pol_field)
+
+
+#: what a run of field E or T+E says in its report and on stderr
+POLARISED_NOTE = ("E and T+E have no alpha_min calibration yet (no injected polarised skies of multiply connected "
+                  "spaces in the run): thresholds and p-values come from polarised isotropic null skies, but no "
+                  "efficiency, alpha_min or bound is derived")
+
+
+def check_polarised_run(field: str, terms: tuple, targets: list, instrument: dict) -> None:
+    """A run of field E or T+E: polarised null skies need CAMB's full terms (the SW term makes no
+    E); the targeted kind of run is temperature only; a note says that there is no alpha_min."""
+    from ..errors import note
+
+    if set(terms) != {"sw", "doppler", "isw"}:
+        raise InputError(f"field {field!r}: polarised null skies need terms = [\"sw\", \"doppler\", \"isw\"] "
+                         f"(CAMB's TT, EE, TE), got {list(terms)}", "[instrument] terms")
+    if targets:
+        raise InputError(f"field {field!r}: the targeted run is temperature only for now; use topology search "
+                         f"--mode targeted --field {field}", "[search] mode")
+    note(f"field {field}: {POLARISED_NOTE}")
 
 
 def injection_families(cfg: Config) -> list[dict]:

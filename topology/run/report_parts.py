@@ -61,9 +61,13 @@ def sky_figure(plan, analysis: Analysis, m: dict, staging: Path) -> list[str] | 
     spec = next(s for s in plan.maps if s.name == name)
     frame, unit = "coordinates of the synthetic sky (observer's frame)", "microK"
     if values is None and spec.path:
-        from ..maps import read_healpix
+        from ..maps import read_healpix, read_iqu
+        from ..search.polarised import polarised_field
 
-        sky = read_healpix(spec.path, field=spec.field, ordering=spec.ordering)
+        if polarised_field(spec.field):  # E / T+E: the circles drawn on the temperature (I) column
+            sky = read_iqu(spec.path, convention=spec.pol_convention, ordering=spec.ordering).i
+        else:
+            sky = read_healpix(spec.path, field=spec.field, ordering=spec.ordering)
         values = np.where(sky.observed, sky.values, np.nan)
         frames = {"G": "Galactic", "E": "ecliptic", "C": "equatorial", "Q": "equatorial"}
         coordsys = str(sky.header.get("COORDSYS", "")).strip().upper()[:1]

@@ -96,7 +96,11 @@ def analyse(plan, store) -> Analysis:
     notes = [n for n in [reachable_note(plan.n_injections, level, plan.efficiency_confidence)] if n]
     notes += [f"alpha_min of the injected {f['label']} is the lowest injected radius ({f['alpha_min_deg']:g} deg): "
               "the bound may be stronger; inject lower radii" for f in families if f["at_lowest_radius"]]
-    headline = families[0]["alpha_min_deg"]
+    headline = families[0]["alpha_min_deg"] if families else None
+    if plan.pol_field:
+        from .plan import POLARISED_NOTE
+
+        notes.append(f"field {plan.pol_field}: {POLARISED_NOTE}")
     spectra_rows = spectra_consistency(plan, store)
     notes += spectra_check.departure_notes(spectra_rows)
 
@@ -119,7 +123,8 @@ def analyse(plan, store) -> Analysis:
             "bounds": bounds,
             "predicted": res.get("predicted", []),
             "note": "; ".join(["circles detected: no bound is derived from this map" if is_detected else
-                               ("no injected family reaches the efficiency level: no alpha_min, no bound"
+                               ("" if plan.pol_field else
+                                "no injected family reaches the efficiency level: no alpha_min, no bound"
                                 if bounds is None else "")] + ([] if is_detected else notes)).strip("; "),
         })
         map_values[spec.name] = res.get("map_values")

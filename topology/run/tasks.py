@@ -86,9 +86,10 @@ def search_settings(plan):
     return SearchSettings(**{k: (tuple(v) if isinstance(v, list) else v) for k, v in plan.search.items()})
 
 
-def search_values(values, plan, source: str, scenario=None, radii_deg=None) -> dict:
+def search_values(values, plan, source: str, scenario=None, radii_deg=None, polarised=None) -> dict:
     """Search a map (a SkyMap or a RING array) with the run's settings and mask; ``radii_deg``
-    (default: the run's radii) restricts the scan."""
+    (default: the run's radii) restricts the scan; ``polarised``: the E input of a run of field
+    E or T+E (:func:`polarised_input_of`)."""
     import dataclasses
 
     from ..maps import as_skymap
@@ -99,7 +100,38 @@ def search_values(values, plan, source: str, scenario=None, radii_deg=None) -> d
     settings = search_settings(plan)
     if radii_deg is not None:
         settings = dataclasses.replace(settings, radii_deg=tuple(float(r) for r in radii_deg))
-    return search_sky(sky, mask, settings, scenario=scenario, show_progress=False, map_name=source)
+    return search_sky(sky, mask, settings, scenario=scenario, show_progress=False, map_name=source,
+                      polarised=polarised)
+
+
+def polarised_input_of(plan, iqu, source: str):
+    """(temperature SkyMap, PolarisedInput) of simulated (I, Q, U) RING maps in the HEALPix
+    convention: E made as for a data map (:func:`topology.maps.emode.emode_sky`, the run's mask,
+    ``[search] pol_apod_deg``)."""
+    from ..maps import PolarisedMap, as_skymap
+    from ..maps.emode import emode_sky
+    from ..search.polarised import PolarisedInput
+
+    i, q, u = (as_skymap(np.asarray(x), source=source) for x in iqu)
+    settings = search_settings(plan)
+    e, e_mask = emode_sky(PolarisedMap(i, q, u, ("I", "Q", "U"), "healpix"), run_mask(plan.mask, i.nside),
+                          nside_work=settings.nside_work, apod_deg=settings.pol_apod_deg,
+                          threshold=settings.mask_threshold)
+    return i, PolarisedInput(plan.pol_field, e, e_mask, {"convention": "healpix", "columns": ["I", "Q", "U"],
+                                                          "apod_deg": float(settings.pol_apod_deg),
+                                                          "pol_mask": None, "nside_e": int(e.nside)})
+
+
+def simulate_polarised(plan, cosmology, seed: int) -> np.ndarray:
+    """An observed polarised isotropic null sky (I, Q, U), (3, 12 N_side^2), with the run's beam,
+    noise (``noise_uk`` on I, ``noise_pol_uk`` on Q and U) and CAMB's TT, EE, TE
+    (:mod:`topology.skies.polarised`); the mask is applied by the search, as for T."""
+    from ..skies.polarised import observe_polarised, polarised_sky
+
+    inst = plan.instrument
+    sky = polarised_sky(cosmology, lmax=plan.sim_lmax, terms=tuple(inst["terms"]), seed=seed)
+    return observe_polarised(sky, nside=plan.sim_nside, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"],
+                             noise_pol_uk=inst.get("noise_pol_uk"), seed=seed, lmax=plan.sim_lmax)
 
 
 def radii_near(plan, radius_deg: float) -> np.ndarray:
@@ -188,6 +220,16 @@ def read_or_make_map(plan, name: str):
 
 def task_data(plan, name: str) -> dict:
     """Search one data map of a radius scan; returns the search result (JSON-able)."""
+    if plan.pol_field:
+        from ..search.polarised import polarised_input
+
+        spec = next(m for m in plan.maps if m.name == name)
+        sky, pol = polarised_input(spec.path, plan.pol_field, search_settings(plan),
+                                   mask=run_mask(plan.mask, int(spec.nside)), convention=spec.pol_convention,
+                                   convention_from="pol_convention in [[maps]]")
+        res = search_values(sky, plan, spec.path, polarised=pol)
+        res["nside"] = int(sky.nside)
+        return res
     values, source, nside, extra = read_or_make_map(plan, name)
     res = search_values(values, plan, source)
     res["nside"] = nside
@@ -198,6 +240,12 @@ def task_data(plan, name: str) -> dict:
 def task_null(plan, task_id: str) -> dict:
     from .spectra_check import sky_power
 
+    if plan.pol_field:  # a polarised isotropic sky, searched in E or T+E as the maps are
+        seed = int_seed(plan.significance["seed"], task_id)
+        m, pol = polarised_input_of(plan, simulate_polarised(plan, run_cosmology(plan), seed), task_id)
+        res = search_values(m, plan, task_id, polarised=pol)
+        return {"s_max": smax_by_radius(res, plan.radii_deg), "seed": seed, "elapsed_s": res["elapsed_s"],
+                "cl": sky_power(m.values, plan.sim_lmax)}
     m, seed = null_map(plan, task_id)
     res = search_values(m, plan, task_id)
     return {"s_max": smax_by_radius(res, plan.radii_deg), "seed": seed, "elapsed_s": res["elapsed_s"],
