@@ -35,7 +35,9 @@ def test_covering_space_is_exactly_the_isotropic_reference(complement):
     # degree (spherical tensor operators, the sky frame's rotation) must equal diag(C_l) of the
     # zonal-kernel spectrum (skies.s3_spectra: the two-point function sum_k sigma_k^2 Y_k(psi) and
     # a Gauss-Legendre transform, an independent path; addition theorem of S^3, Lehoucq et al.
-    # 2002, CQG 19, 4683), so the divergence is zero to rounding
+    # 2002, CQG 19, 4683; the closed-space SW variance per mode sigma_k^2 = 2 pi^2 P_R(q) /
+    # (beta (beta^2 - 1)), Lehoucq et al. 2002 and Aurich, Lustig & Steiner 2005, CQG 22, 2061,
+    # as in skies.spherical), so the divergence is zero to rounding
     s3 = SphericalSpace("S3", np.array([[[1.0, 0, 0, 0], [1.0, 0, 0, 0]]]), {}, homogeneous=True)
     lmax = 6
     cov = space_covariance(s3, OFF_CENTRE, CLOSED, lmax=lmax, complement=complement)
@@ -107,9 +109,9 @@ def test_divergence_grows_as_the_space_shrinks():
     # divergence grows with p (measured at lmax 6: 1.6, 4.9, 10.2 nats for p = 3, 5, 8). The
     # dodecahedral space (injectivity radius pi/10 = 0.31 R_c) at Omega_K = -0.005, -0.015, -0.05
     # (chi_rec / R_c = 0.22, 0.38, 0.71: no matched circles, then circles) at lmax 8: measured
-    # 0.107, 24.3, 63.7 nats. check: Planck 2015 XVIII (A&A 594, A18), sec. 6-7 (qualitative): as
-    # for the tori, the topological signal of the positively curved spaces fades once the space
-    # outgrows the last-scattering sphere
+    # 0.107, 24.3, 63.7 nats. check: Planck 2015 XVIII (A&A 594, A18; qualitative, from memory):
+    # as for the tori, the topological signal of the positively curved spaces fades once the space
+    # outgrows the last-scattering sphere (no matched circles)
     lens = [_kl(build_space({"family": "lens", "p": p, "q": 1})).kl_nats for p in (3, 5, 8)]
     assert 0.5 < lens[0] < lens[1] < lens[2] < 100
     dodec = build_space({"family": "dodecahedral"})
