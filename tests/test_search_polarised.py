@@ -44,8 +44,9 @@ def sky(tmp_path_factory):
     _, q, u = hp.alm2map([zero, a_e, zero], NSIDE, lmax=lmax, pol=True)
     write_iqu_fits(folder / "pol.fits", np.array([t, q, u]), [("POLCCONV", "COSMO", "Q/U convention")])
     write_iqu_fits(folder / "noconv.fits", np.array([t, q, u]), [])
-    pair = next(p for p in predict_circles(space, obs, 1.0) if abs(np.degrees(p.radius) - 36.87) < 0.1)
-    return folder, pair
+    truth = predict_circles(space, obs, 1.0)
+    truth = [p for p in truth if abs(np.degrees(p.radius) - 36.87) < 0.1]
+    return folder, truth[0], truth
 
 
 def _topology(*args, cwd, monkeypatch, capsys):
@@ -64,7 +65,7 @@ def _at_pair(out, pair):
 
 
 def test_e_and_te_keep_the_json_contract_and_find_the_pair(sky, monkeypatch, capsys):
-    folder, pair = sky
+    folder, pair, truth = sky
     runs = {}
     for field in ("0", "E", "T+E"):
         code, out, err = _topology("search", folder / "pol.fits", "--field", field, *FAST, cwd=folder,
@@ -97,13 +98,35 @@ def test_e_and_te_keep_the_json_contract_and_find_the_pair(sky, monkeypatch, cap
     assert c["S"] > c_t["S"] + 0.05  # measured 0.855 against 0.787
 
 
+def test_targeted_te_recovers_the_orientation(sky, monkeypatch, capsys):
+    # the orientation scan with each predicted pair's S_TE,eq: the three pairs of the torus land on
+    # the sky's matched circles; T alone gives 0.60 here (measured), T + E 0.74
+    folder, pair, truth = sky
+    cfg = folder / "targeted.toml"
+    cfg.write_text('[space]\nfamily = "E1"\nlengths = [1.6, 1.6, 1.6]\n[observer]\nposition = [0.0, 0.0, 0.0]\n'
+                   '[search]\nmode = "targeted"\nradii = "35:39:1"\nfwhm_deg = 6.0\nnside_work = 16\nm_max = 12\n')
+    code, out, err = _topology("search", folder / "pol.fits", "--config", cfg, "--field", "T+E", "--json", "--quiet",
+                               cwd=folder, monkeypatch=monkeypatch, capsys=capsys)
+    assert code == 0, err
+    out = json.loads(out)
+    t = out["targeted"]
+    assert t["n_pairs_used"] == t["n_pairs"] == 3 and t["S_combined"] > 0.7
+    assert t["S_combined"] == pytest.approx(np.mean([c["S"] for c in out["candidates"]]), rel=1e-12)
+    w = out["polarisation"]["weights"]
+    assert len(w) == 1 and abs(w[0]["radius_deg"] - 36.87) < 0.01
+    assert len(truth) == 3
+    for c in out["candidates"]:
+        d, dt = min((match(c, p) for p in truth), key=lambda e: e[0])
+        assert d < 3.0 and dt < 4.0 and c["orientation"] == "opposite"
+
+
 @pytest.mark.parametrize("args,needle", [
     (["pol.fits", "--field", "T+E", "--pol-convention", "iau"], "POLCCONV"),  # header and option disagree
     (["pol.fits", "--field", "0", "--pol-convention", "iau"], "--pol-convention"),  # not a polarised search
     (["pol.fits", "--field", "E", "--pol-mask", "missing.fits"], "missing.fits"),
 ])
 def test_bad_polarised_input_is_one_line(sky, monkeypatch, capsys, args, needle):
-    folder, _ = sky
+    folder, *_ = sky
     code, out, err = _topology("search", *args, *FAST, cwd=folder, monkeypatch=monkeypatch, capsys=capsys)
     assert code == 2 and out == ""
     err = err.strip()
@@ -112,7 +135,7 @@ def test_bad_polarised_input_is_one_line(sky, monkeypatch, capsys, args, needle)
 
 def test_missing_convention_refused_by_the_command(sky):
     # a real process: exit 2, one line naming the file and the option, no traceback, nothing on stdout
-    folder, _ = sky
+    folder, *_ = sky
     r = subprocess.run([sys.executable, "-m", "topology", "search", "noconv.fits", "--field", "E", *FAST],
                        capture_output=True, text=True, cwd=folder, timeout=120)
     err = r.stderr.strip()
@@ -143,7 +166,7 @@ def test_run_of_field_e_plans_polarised_nulls_and_no_injections(sky, tmp_path, m
     from topology.run.plan import plan_from_config
     from topology.skies import spectra
 
-    folder, _ = sky
+    folder, *_ = sky
     plan = plan_from_config(load_config(_run_config(tmp_path, [("pol", folder / "pol.fits", "E")])), tmp_path / "o")
     assert plan.pol_field == "E" and plan.significance["injection_families"] == []
     assert not [t for t in scan.build_tasks(plan) if t.id.startswith("inj/")]
@@ -159,7 +182,7 @@ def test_run_of_field_e_plans_polarised_nulls_and_no_injections(sky, tmp_path, m
     ([("a", "noconv.fits", "E")], FULL, "pol_convention in [[maps]] #1"),
 ])
 def test_bad_polarised_run_is_one_line(sky, tmp_path, monkeypatch, capsys, maps, terms, needle):
-    folder, _ = sky
+    folder, *_ = sky
     cfg = _run_config(tmp_path, [(n, folder / p, f) for n, p, f in maps], terms)
     code, out, err = _topology("run", cfg, "--out", tmp_path / "out", cwd=tmp_path, monkeypatch=monkeypatch,
                                capsys=capsys)

@@ -40,6 +40,7 @@ usable chance pairs) falls back to the other map's spread, with the record sayin
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -119,8 +120,8 @@ def radius_weights(ctx: CombinedContext, radius: float, lv) -> dict:
     seed = SIGMA_SEED + int(round(deg * 1000))
     sig_t, _ = _spread(ctx.t, lv, radius, seed)
     sig_e, _ = _spread(ctx.e, lv, radius, seed)
-    rec = {"radius_deg": deg, "rho_t": float(ctx.rho_t), "rho_e": float(ctx.rho_e), "sigma_t": sig_t,
-           "sigma_e": sig_e}
+    rec = {"radius_deg": deg, "rho_t": float(ctx.rho_t), "rho_e": float(ctx.rho_e),
+           "sigma_t": sig_t if math.isfinite(sig_t) else None, "sigma_e": sig_e if math.isfinite(sig_e) else None}
     if not (sig_t > 0) and not (sig_e > 0):
         sig_t = sig_e = 1.0
         rec["fallback"] = "no usable chance pairs in either map: sigma_T = sigma_E = 1"
