@@ -12,7 +12,8 @@ Modules, in the order of the flow: sampling (circles on a map), statistic (S ker
 coarse level), hierarchy (refinement of centre pairs level by level), targeted (orientation scan
 of predicted pairs), modes (antipodal, all-pairs, targeted: tasks and summaries), engine
 (settings, the job: tasks through topology.execution.run_tasks, checkpoint in topology.store),
-plot (the figure of a result).
+plot (the figure of a result), combined and polarised (the T + E statistic; searches of the E map
+and of T + E: ``search_files(path, field="E" or "T+E", convention=...)``).
 """
 
 from .engine import MODES, SearchSettings, parse_radii, search_files, search_sky, settings_from, validate

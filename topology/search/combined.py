@@ -19,6 +19,11 @@ spread (Fisher's linear discriminant; common practice). T and E are not independ
 correlation), so the weights are near-optimal, not optimal. rho_T = 1 for a Sachs-Wolfe sky
 without noise; rho_E < 1 even without noise (:mod:`topology.maps.emode`), and both fall with
 noise as signal variance / total variance of the filtered circles.
+
+What the search uses (:mod:`topology.search.polarised`, where the choice is stated in full):
+sigma_X from :func:`chance_spread` on the searched map itself, per radius; rho_T = 1 and
+rho_E = 0.75 by default (``[search] rho_t``, ``rho_e``), and the ranked form
+:func:`combined_rank_twist`, the weighted mean of each map's chance-equivalent S_eq.
 """
 
 from __future__ import annotations
