@@ -6,7 +6,8 @@ pairs against chance pairs, per band of wave number.
 First the derived law alone: for E1 cubes of side 1.7, 1.2 and 0.8 (radii 11.5-66 deg), modes
 30 < k chi_rec <= 64, lmax 80, two seeds, the Pearson correlation of the two circles of each
 pair (360 points, interpolated on an N_side 256 map of the a_lm) and their S, per radius,
-against rho_E = (3 + cos^2 2 alpha) / 4.
+against rho_E = (3 + cos^2 2 alpha) / 4; then the same for T (SW + Doppler + ISW) of the side-0.8
+cube per band of k against cos beta = -cos 2 alpha, the correlation of a pure Doppler term.
 
 Skies (topology.skies.flat_polarised.flat_polarised_sky, noise-free, no beam, no pixel window,
 full sky, no isotropic complement): an E1 cube of side 1.7 chi_rec and an E3 (quarter turn) of
@@ -132,6 +133,32 @@ def pointwise() -> None:
                   f"{r[sel, 3].mean():>6.3f}")
 
 
+def pointwise_t() -> None:
+    """T with the CAMB terms where the Doppler term dominates: Pearson of matched circles against
+    cos beta = -cos 2 alpha, the correlation of a pure Doppler term (k^.n at both sightings)."""
+    cosmo = Cosmology()
+    phi = np.linspace(0.0, 2.0 * np.pi, 360, endpoint=False)
+    space = build_space({"family": "E1", "lengths": [0.8, 0.8, 0.8]})
+    pairs = predict_circles(space, OBSERVER, 1.0)
+    print("matched-point correlation of T (SW + Doppler + ISW), E1 side 0.8, lmax 110, seeds 1-2, "
+          "against cos beta = -cos 2 alpha (Doppler) and 1 (SW)")
+    for lo, hi in ((0.0, 10.0), (10.0, 30.0), (30.0, 60.0), (60.0, 90.0)):
+        rows = []
+        for seed in (1, 2):
+            sky = flat_polarised_sky(space, OBSERVER, cosmo, lmax=110, seed=seed, kchi_max=hi, complete=False,
+                                     profile=BandProfile(lo, hi))
+            t = hp.alm2map(sky.alm, 256, lmax=110)
+            for p in pairs:
+                va = hp.get_interp_val(t, *hp.vec2ang(circle_points(p.center_a, p.radius, phi)))
+                vb = hp.get_interp_val(t, *hp.vec2ang(circle_points(p.center_b, p.radius,
+                                                                    p.orientation * phi + p.twist)))
+                rows.append((round(math.degrees(p.radius), 1), np.corrcoef(va, vb)[0, 1]))
+        r = np.array(rows)
+        cells = [f"{rad:.1f} deg {r[r[:, 0] == rad, 1].mean():+.2f} ({-math.cos(2 * math.radians(rad)):+.2f})"
+                 for rad in np.unique(r[:, 0])]
+        print(f"  k chi_rec {lo:>3.0f}-{hi:<3.0f} " + ", ".join(cells))
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--nside", type=int, default=64)
@@ -140,6 +167,7 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=7)
     args = ap.parse_args()
     pointwise()
+    pointwise_t()
     cosmo = Cosmology()
     lmax, nside = args.lmax, args.nside
     for name, params in SPACES:
