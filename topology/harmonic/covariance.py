@@ -12,17 +12,19 @@ columns Re u, Im u, each scaled by sqrt of its multiplicity.) The flat source is
 :func:`topology.harmonic.flat.flat_mode_blocks`; a spherical source of invariant S^3 modes
 plugs in the same way (:func:`space_covariance` dispatches on the geometry).
 
-The cut and its complement, as in the flat skies (:mod:`topology.skies.flat_cut`). The space's
-modes are kept to 0 < k chi_rec <= kchi_max, tapered over the last few units of k chi_rec. With
-``complement`` (the default) the isotropic power of the modes beyond the cut, C_l - C_l(kchi_max)
+The cut, its boost and its complement, as in the flat skies (:mod:`topology.skies.flat_cut`).
+The space's modes are kept to 0 < k chi_rec <= kchi_max, tapered over the last few units of
+k chi_rec. With ``complement`` (the default) they carry the skies' boosted weight
+(:func:`topology.skies.flat_cut.cut_profile`: modes below the cut take over the power of those
+beyond it) and the isotropic power still missing, C_l - C_l(kchi_max)
 (:func:`topology.skies.flat_cut.complement_cl`), is added on the diagonal, C_l the isotropic
 spectrum of the terms (:func:`topology.skies.spectra.isotropic_cl`) and C_l(kchi_max) the
-continuum integral of the kept, tapered modes (:func:`topology.skies.flat_cut.kept_cl`); the
-reference is then the isotropic C_l itself. The complement stands in for the lattice modes beyond the cut as if they were
-isotropic: at l <= lmax they carry little of the topology (a mode of k chi_rec >> l projects
-onto multipole l in small caps about +-k^), and the divergence converges fast in the cut
-(E1 of side 1, 2, 2.5 chi_rec at lmax 10: within 0.2 % of its value at kchi_max = 80 for
-kchi_max = 40, against 10, 6 and 1 % above it without the complement). Without it (``complement=False``) the reference is the isotropic sky of the
+continuum integral of the kept, weighted modes; the reference is then the isotropic C_l itself.
+At the default cut (3 lmax + 10) the modes beyond carry a few per cent of C_lmax and little
+of the topology (a mode of k chi_rec >> l projects onto multipole l in small caps about
++-k^), and the divergence converges fast in the cut (E1 of side 1, 2, 2.5 chi_rec at lmax 10:
+within 0.2 % of its value at kchi_max = 80 for kchi_max = 40 with the isotropic complement,
+against 10, 6 and 1 % above it without). Without it (``complement=False``) the reference is the isotropic sky of the
 same cut, C_l(kchi_max): a space much larger than chi_rec tends to it on the diagonal, and a
 small space whose modes below the cut span fewer than N directions has a singular covariance.
 """
@@ -106,6 +108,28 @@ def check_kchi_max(kchi_max, lmax: int, where: str = "[harmonic] kchi_max") -> f
     return float(k)
 
 
+def spherical_covariance(space, observer, cosmology, *, lmax: int, terms=("sw",), kchi_max: float | None = None,
+                         complement: bool = True, block: int | None = None) -> HarmonicCovariance:
+    """The covariance of the real a_lm (l = 2..lmax, microK^2) of a spherical space, Sachs-Wolfe:
+    the skies' invariant S^3 modes to kmax = ceil(2 lmax / chi) (or ceil(kchi_max / chi)) and, with
+    ``complement``, the isotropic power of the degrees beyond against the S^3 spectrum of all
+    degrees; without, exactly the skies' distribution (their tail weights) against S^3 of the same
+    degrees (:mod:`topology.harmonic.spherical`). kchi_max of the result: kmax chi_rec / R_c."""
+    from .spherical import check_spherical, mode_work, spherical_cut, spherical_mode_blocks
+
+    lmax = check_lmax(lmax)
+    chi = check_spherical(space, observer, cosmology, terms)
+    cut = spherical_cut(cosmology, lmax, chi, kchi_max, complement)
+    C = covariance_from_blocks(spherical_mode_blocks(space, observer, cosmology, lmax, cut, block),
+                               n_coefficients(lmax))
+    C[np.diag_indices_from(C)] += isotropic_diagonal(cut.cl_complement, lmax)
+    meta = {"family": space.family, "params": dict(space.params), "observer": [float(v) for v in observer.point],
+            "complement": bool(complement), "geometry": "spherical", "kmax": cut.kmax, "chi": chi,
+            "tail_A": cut.tail["A"] if cut.tail else 0.0}
+    return HarmonicCovariance(C, lmax, cut.kchi_max, tuple(terms), cut.cl_iso, cut.cl_complement,
+                              mode_work(space, lmax, cut.kmax)[0], meta)
+
+
 def space_covariance(space, observer, cosmology, *, lmax: int, terms=("sw",), kchi_max: float | None = None,
                      complement: bool = True, block: int | None = None) -> HarmonicCovariance:
     """The covariance of the real a_lm (l = 2..lmax, microK^2) of ``space`` seen by ``observer``.
@@ -113,30 +137,36 @@ def space_covariance(space, observer, cosmology, *, lmax: int, terms=("sw",), kc
     Flat families E1-E17 (lengths in chi_rec; E11-E17 through the skies' compact cover), the
     modes 0 < k chi_rec <= kchi_max (default :func:`default_kchi_max`) and, with ``complement``,
     the isotropic power beyond (see the module doc); terms ["sw"] or ["sw", "doppler", "isw"]
-    (CAMB transfer). Spherical spaces: not yet (InputError).
+    (CAMB transfer). Spherical spaces (lens, prism, polyhedral): :func:`spherical_covariance`.
     """
     lmax = check_lmax(lmax)
     terms = check_terms(terms)
-    kchi = check_kchi_max(kchi_max, lmax)
     geometry = getattr(space, "geometry", None)
+    if geometry == "spherical":
+        return spherical_covariance(space, observer, cosmology, lmax=lmax, terms=terms, kchi_max=kchi_max,
+                                    complement=complement, block=block)
+    kchi = check_kchi_max(kchi_max, lmax)
     if geometry != "flat":
-        raise InputError(f"the harmonic covariance is available for flat spaces only so far, not {geometry} "
+        raise InputError(f"the harmonic covariance is available for flat and spherical spaces, not {geometry} "
                          f"(family {getattr(space, 'family', None)})", "[space] family")
     from .flat import flat_mode_blocks, mode_count
 
+    from ..skies.flat_cut import complement_cl, cut_profile, kept_cl
+    from ..skies.flat_modes import plain_profile
+    from ..skies.spectra import isotropic_cl
+
     radial = radial_function(cosmology, lmax, terms)
-    C = covariance_from_blocks(flat_mode_blocks(space, observer, cosmology, lmax, kchi, radial, block),
+    from ..skies.flat_modes import compact_cover
+
+    volume = (space if space.compact else compact_cover(space, observer)[0]).covering_cell_volume
+    profile = cut_profile(cosmology, lmax, kchi, terms, volume=volume)[0] if complement else plain_profile(kchi)
+    C = covariance_from_blocks(flat_mode_blocks(space, observer, cosmology, lmax, kchi, radial, block, profile),
                                n_coefficients(lmax))
     if complement:
-        from ..skies.flat_cut import complement_cl
-        from ..skies.spectra import isotropic_cl
-
         cl_ref = isotropic_cl(cosmology, lmax, terms)
-        tail = complement_cl(cosmology, lmax, kchi, terms)
+        tail = complement_cl(cosmology, lmax, kchi, terms, volume=volume)
         C[np.diag_indices_from(C)] += isotropic_diagonal(tail, lmax)
     else:
-        from ..skies.flat_cut import kept_cl
-
         cl_ref, tail = kept_cl(cosmology, lmax, kchi, terms), np.zeros(lmax + 1)
     meta = {"family": space.family, "params": dict(space.params),
             "observer": np.asarray(observer.point[:3], dtype=float).tolist(), "complement": bool(complement)}

@@ -59,13 +59,16 @@ FULL = ("sw", "doppler", "isw")
 CL_ACCURACY = 0.01
 #: the boost bumps of :func:`cut_profile` cover k chi_rec in [K (1 - BOOST_SPAN), K]
 BOOST_SPAN = 0.5
+#: the share of the power beyond the cut that the boosted lattice modes carry (the rest: the
+#: isotropic complement); see :func:`cut_profile`
+BOOST_SHARE = 0.5
 #: cost of the largest bump coefficient in the programme of :func:`cut_profile`, per multipole
 BOOST_PENALTY = 1e-3
 #: the boosted lattice may exceed the isotropic C_l by this fraction of CL_ACCURACY
 BOOST_OVERSHOOT = 0.2
 #: lattice modes per bump shell below which a boost is not placed (:func:`dense_from`)
 DENSE_MODES = 100
-#: the lattice cut (:func:`lattice_cut`) leaves at most this share of any C_l to the complement
+#: at the lattice cut (:func:`lattice_cut`) the boost falls short of its share by at most this fraction of any C_l
 LATTICE_SHARE = 0.02
 
 
@@ -253,7 +256,7 @@ def _bump_layout(kchi: float, volume: float | None = None) -> tuple[np.ndarray, 
 
 @lru_cache(maxsize=64)
 def _profile_cached(cosmology, lmax: int, kchi: float, terms: tuple, source: str, accuracy: float,
-                    volume: float | None):
+                    volume: float | None, share: float):
     from scipy.optimize import linprog
 
     from .flat_modes import CutProfile
@@ -271,7 +274,7 @@ def _profile_cached(cosmology, lmax: int, kchi: float, terms: tuple, source: str
     B = spectrum_rows(cosmology, lmax, x, terms, source, K) @ bumps.T               # (lmax + 1, J)
     ell = slice(2, lmax + 1)
     A = B[ell] / iso[ell, None]                     # relative power of each bump at each l
-    miss = (iso[ell] - taper[ell]) / iso[ell]       # relative power the cut leaves out
+    miss = share * (iso[ell] - taper[ell]) / iso[ell]     # the boost's share of the power the cut leaves out
     L, J = A.shape
     # variables c (J), s (L), o (L), z: minimise sum_l (s_l + o_l) + BOOST_PENALTY L z  s.t.
     # A c <= miss + BOOST_OVERSHOOT accuracy,  miss - A c <= s,  A c - miss <= o,  c_j <= z,  all >= 0
@@ -292,49 +295,72 @@ def _profile_cached(cosmology, lmax: int, kchi: float, terms: tuple, source: str
 
 
 def cut_profile(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb",
-                accuracy: float = CL_ACCURACY, volume: float | None = None):
+                accuracy: float = CL_ACCURACY, volume: float | None = None, share: float | None = None):
     """(profile, kept C_l): the radial weight of a flat sky's lattice modes up to the cut K and
     the expected C_l it gives (microK^2, l = 0..lmax).
 
     The taper alone leaves out C_l - C_l(K) (:func:`kept_cl`). Bumps below the cut
     (:class:`~topology.skies.flat_modes.CutProfile`, over the top BOOST_SPAN of [0, K]) raise the
-    weight of the modes there so that they carry that power: c_j >= 0 from the linear programme
+    weight of the modes there so that they carry the share b (``share``, default BOOST_SHARE) of
+    that power: c_j >= 0 from the linear programme
 
         minimise sum_l |m_l - sum_j c_j A_lj| + p L max_j c_j   s.t.   sum_j c_j A_lj <= m_l + e accuracy
 
-    A_lj the power of bump j at multipole l and m_l the power left out, both relative to the
-    isotropic C_l (l = 2..lmax, L of them). The cost on the largest c_j (p = BOOST_PENALTY)
-    spreads the boost over the bumps: without it the programme's vertex solutions put it in a few
-    (w^2 up to 17 at K = 1.5 lmax), with it w^2 <= 2.5 for a shortfall larger by < 0.005.
-    The sky then has the isotropic C_l to within e accuracy above (e = BOOST_OVERSHOOT) and a
-    shortfall below,
-    which the isotropic complement makes up (:func:`complement_cl`). Bumps only where the lattice
-    of a torus of ``volume`` (chi_rec^3; None: the continuum) is dense (:func:`dense_from`): the
-    weights act on lattice modes, and C_l of a sparse shell is not its continuum integral (a cube
-    of side 0.4 chi_rec has no mode below k chi_rec = 15.7, so a boost there would claim power its
-    sky lacks); without dense shells the profile is the taper alone. Every mode is a mode of the
-    space, so the matched-circle correlations of the power that a bare cut loses are kept; a
-    mode of k chi_rec >> l adds about the same power to every l < k chi_rec (j_l(x)^2 averages
-    1 / (2 x^2)), as the modes beyond the cut do, and the bumps just below K fill l near lmax.
-    The shortfall vanishes once K is a little above lmax (:func:`lattice_cut`)."""
+    A_lj the power of bump j at multipole l and m_l = b (C_l - C_l(K)) / C_l, both relative to
+    the isotropic C_l (l = 2..lmax, L of them; e = BOOST_OVERSHOOT). The cost on the largest c_j
+    (p = BOOST_PENALTY) spreads the boost over the bumps: without it the programme's vertex
+    solutions put it in a few (w^2 up to 17 at K = 1.5 lmax). The isotropic complement
+    (:func:`complement_cl`) makes up the rest, so the C_l are the isotropic ones to within
+    e accuracy above. A mode of k chi_rec >> l adds about the same power to every l < k chi_rec
+    (j_l(x)^2 averages 1 / (2 x^2)), as the modes beyond the cut do, and the bumps just below K
+    fill l near lmax.
+
+    Why a share: on a map cut at l_max the modes beyond the cut match on the circles only in
+    part (a mode of k chi_rec >> l_max loses most of its pattern to the cut in l), so an
+    isotropic complement (share 0) understates the matched-circle correlation of the true sky
+    and lattice modes carrying all of it (share 1) overstate it. Measured on E1 (l_max 64, 2 deg
+    beam, circles of 18-66 deg, benchmarks/flat_sky_spectrum.py --circles): at K = 1.2 l_max
+    share 1 gives +0.017 to +0.028 against all modes to 5 l_max, share 0 -0.01 to -0.05; share
+    1/2 falls between (the numbers in the README).
+
+    Bumps only where the lattice of a torus of ``volume`` (chi_rec^3; None: the continuum) is
+    dense (:func:`dense_from`): the weights act on lattice modes, and C_l of a sparse shell is
+    not its continuum integral (a cube of side 0.4 chi_rec has no mode below k chi_rec = 15.7, so
+    a boost there would claim power its sky lacks); without dense shells the profile is the
+    taper alone."""
     vol = None if volume is None else round(float(volume), 12)
-    return _profile_cached(cosmology, int(lmax), float(kchi), _terms(terms), str(source), float(accuracy), vol)
+    share = BOOST_SHARE if share is None else float(share)
+    return _profile_cached(cosmology, int(lmax), float(kchi), _terms(terms), str(source), float(accuracy), vol,
+                           share)
 
 
 def lattice_cut(cosmology, lmax: int, terms=SW, source: str = "camb", share: float = LATTICE_SHARE,
                 k_limit: float | None = None, volume: float | None = None) -> float:
-    """The smallest cut K (k chi_rec, in steps of lmax / 20 from lmax) whose boosted lattice
-    (:func:`cut_profile`) leaves at most ``share`` of C_l to the isotropic complement at every
-    l <= lmax; ``k_limit`` (default 2 lmax) when none below it does."""
+    """The smallest cut K (k chi_rec, in steps of lmax / 20 from lmax) at which the boosted
+    lattice (:func:`cut_profile`) carries its share of the power beyond the cut to within
+    ``share`` of C_l at every l <= lmax (:func:`boost_shortfall`); ``k_limit`` (default 2 lmax)
+    when none below it does."""
     lmax = max(int(lmax), 2)
     top = float(k_limit) if k_limit is not None else 2.0 * lmax
     step = max(1.0, lmax / 20.0)
     K = float(lmax)
     while K < top:
-        if float(np.max(complement_share(cosmology, lmax, K, terms, source, volume=volume))) <= share:
+        if float(np.max(boost_shortfall(cosmology, lmax, K, terms, source, volume=volume))) <= share:
             return K
         K += step
     return top
+
+
+def boost_shortfall(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb",
+                    accuracy: float = CL_ACCURACY, volume: float | None = None) -> np.ndarray:
+    """(target - kept) / C_l, l = 2..lmax, clipped at 0: how far the boosted lattice of
+    :func:`cut_profile` falls short of carrying BOOST_SHARE of the power beyond the cut, target
+    = C_l(K) + BOOST_SHARE (C_l - C_l(K)) with C_l(K) the taper's kept power."""
+    terms = _terms(terms)
+    iso = isotropic_cl(cosmology, int(lmax), terms)[2:]
+    taper = kept_cl(cosmology, lmax, kchi, terms, source)[2:]
+    kept = cut_profile(cosmology, lmax, kchi, terms, source, accuracy, volume)[1][2:]
+    return np.maximum(taper + BOOST_SHARE * (iso - taper) - kept, 0.0) / iso
 
 
 def complement_share(cosmology, lmax: int, kchi: float, terms=SW, source: str = "camb",
