@@ -10,26 +10,28 @@ amplitude for the same mode from the same seed.
 Modes kept, their boost and the complement. The lattice modes 0 < k chi_rec <= K (the cut,
 :func:`choose_cut`) with the radial weight of :func:`topology.skies.flat_cut.cut_profile`: a
 taper over the last 8 of K and "boost" bumps below it whose weights make the modes there carry
-the power of the modes beyond the cut (a mode of k chi_rec >> l adds about the same power to
-every l < k chi_rec, as those beyond do), placed only where the lattice is dense. Unless
-``complete=False``, the isotropic Gaussian field of the power still missing, C_l - C_l(K)
-(:mod:`topology.skies.flat_cut`), drawn from the "tail" stream of the seed (a_lm to lmax), from
-the same spectrum function as the isotropic null skies. The expected C_l is then the isotropic
-one at every l <= lmax (to 3e-3 for E1 of side 4 chi_rec, tests/test_skies_flat_cut.py), apart
-from the lattice's discreteness at low l, which is the topology. A bare cut would need K ~ 7
-lmax for 1 % at l = lmax (SW; :func:`topology.skies.flat_cut.cut_for_accuracy`), ~350 times the
-modes of K = lmax; the boost needs K a little above lmax.
+half (BOOST_SHARE) of the power of the modes beyond the cut (a mode of k chi_rec >> l adds about
+the same power to every l < k chi_rec, as those beyond do), placed only where the lattice is
+dense. Unless ``complete=False``, the isotropic Gaussian field of the power still missing,
+C_l - C_l(K) (:mod:`topology.skies.flat_cut`), drawn from the "tail" stream of the seed (a_lm
+to lmax), from the same spectrum function as the isotropic null skies. The expected C_l is then
+the isotropic one at every l <= lmax (to 3e-3 for E1 of side 4 chi_rec,
+tests/test_skies_flat_cut.py), apart from the lattice's discreteness at low l, which is the
+topology. A bare cut would need K ~ 7 lmax for 1 % at l = lmax (SW;
+:func:`topology.skies.flat_cut.cut_for_accuracy`), ~350 times the modes of K = lmax. Why half:
+on a map cut at l_max the modes beyond the cut match on circles only in part, so lattice modes
+carrying all their power overstate the matched-circle correlation of the true sky and an
+isotropic field carrying all of it understates it (measured in
+:func:`topology.skies.flat_cut.cut_profile` and the README).
 
-Default cut: the lattice cut (:func:`topology.skies.flat_cut.lattice_cut`), the smallest K whose
-boosted lattice leaves at most LATTICE_SHARE = 2 % of any C_l (l <= lmax) to the isotropic
-complement: 1.2 lmax at lmax 64, 1.1 lmax at lmax 128 (SW), 1.15 lmax at lmax 128 (CAMB
-terms), i.e. 1.3-1.7 times the modes of K = lmax. The grid's cut is also capped by the pixels
+Default cut: the lattice cut (:func:`topology.skies.flat_cut.lattice_cut`), the smallest K at
+which the boost carries its share to within LATTICE_SHARE = 2 % of every C_l (l <= lmax): 1.15
+lmax at lmax 64, 1.1 lmax at lmax 128 (SW), 1.1-1.85 lmax with the CAMB terms, i.e. 1.3-1.5
+times the modes of K = lmax (SW). The grid's cut is also capped by the pixels
 (:func:`pixel_cut`: the sampled map holds l up to about K, and power beyond 3 N_side would alias
 in the harmonic transform) and by the cost (at most GRID_CELLS_PER_PIXEL grid cells per pixel,
 the grid of the speed target), never below lmax: K ~ lmax at the speed target (N_side 256,
-l_max 512, side 1.6 chi_rec), where the boost still carries most of the power the cut leaves
-out and the complement the rest. The complement lacks the matched-circle correlations of the
-modes it stands for; the boosted modes have them (benchmarks/flat_sky_spectrum.py --circles).
+l_max 512, side 1.6 chi_rec).
 
 Temperature terms:
 
