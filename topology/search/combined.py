@@ -147,7 +147,8 @@ def combined_rank_twist(t_a, t_b, e_a, e_b, ia, ib, w_t, w_e, orient, *, m_cut_t
         good = np.isfinite(em) & np.isfinite(ep) & (curv < 0)
         with np.errstate(invalid="ignore", divide="ignore"):
             d = np.clip(np.where(good, 0.5 * (em - ep) / np.where(good, curv, -1.0), 0.0), -0.5, 0.5)
-        out["s_eq"][rows] = np.where(good, e0 - 0.25 * (em - ep) * d, e0)
+        with np.errstate(invalid="ignore"):   # -inf neighbours: the parabola is not used there
+            out["s_eq"][rows] = np.where(good, e0 - 0.25 * (em - ep) * d, e0)
         for key, g in (("s", raw), ("s_t", st), ("s_e", se)):   # the same quadratic at j + d
             g0, gm, gp = g[r, j], g[r, (j - 1) % n], g[r, (j + 1) % n]
             with np.errstate(invalid="ignore"):
