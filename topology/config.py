@@ -112,7 +112,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "hits": Key((str,), None, "HEALPix FITS hit-count map: noise_uk scaled by 1/sqrt(hits/mean hits) "
                                   "(path relative to the config)"),
         "polarisation": Key((bool,), False, "write I, Q, U (three columns, microK) instead of T; isotropic skies "
-                                            "only, with terms ['sw', 'doppler', 'isw'] (CAMB TT, EE, TE)"),
+                                            "and flat spaces E1-E17 (eigenmode sum, needs camb), with terms "
+                                            "['sw', 'doppler', 'isw'] (CAMB TT, EE, TE)"),
         "noise_pol_uk": Key(NUMBER, None, "white noise rms per pixel on each of Q and U in microK "
                                           "(default sqrt(2) noise_uk)", _non_negative),
         "qu_convention": Key((str,), "healpix", "Q/U sign convention of the output: 'healpix' (FITS POLCCONV "
@@ -243,13 +244,16 @@ def _terms_problem(v):
 SCHEMA["harmonic"] = {
     "lmax": Key((int,), 10, "highest multipole of the real a_lm compared (l = 2..lmax, at most 50)",
                 lambda v: None if 2 <= v <= 50 else "must be in 2..50"),
-    "scales": Key((list,), None, "factors multiplying the [space] lengths and the [observer] position: one "
-                                 "divergence per scale (table, figure)", _scales_problem),
-    "kchi_max": Key(NUMBER, None, "wave-number cut k chi_rec of the space's modes (default 3 lmax + 10)", _positive),
+    "scales": Key((list,), None, "factors multiplying the [space] lengths and the [observer] position (spherical "
+                                 "spaces: the curvature radius, Omega_K / scale^2): one divergence per scale "
+                                 "(table, figure)", _scales_problem),
+    "kchi_max": Key(NUMBER, None, "wave-number cut k chi_rec of the space's modes (default 3 lmax + 10; spherical: "
+                                  "S^3 degrees k <= kchi_max / (chi_rec/R_c), default 2 lmax)", _positive),
     "terms": Key((list,), ["sw"], "temperature terms: ['sw'] (Sachs-Wolfe) or ['sw', 'doppler', 'isw'] (CAMB "
                                   "transfer)", _terms_problem),
     "complement": Key((bool,), True, "add the isotropic power of the modes beyond kchi_max on the diagonal "
-                                     "(false: the pure cut, singular for small spaces)"),
+                                     "(false: the pure cut, singular for small spaces; spherical: exactly the "
+                                     "skies' degrees and tail weights)"),
     "nside": Key((int,), None, "N_side of the pixel-space divergence (with noise_uk, mask, beam); default: "
                                "full-sky a_lm without noise", _power_of_two),
     "noise_uk": Key(NUMBER, 0.0, "white noise rms per pixel of N_side in microK (needs nside)", _non_negative),
