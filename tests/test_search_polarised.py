@@ -157,9 +157,10 @@ def _run_config(tmp_path, maps, terms=FULL):
     return cfg
 
 
-def test_run_of_field_e_plans_polarised_nulls_and_no_injections(sky, tmp_path, monkeypatch, capsys):
-    # [[maps]] field = "E": the plan keeps the field, makes no injected skies (none are polarised yet)
-    # and says so on stderr; a null task searches a polarised isotropic sky (shipped EE/TE table)
+def test_run_of_field_e_plans_polarised_nulls_and_injections(sky, tmp_path, monkeypatch, capsys):
+    # [[maps]] field = "E": the plan keeps the field and the injected families (flat: their skies are
+    # polarised, topology.run.polarised; tests/test_run_polarised.py runs one); a null task searches a
+    # polarised isotropic sky (shipped EE/TE table)
     from topology.config import load_config
     from topology.run import scan
     from topology.run import tasks as T
@@ -168,9 +169,8 @@ def test_run_of_field_e_plans_polarised_nulls_and_no_injections(sky, tmp_path, m
 
     folder, *_ = sky
     plan = plan_from_config(load_config(_run_config(tmp_path, [("pol", folder / "pol.fits", "E")])), tmp_path / "o")
-    assert plan.pol_field == "E" and plan.significance["injection_families"] == []
-    assert not [t for t in scan.build_tasks(plan) if t.id.startswith("inj/")]
-    assert "no alpha_min calibration" in capsys.readouterr().err
+    assert plan.pol_field == "E" and [f["family"] for f in plan.significance["injection_families"]] == ["E1", "E2"]
+    assert len([t for t in scan.build_tasks(plan) if t.id.startswith("inj/")]) == 2 * plan.n_injections
     monkeypatch.setattr(spectra, "have_camb", lambda: False)
     r = T.task_null(plan, T.null_id(0))
     assert len(r["s_max"]) == 3 and all(0.2 < s < 1.0 for s in r["s_max"])

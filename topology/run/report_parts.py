@@ -107,11 +107,29 @@ CAUTION = (
 )
 
 
+def field_assumptions(plan) -> str:
+    """The field the thresholds, efficiencies and bounds come from, and what its skies assume."""
+    if not plan.pol_field:
+        return (f"temperature (T): null and injected skies of {'+'.join(plan.instrument['terms']).upper()} "
+                f"temperature terms")
+    noise_pol = plan.instrument.get("noise_pol_uk")
+    noise_pol = f"{noise_pol:g}" if noise_pol is not None else f"sqrt(2) x {plan.instrument['noise_uk']:g}"
+    what = {"E": "E alone", "T+E": "T and E combined (S_TE,eq)"}[plan.pol_field]
+    return (f"{what}: null skies polarised isotropic and injected skies polarised flat skies (T and E of one "
+            f"set of modes), all from CAMB's unlensed TT, EE, TE (scalar modes, B = 0, no lensing, no "
+            f"foregrounds), beam {plan.instrument['fwhm_deg']:g} deg, white noise {plan.instrument['noise_uk']:g} "
+            f"microK on I and {noise_pol} microK on Q, U per pixel, E made from Q, U with the run's mask as "
+            f"for the data")
+
+
 def caution(plan, injection: str | None = None) -> str:
     """What the results of a run assume, for the report page and summary.json."""
     from ..injection import describe
 
-    return CAUTION.format(n_null=plan.significance["n_null"], terms="+".join(plan.instrument["terms"]).upper(),
+    text = CAUTION.format(n_null=plan.significance["n_null"], terms="+".join(plan.instrument["terms"]).upper(),
                           false_alarm=f"{plan.false_alarm:g}",
                           injection=injection or "; ".join(describe(f) for f in plan.significance["injection_families"]),
                           level=plan.efficiency_level, confidence=plan.efficiency_confidence)
+    if getattr(plan, "pol_field", None):
+        text += f" Searched field: {field_assumptions(plan)}."
+    return text

@@ -30,7 +30,7 @@ from . import calibration
 from . import tasks as T
 from . import report_parts
 from . import spectra_check
-from .report_parts import Analysis, sky_figure
+from .report_parts import Analysis, field_assumptions, sky_figure
 
 N_CANDIDATES = 10  # candidates per map in the summary and tables
 
@@ -97,10 +97,6 @@ def analyse(plan, store) -> Analysis:
     notes += [f"alpha_min of the injected {f['label']} is the lowest injected radius ({f['alpha_min_deg']:g} deg): "
               "the bound may be stronger; inject lower radii" for f in families if f["at_lowest_radius"]]
     headline = families[0]["alpha_min_deg"] if families else None
-    if plan.pol_field:
-        from .plan import POLARISED_NOTE
-
-        notes.append(f"field {plan.pol_field}: {POLARISED_NOTE}")
     spectra_rows = spectra_consistency(plan, store)
     notes += spectra_check.departure_notes(spectra_rows)
 
@@ -123,9 +119,9 @@ def analyse(plan, store) -> Analysis:
             "bounds": bounds,
             "predicted": res.get("predicted", []),
             "note": "; ".join(["circles detected: no bound is derived from this map" if is_detected else
-                               ("" if plan.pol_field else
-                                "no injected family reaches the efficiency level: no alpha_min, no bound"
+                               ("no injected family reaches the efficiency level: no alpha_min, no bound"
                                 if bounds is None else "")] + ([] if is_detected else notes)).strip("; "),
+            "field": plan.pol_field or "T",
         })
         map_values[spec.name] = res.get("map_values")
     calibration_out = {
@@ -138,7 +134,8 @@ def analyse(plan, store) -> Analysis:
         "efficiency_interval": (f"one-sided exact binomial (Clopper & Pearson 1934) limits at "
                                 f"{plan.efficiency_confidence:g} confidence; alpha_min needs the lower limit >= "
                                 f"{level:g}"),
-        "alpha_min_deg": headline, "notes": notes,
+        "alpha_min_deg": headline, "notes": notes, "field": plan.pol_field or "T",
+        "field_assumptions": field_assumptions(plan),
         "families": [{k: v for k, v in f.items() if k != "key"} | {"task_key": f["key"]} for f in families],
         "spectra_check": spectra_rows,
     }
@@ -173,11 +170,13 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
     t.write(staging / "candidates.ecsv", format="ascii.ecsv")
     tables["candidates"] = t
     t = report.thresholds_table(radii, thresholds, null)
+    t.meta["field"] = plan.pol_field or "T"
     t.write(staging / "thresholds.ecsv", format="ascii.ecsv")
     tables["thresholds"] = t
     families = calibration["families"]
     t = report.efficiency_table(families, plan.injection_radii_deg, calibration["efficiency_level"],
                                 calibration["efficiency_confidence"])
+    t.meta["field"] = plan.pol_field or "T"
     t.write(staging / "efficiency.ecsv", format="ascii.ecsv")
     tables["efficiency"] = t
 
@@ -189,8 +188,11 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
     first_bounds = next((m["bounds"] for m in analysis.maps if m["bounds"]), None)
     if first_bounds is not None:
         bt = report.bounds_table(first_bounds)
-        bt.write(staging / "bounds.ecsv", format="ascii.ecsv")
         ft = report.flat_bounds_table(first_bounds)
+        for t in (bt, ft):  # the field the bound comes from, and what its skies assume
+            t.meta["field"] = plan.pol_field or "T"
+            t.meta["field_assumptions"] = field_assumptions(plan)
+        bt.write(staging / "bounds.ecsv", format="ascii.ecsv")
         ft.write(staging / "flat_bounds.ecsv", format="ascii.ecsv")
         (staging / "bounds.tex").write_text(report.bounds_latex(bt, ft, first_bounds,
                                                                 extra_caption=exclusion_caption(plan)))
@@ -225,7 +227,9 @@ def exclusion_caption(plan) -> str:
 
     level = escape(format(plan.efficiency_level, ".0%"))
     conf = escape(format(plan.efficiency_confidence, ".0%"))
-    return (f" A radius $\\alpha \\geq \\alpha_{{\\min}}$ is excluded at false-alarm probability {plan.false_alarm:g} "
+    field = "" if not plan.pol_field else f" Searched in {escape(plan.pol_field)} (polarised null and injected skies)."
+    return field + (
+            f" A radius $\\alpha \\geq \\alpha_{{\\min}}$ is excluded at false-alarm probability {plan.false_alarm:g} "
             f"(calibrated on {plan.n_null} isotropic skies) when the one-sided {conf} lower limit on the detection "
             f"efficiency of its injected family (exact binomial, Clopper \\& Pearson 1934; {plan.n_injections} "
             f"injected skies per radius and family), not the recovered fraction, is at least {level} at that radius "

@@ -8,6 +8,10 @@ each taking the whole :class:`~topology.run.plan.RunPlan`.
   never mixes the skies of two families) or ``inj/target<k>/<j>`` (targeted run): a sky of a
   multiply connected space, observed and searched alike.
 
+In a run of field E or T+E the null and injected skies are polarised (I, Q, U; made by
+:func:`topology.run.polarised.simulate_polarised`) and searched in that field, E made from Q, U
+as for the data (:func:`polarised_input_of`).
+
 Task ids are made only by the functions below; every random draw of a task comes from the run
 seed and its id (:func:`topology.execution.task_seed`), so results do not depend on the engine.
 """
@@ -122,18 +126,6 @@ def polarised_input_of(plan, iqu, source: str):
                                                           "pol_mask": None, "nside_e": int(e.nside)})
 
 
-def simulate_polarised(plan, cosmology, seed: int) -> np.ndarray:
-    """An observed polarised isotropic null sky (I, Q, U), (3, 12 N_side^2), with the run's beam,
-    noise (``noise_uk`` on I, ``noise_pol_uk`` on Q and U) and CAMB's TT, EE, TE
-    (:mod:`topology.skies.polarised`); the mask is applied by the search, as for T."""
-    from ..skies.polarised import observe_polarised, polarised_sky
-
-    inst = plan.instrument
-    sky = polarised_sky(cosmology, lmax=plan.sim_lmax, terms=tuple(inst["terms"]), seed=seed)
-    return observe_polarised(sky, nside=plan.sim_nside, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"],
-                             noise_pol_uk=inst.get("noise_pol_uk"), seed=seed, lmax=plan.sim_lmax)
-
-
 def radii_near(plan, radius_deg: float) -> np.ndarray:
     """Mask of the run's radii within ``radius_tolerance_deg`` of ``radius_deg``: where an injected
     circle of that nominal radius counts as found."""
@@ -242,7 +234,9 @@ def task_null(plan, task_id: str) -> dict:
 
     if plan.pol_field:  # a polarised isotropic sky, searched in E or T+E as the maps are
         seed = int_seed(plan.significance["seed"], task_id)
-        m, pol = polarised_input_of(plan, simulate_polarised(plan, run_cosmology(plan), seed), task_id)
+        from .polarised import simulate_polarised
+
+        m, pol = polarised_input_of(plan, simulate_polarised(plan, None, None, run_cosmology(plan), seed), task_id)
         res = search_values(m, plan, task_id, polarised=pol)
         return {"s_max": smax_by_radius(res, plan.radii_deg), "seed": seed, "elapsed_s": res["elapsed_s"],
                 "cl": sky_power(m.values, plan.sim_lmax)}
@@ -265,11 +259,17 @@ def task_injection(plan, family: int, radius_deg: float, task_id: str) -> dict:
     radius_true = float(np.clip(radius_deg + rng.uniform(-half, half), 0.5, 89.5))
     space, observer, cosmo_inj = injection.scaled(plan.significance["injection_families"][family], radius_true, rng,
                                                   run_cosmology(plan))
-    m = simulate(plan, space, observer, cosmo_inj, seed)
+    if plan.pol_field:  # a polarised sky of the flat space, searched in E or T+E as the maps are
+        from .polarised import simulate_polarised
+
+        m, pol = polarised_input_of(plan, simulate_polarised(plan, space, observer, cosmo_inj, seed), task_id)
+    else:
+        m, pol = simulate(plan, space, observer, cosmo_inj, seed), None
     # only the radii where it counts as found are searched (each radius is searched on its own, so
     # S_max there is what a scan of every radius gives); the others stay -inf
     near = plan.radii_deg[radii_near(plan, radius_deg)]
-    res = search_values(m, plan, task_id, radii_deg=near) if near.size else {"s_max": [], "elapsed_s": 0.0}
+    res = (search_values(m, plan, task_id, radii_deg=near, polarised=pol) if near.size
+           else {"s_max": [], "elapsed_s": 0.0})
     return {"s_max": smax_by_radius(res, plan.radii_deg), "radius_deg": float(radius_deg),
             "radius_true_deg": radius_true, "seed": seed, "elapsed_s": res["elapsed_s"],
-            "omega_k": float(cosmo_inj.omega_k), "cl": sky_power(m, plan.sim_lmax)}
+            "omega_k": float(cosmo_inj.omega_k), "cl": sky_power(getattr(m, "values", m), plan.sim_lmax)}
