@@ -175,9 +175,33 @@ def _map_answer(m: dict) -> str:
         if m.get("bounds"):
             parts.append("<p>Headline bounds (every family and space in the tables below):</p>"
                          + _headline_bounds(m["bounds"]))
+    if m.get("harmonic"):
+        parts.append(_harmonic_answer(m["harmonic"]))
     if m.get("note"):
         parts.append(f"<p class='warn'>{_e(m['note'])}</p>")
     return f"<section class='answer' id='map-{name}'>{''.join(parts)}</section>"
+
+
+def _harmonic_answer(rows: list[dict]) -> str:
+    """The low-l likelihood bound of each [bounds] family beside its circle bound (both scale
+    factors of the configured shape)."""
+    from .tables import space_label
+
+    body = []
+    for h in rows:
+        circle = (f"allowed when scaled by more than {_num(h['circle_min_scale'])} ({_e(h['circle_verdict'])})"
+                  if h["circle_min_scale"] is not None else _e(h["circle_verdict"]))
+        if not h["computed"]:
+            like = _e(h.get("note") or "not computed")
+        elif h["bound_scale"] is None:
+            like = "no bound (the smallest scale is not excluded)"
+        else:
+            like = f"every scale up to {_num(h['bound_scale'])} excluded"
+        body.append(f"<tr><td class='text'>{_e(space_label(h['family'], h['params']))}</td><td class='text'>{circle}"
+                    f"</td><td class='text'>{like}</td></tr>")
+    return ("<p>Low-l likelihood bound beside the circle bound of the same family (assumptions in the table "
+            "below and under 'What these results assume'):</p><div class='box'><table><tr><th>space</th><th>matched "
+            "circles</th><th>low-l likelihood</th></tr>" + "".join(body) + "</table></div>")
 
 
 # ---------------------------------------------------------------------------------------------

@@ -159,3 +159,24 @@ def bounds_latex(curved, flat, summary: dict, extra_caption: str = "") -> str:
                              r"bounds.ecsv also gives the largest allowed $\chi_{\rm rec}/R_c$. "
                              + caption, "lrrr" + ("ll" if tags else "l"), long=True)
     return flat_tex + "\n" + curved_tex
+
+
+def harmonic_latex(t, meta: dict) -> str:
+    """The low-l likelihood bounds (table of :func:`topology.report.tables.harmonic_bounds_table`)
+    beside the circle bound of the same family, with what they assume in the caption."""
+    def status(r) -> str:
+        text = str(r["status"])
+        return "not computed" if text.startswith("not computed") else text.split(" (")[0]
+
+    rows = [[escape(r["map"]), escape(r["space"]), cell(r["circle_bound"], ".3f"), cell(r["circle_verdict"]),
+             cell(r["likelihood_bound"], ".3f"), escape(status(r))] for r in t]
+    caption = (r"Flat spaces: the circle bound (the shape is allowed when scaled by more than $s$) beside the low-$\ell$ "
+               rf"likelihood bound (every scale up to $s$ excluded at level {meta['level']:g}). The likelihood uses "
+               rf"$\ell = 2..{meta['lmax']}$ of the map at $N_{{\rm side}} = {meta['nside']}$ "
+               rf"(white noise {meta['noise_uk']:g}\,$\mu$K per pixel, beam {meta['fwhm_deg']:g}$^\circ$, mask: "
+               f"{escape(meta['mask'])}; {escape(meta['degradation'])}); statistic: {escape(meta['statistic'])}, "
+               f"{escape(meta['orientation'])}; threshold from {meta['n_cal']} simulated maps of each scale "
+               f"({escape(meta['terms'])} terms). Spherical and hyperbolic families are not computed: the likelihood "
+               "of a map is implemented for flat spaces only.")
+    return latex_table(["map", "space", "circles $s$", "circle verdict", r"low-$\ell$ $s$", "status"], rows, caption,
+                       "lp{2.6cm}rp{2.4cm}rl")

@@ -268,3 +268,72 @@ def bounds_table(summary: dict) -> Table:
                    "flat_min_loop_mpc": flat["min_loop_mpc"],
                    "cubic_torus_inscribed_radius_over_chi_rec": flat["cubic_torus_inscribed_radius_over_chi_rec"]})
     return t
+
+
+def _harmonic_meta(t: Table, meta: dict) -> None:
+    t.meta.update({k: v for k, v in meta.items() if v is not None and k != "maps"})
+
+
+def harmonic_bounds_table(maps: list[dict], meta: dict) -> Table:
+    """The low-l likelihood bound per map and [bounds] family, beside the circle bound of the same
+    family: both are scale factors of the configured shape (lengths and observer position)."""
+    rows = []
+    for m in maps:
+        for h in m.get("harmonic", []):
+            scales = [r["scale"] for r in h.get("rows", [])]
+            excluded = [r["scale"] for r in h.get("rows", []) if r["excluded"]]
+            status = (h.get("note") or "not computed") if not h["computed"] else (
+                "bound" if h["bound_scale"] is not None else "no bound (the smallest scale is not excluded)")
+            rows.append({"map": m["name"], "space": space_label(h["family"], h["params"]),
+                         "circle_bound": h["circle_min_scale"], "circle_verdict": h["circle_verdict"],
+                         "likelihood_bound": h["bound_scale"], "status": status,
+                         "smallest_scale": min(scales) if scales else None,
+                         "largest_scale": max(scales) if scales else None,
+                         "n_excluded": len(excluded) if h["computed"] else None,
+                         "n_scales": len(scales) if h["computed"] else None})
+    t = Table([
+        _column(rows, "map", "map", "U64"),
+        _column(rows, "space", "space", "U96"),
+        _column(rows, "circle_bound", "circle_bound", float, u.dimensionless_unscaled,
+                "matched circles: the shape is allowed when scaled by more than this (min_scale_factor)"),
+        _column(rows, "circle_verdict", "circle_verdict", "U40", desc="the circle verdict at scale 1"),
+        _column(rows, "likelihood_bound", "likelihood_bound", float, u.dimensionless_unscaled,
+                "low-l likelihood: every listed scale up to this one is excluded at the level"),
+        _column(rows, "smallest_scale", "smallest_scale", float, u.dimensionless_unscaled, "smallest scale tried"),
+        _column(rows, "largest_scale", "largest_scale", float, u.dimensionless_unscaled, "largest scale tried"),
+        _column(rows, "n_excluded", "n_excluded", int, desc="scales excluded (of n_scales)"),
+        _column(rows, "n_scales", "n_scales", int, desc="scales tried ([harmonic] scales)"),
+        _column(rows, "status", "status", "U160", desc="bound, no bound, or why it is not computed"),
+    ])
+    _harmonic_meta(t, meta)
+    return t
+
+
+def harmonic_profile_table(maps: list[dict], meta: dict) -> Table:
+    """The likelihood profile of each map and computed family: per scale the map's log-likelihood
+    ratio to the isotropic sky, the calibrated threshold, the verdict and the fraction of isotropic
+    simulated maps that exclude that scale (the expected power)."""
+    rows = []
+    for m in maps:
+        for h in m.get("harmonic", []):
+            for r in h.get("rows", []):
+                rows.append({"map": m["name"], "space": space_label(h["family"], h["params"]), "scale": r["scale"],
+                             "log_ratio": r["log_ratio"], "threshold": r["threshold"],
+                             "excluded": "yes" if r["excluded"] else "no",
+                             "isotropic_exclusion_rate": r["isotropic_exclusion_rate"],
+                             "nearest_image": r.get("nearest_image")})
+    t = Table([
+        _column(rows, "map", "map", "U64"),
+        _column(rows, "space", "space", "U96"),
+        _column(rows, "scale", "scale", float, u.dimensionless_unscaled, "factor of the lengths and observer position"),
+        _column(rows, "log_ratio", "log_ratio", float, desc="ln L(space) - ln L(isotropic) of the map (nats)"),
+        _column(rows, "threshold", "threshold", float,
+                desc="the (1 - level) quantile of the statistic over simulated maps of that scale"),
+        _column(rows, "excluded", "excluded", "U3", desc="log_ratio < threshold"),
+        _column(rows, "isotropic_exclusion_rate", "isotropic_exclusion_rate", float,
+                desc="fraction of isotropic simulated maps that exclude the scale"),
+        _column(rows, "nearest_image", "nearest_image", float, u.dimensionless_unscaled,
+                "distance to the observer's nearest image, chi_rec (circles exist below 2)"),
+    ])
+    _harmonic_meta(t, meta)
+    return t

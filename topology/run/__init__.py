@@ -57,11 +57,16 @@ def task_keys(plan: RunPlan) -> tuple[str, dict]:
 
 def build_tasks(plan: RunPlan) -> list[Task]:
     """Every task of the run, each with the key of its inputs."""
+    from . import harmonic
     from .tasks import data_id
 
     common, data = task_keys(plan)
     keys = {data_id(name): key for name, key in data.items()}
-    return [replace(t, key=keys.get(t.id, common)) for t in kind_of(plan).build_tasks(plan)]
+    if harmonic.of(plan):  # a map's likelihood reads its file, as its search does
+        keys.update({harmonic.harmonic_id(f["index"], name): key for name, key in data.items()
+                     for f in harmonic.of(plan)["families"]})
+    tasks = kind_of(plan).build_tasks(plan) + harmonic.build_tasks(plan)
+    return [replace(t, key=keys.get(t.id, common)) for t in tasks]
 
 
 def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progress: bool | None = None,
@@ -85,6 +90,8 @@ def run(plan: RunPlan, *, force: bool = False, resume: bool = False, show_progre
 
 
 def _execute(plan: RunPlan, folder, store, show_progress) -> dict:
+    from . import harmonic
+
     kind = kind_of(plan)
     timings = {}
     t0 = time.perf_counter()
@@ -105,6 +112,7 @@ def _execute(plan: RunPlan, folder, store, show_progress) -> dict:
     timings["tasks_s"] = counts["elapsed_s"]
     t1 = time.perf_counter()
     analysis = kind.analyse(plan, store)
+    harmonic.analyse(plan, store, analysis)
     timings["analysis_s"] = time.perf_counter() - t1
     provenance = {
         "config": plan.sections, "config_hash": plan.config_hash, "versions": output.versions(),
@@ -118,8 +126,8 @@ def _execute(plan: RunPlan, folder, store, show_progress) -> dict:
     if folder is None:  # a caller-given store (a notebook): nothing is written
         return {"maps": analysis.maps, "calibration": analysis.calibration, "provenance": provenance,
                 "analysis": analysis}
-    summary = {"maps": analysis.maps, "calibration": analysis.calibration, "caution": kind.caution(plan),
-               "provenance": provenance}
+    summary = {"maps": analysis.maps, "calibration": analysis.calibration,
+               "caution": kind.caution(plan) + harmonic.caution(plan), "provenance": provenance}
 
     later_notes = []  # said once the report is in place
 
@@ -129,6 +137,7 @@ def _execute(plan: RunPlan, folder, store, show_progress) -> dict:
         t2 = time.perf_counter()
         timings["report_s"] = 0.0
         tables, figures = kind.write_report(plan, analysis, summary, staging)
+        tables = harmonic.write_report(plan, analysis, staging, tables)
         report.write_index(staging, summary, tables, figures, summary["caution"])
         if os.environ.get(SCREENSHOT_ENV, "1") != "0":  # page.png, when a Chromium is installed
             from ..report.browser import screenshot
