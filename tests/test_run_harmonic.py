@@ -142,5 +142,5 @@ def test_degrading_keeps_the_signal_and_predicts_the_noise():
     assert sorted(np.flatnonzero(~kept)) == sorted(hp.nest2ring(8, parents))
 
     noise = np.array([degrade(rng.normal(0.0, 5.0, fine.size), np.ones(fine.size, bool), 8, ratio)[0]
-                      for _ in range(40)])
+                      for _ in range(20)])
     assert np.std(noise) == pytest.approx(degraded_noise(5.0, 16, ratio), rel=0.05)
