@@ -164,3 +164,18 @@ def test_combine_counts_only_usable_pairs():
     assert comb[0] == pytest.approx((0.9 + eq(0.5, 0.4)) / 2, rel=1e-12)
     assert comb[1] == pytest.approx((eq(0.9, 0.5) - 0.3) / 2, rel=1e-12)
     assert comb[2] == -np.inf
+
+
+def test_orientations_are_ranked_by_stouffer_z():
+    # check: Stouffer et al. 1949: Z = sum_p S_eq,p / sqrt(P_used), one null spread for every
+    # P_used; the mean would put one chance pair of S_eq 0.9 above three true pairs of 0.6
+    comb = np.array([0.9, 0.6, -np.inf])
+    used = np.array([1, 3, 0])
+    z = tg.orientation_score(comb, used)
+    assert z[0] == pytest.approx(0.9) and z[1] == pytest.approx(0.6 * np.sqrt(3)) and z[2] == -np.inf
+    assert np.argmax(z) == 1 and np.argmax(comb) == 0
+
+
+def test_targeted_result_reports_z_of_its_pairs(masked_search):
+    _, _, res = masked_search
+    assert res["Z_combined"] == pytest.approx(res["S_combined"] * np.sqrt(res["n_pairs_used"]), rel=1e-12)

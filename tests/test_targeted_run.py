@@ -40,12 +40,14 @@ def test_lens_sky_detected_as_its_space_and_isotropic_sky_not(targeted_run):
     lens, iso = summary["maps"]
     assert lens["detected"] and not iso["detected"]
     t = lens["targets"][0]
-    assert t["S_combined"] > 0.85 and t["S_combined"] > t["threshold"]
+    assert t["S_combined"] > 0.85 and t["Z_combined"] > t["threshold"]
+    # check: Stouffer et al. 1949, Z = sum S_eq / sqrt(P) = sqrt(P) times the mean
+    assert t["Z_combined"] == pytest.approx(t["S_combined"] * np.sqrt(t["n_pairs_used"]), rel=1e-9)
     assert t["p_value"] == pytest.approx(1 / 10)  # above every null sky: the +1-corrected minimum
     chi = plan.cosmology.chi_rec_over_curvature_radius
     alpha = np.degrees(np.arccos(np.tan(np.pi / 8) / np.tan(chi)))
     assert all(abs(c["radius_deg"] - alpha) < 1e-6 for c in lens["candidates"])
-    assert iso["targets"][0]["S_combined"] < iso["targets"][0]["threshold"]
+    assert iso["targets"][0]["Z_combined"] < iso["targets"][0]["threshold"]
 
 
 def test_thresholds_are_the_null_quantiles_and_exclusion_follows_efficiency(targeted_run):
@@ -77,7 +79,7 @@ def test_targeted_threshold_matches_significance_module(targeted_run, tmp_path):
     null = []
     for i in range(9):
         with open(plan.out_dir / "store" / "tasks" / f"null_{i:05d}.pkl", "rb") as fh:
-            null.append(pickle.load(fh)["result"]["s_comb"])
+            null.append(pickle.load(fh)["result"]["z_comb"])
     th = sig.thresholds([0], np.array(null), 0.2, smooth=False)
     assert summary["calibration"]["threshold_whole_range"][0] == pytest.approx(th.whole_range[0])
     assert summary["calibration"]["threshold_local"][0] == pytest.approx(np.quantile(null, 0.8, method="higher"))

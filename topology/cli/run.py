@@ -23,7 +23,7 @@ def headline(m: dict) -> str:
         parts = []
         for t in m["targets"]:
             what = "DETECTED" if t["detected"] else ("excluded" if t["excluded"] else "not excluded")
-            parts.append(f"{t['target']} {what} (S_comb {t['S_combined']:.3f} vs threshold {t['threshold']:.3f}, "
+            parts.append(f"{t['target']} {what} (Z_comb {t['Z_combined']:.3f} vs threshold {t['threshold']:.3f}, "
                          f"efficiency {t['efficiency']:.0%})")
         return f"{m['name']}: " + "; ".join(parts)
     if m["detected"]:

@@ -146,7 +146,8 @@ def _map_answer(m: dict) -> str:
         for t in m["targets"]:
             what = "DETECTED" if t["detected"] else ("excluded" if t["excluded"] else "not excluded")
             parts.append(f"<li>{_e(t['target'])}: {_verdict_html(what) if what != 'DETECTED' else '<b>detected</b>'} "
-                         f"(S_comb = {_num(t['S_combined'])}, threshold {_num(t['threshold'])}, global p = "
+                         f"(Z_comb = {_num(t['Z_combined'])}, threshold {_num(t['threshold'])}, S_comb = "
+                         f"{_num(t.get('S_combined'))}, global p = "
                          f"{_num(t['p_value'])}, detection efficiency {_num(t['efficiency'])}, lower limit "
                          f"{_num(t['efficiency_lower'])})</li>")
         parts.append("</ul>")

@@ -91,11 +91,14 @@ def target_tables(maps: list[dict], calibration: dict, th, null, *, false_alarm:
     rows = []
     for m in maps:
         for r in m["targets"]:
-            rows.append((m["name"], r["target"], r["S_combined"], r["threshold"], r["p_value"], r["efficiency"],
+            s_comb = r.get("S_combined")
+            rows.append((m["name"], r["target"], r["Z_combined"], r["threshold"],
+                         float("nan") if s_comb is None else s_comb, r["p_value"], r["efficiency"],
                          r["efficiency_lower"], "detected" if r["detected"] else ("excluded" if r["excluded"] else
                                                                                 "not excluded")))
-    names = ("map", "target", "S_combined", "S_threshold", "p_value", "efficiency", "efficiency_lower", "outcome")
-    t = Table(rows=rows, names=names, dtype=("U64", "U128", float, float, float, float, float, "U16"))
+    names = ("map", "target", "Z_combined", "Z_threshold", "S_combined", "p_value", "efficiency", "efficiency_lower",
+             "outcome")
+    t = Table(rows=rows, names=names, dtype=("U64", "U128", float, float, float, float, float, float, "U16"))
     t.meta.update(false_alarm=false_alarm, n_null=n_null, efficiency_level=efficiency_level,
                   n_injections_per_target=n_injections)
     tt = Table()

@@ -2,22 +2,24 @@
 
 With ``[search] mode = "targeted"`` the run tests each space of ``[search] targets`` (tables in
 the ``[space]`` format, optionally with an observer ``position``; the background is the run's
-``[cosmology]``). For each target the statistic is the targeted search's combined value
-S_comb = (1/P_used) sum_p S_eq,p, the mean chance-equivalent S (S_eq = sign(S) sqrt(1 - (1 -
-S^2)^f) for a jointly kept fraction f; S_eq = S on full circles) of the target's P_used usable
-predicted pairs at the best orientation of the space (and best observer position), see
-:mod:`topology.search.targeted`.
+``[cosmology]``). For each target the statistic is the targeted search's Stouffer value
+Z_comb = P_used^-1/2 sum_p S_eq,p (Stouffer et al. 1949) of the chance-equivalent S (S_eq =
+sign(S) sqrt(1 - (1 - S^2)^f) for a jointly kept fraction f; S_eq = S on full circles) of the
+target's P_used usable predicted pairs at the orientation of the space (and observer position)
+that maximises it, see :mod:`topology.search.targeted`; the mean S_comb = Z_comb / sqrt(P_used)
+is reported beside it. Z has one null spread whatever P_used, so an orientation or sky that
+leaves few pairs usable is not favoured.
 
 * Null calibration: every null sky is searched for every target; per target, the local
-  threshold is the (1 - p) quantile of the null S_comb and the look-elsewhere threshold over the
-  targets is mean + z_thr std with z_thr from each null sky's largest standardised S_comb over
+  threshold is the (1 - p) quantile of the null Z_comb and the look-elsewhere threshold over the
+  targets is mean + z_thr std with z_thr from each null sky's largest standardised Z_comb over
   the targets (the standardised-maximum method of :mod:`topology.significance`, without the
   smoothing across radius, which has no meaning across targets).
 * Sensitivity: ``[significance] n_injections`` skies of each target space itself (random
   orientation, the configured observer position), observed like the data and searched for
   that target: its efficiency is the fraction above its threshold, with one-sided exact
   binomial limits (Clopper & Pearson 1934) at ``efficiency_confidence``.
-* Outcome per map and target: detected (S_comb above the threshold), or excluded (not detected
+* Outcome per map and target: detected (Z_comb above the threshold), or excluded (not detected
   and the lower limit of the efficiency at least ``efficiency_level``), or not excluded. No alpha_min is derived in
   this mode: a radius scan (antipodal or all-pairs) does that.
 """
@@ -83,30 +85,31 @@ def target_name(target: dict) -> str:
 
 
 def search_targets(values, plan, source: str) -> dict:
-    """Search one sky for every target: {"s_comb": (n_targets,), "results": [search results]}."""
+    """Search one sky for every target: {"z_comb": (n_targets,), "results": [search results]} (-inf
+    for a target with no usable pair)."""
     from ..maps import as_skymap
 
     sky = values if hasattr(values, "observed") else as_skymap(values, source=source)
     cosmo = plan.sections.get("cosmology", {})
-    s_comb, results = [], []
+    z_comb, results = [], []
     for t in plan.targets:
         res = T.search_values(sky, plan, source, scenario=_scenario_for(t, cosmo, plan.base_dir))
-        v = res.get("targeted", {}).get("S_combined")
-        s_comb.append(-1.0 if v is None or not np.isfinite(v) else float(v))
+        v = res.get("targeted", {}).get("Z_combined")
+        z_comb.append(-np.inf if v is None or not np.isfinite(v) else float(v))
         results.append(res)
-    return {"s_comb": np.array(s_comb), "results": results}
+    return {"z_comb": np.array(z_comb), "results": results}
 
 
 def task_null(plan, task_id: str) -> dict:
     m, seed = T.null_map(plan, task_id)
-    return {"s_comb": search_targets(m, plan, task_id)["s_comb"], "seed": seed}
+    return {"z_comb": search_targets(m, plan, task_id)["z_comb"], "seed": seed}
 
 
 def task_data(plan, name: str) -> dict:
     """The stored result of a data map's targeted search (JSON-able, per target)."""
     values, source, nside, extra = T.read_or_make_map(plan, name)
     out = search_targets(values, plan, source)
-    return {"s_comb": out["s_comb"], "targets": [r.get("targeted", {}) for r in out["results"]],
+    return {"z_comb": out["z_comb"], "targets": [r.get("targeted", {}) for r in out["results"]],
             "candidates": [r["candidates"] for r in out["results"]], "nside": nside, **extra}
 
 
@@ -124,7 +127,7 @@ def task_injection(plan, target: int, task_id: str) -> dict:
                          f"{WHERE} #{target + 1}")
     m = T.simulate(plan, sc.space, obs, sc.cosmology, seed)
     out = search_targets(m, replace(plan, targets=[plan.targets[target]]), task_id)
-    return {"s_comb": float(out["s_comb"][0]), "seed": seed}
+    return {"z_comb": float(out["z_comb"][0]), "seed": seed}
 
 
 def check_injectable(targets: list[dict], cosmo_section, base_dir, lmax: int) -> None:
@@ -154,13 +157,13 @@ def build_tasks(plan) -> list[Task]:
 
 
 def analyse(plan, store) -> Analysis:
-    """Per map and target: S_comb, thresholds, p-values, efficiency, detected / excluded."""
+    """Per map and target: Z_comb, thresholds, p-values, efficiency, detected / excluded."""
     targets = plan.targets
     names = [target_name(t) for t in targets]
     n_null, fa, level, n_inj = plan.n_null, plan.false_alarm, plan.efficiency_level, plan.n_injections
-    null = np.array([store.get(T.null_id(i))["s_comb"] for i in range(n_null)], dtype=float).reshape(n_null, -1)
+    null = np.array([_stored_z(store, T.null_id(i)) for i in range(n_null)], dtype=float).reshape(n_null, -1)
     th = sig.thresholds(np.arange(len(targets)), null, fa, smooth=False)
-    inj = np.array([[store.get(T.target_injection_id(k, j))["s_comb"] for k in range(len(targets))]
+    inj = np.array([[_stored_z(store, T.target_injection_id(k, j)) for k in range(len(targets))]
                     for j in range(n_inj)], dtype=float)
     e = sig.efficiency(inj > th.whole_range[None, :], plan.efficiency_confidence)
     eff, eff_lo, eff_hi = e.fraction, e.lower, e.upper
@@ -168,14 +171,15 @@ def analyse(plan, store) -> Analysis:
     maps_out, map_values = [], {}
     for spec in plan.maps:
         res = store.get(T.data_id(spec.name))
-        s = np.asarray(res["s_comb"], float)
+        s = np.asarray(_stored_z(store, T.data_id(spec.name)), float)
         is_detected = bool(np.any(s > th.whole_range))
         p_local = sig.local_p_values(s[None, :], null)[0]
         rows, cands = [], []
         for k, name in enumerate(names):
             detected_k = bool(s[k] > th.whole_range[k])
             p_k = sig.global_p_value(np.where(np.arange(len(targets)) == k, s, -np.inf), null, smooth=False)
-            rows.append({"target": name, "family": targets[k]["family"], "S_combined": float(s[k]),
+            rows.append({"target": name, "family": targets[k]["family"], "Z_combined": float(s[k]),
+                         "S_combined": res["targets"][k].get("S_combined"),
                          "threshold": float(th.whole_range[k]), "threshold_local": float(th.local[k]),
                          "p_value": p_k, "p_value_local": float(p_local[k]), "detected": detected_k,
                          "efficiency": float(eff[k]), "efficiency_lower": float(eff_lo[k]),
@@ -214,28 +218,40 @@ def analyse(plan, store) -> Analysis:
 # ---------------------------------------------------------------------------------------------
 # report parts
 # ---------------------------------------------------------------------------------------------
+def _stored_z(store, task_id: str):
+    """The stored Z_comb of a task; InputError for a result stored by a version before Z_comb."""
+    res = store.get(task_id)
+    if "z_comb" not in res:
+        raise InputError("this run's stored targeted results predate the Stouffer statistic Z_comb; "
+                         "start the run again with --force or in a new output folder", task_id)
+    return res["z_comb"]
+
+
 def latex(t, plan) -> str:
     """The target outcomes as a LaTeX table with the statistic and levels in its caption."""
     from ..report.latex import cell, escape, latex_table
 
-    caption = (r"Targeted matched-circle tests. $S_{\rm comb}$ is the mean over the usable predicted pairs at "
-               r"the best orientation of the m-weighted S statistic (Cornish, Spergel \& Starkman 2004) in its "
+    caption = (r"Targeted matched-circle tests. $Z_{\rm comb} = P^{-1/2}\sum_p S_{{\rm eq},p}$ (Stouffer et al. "
+               r"1949) over the $P$ usable predicted pairs at the orientation that maximises it, of the m-weighted S "
+               r"statistic (Cornish, Spergel \& Starkman 2004) in its "
                r"chance-equivalent form $S_{\rm eq} = {\rm sign}(S)\sqrt{1 - (1 - S^2)^f}$ for a jointly kept "
-               r"fraction $f$ of the circles ($S_{\rm eq} = S$ on full circles); "
+               r"fraction $f$ of the circles ($S_{\rm eq} = S$ on full circles); $S_{\rm comb}$ is their mean; "
                f"thresholds at false-alarm probability {plan.false_alarm:g} over all targets, "
                f"from {plan.n_null} isotropic skies; efficiency from {plan.n_injections} skies of each space; a "
                f"space is excluded when it is not detected and the one-sided "
                f"{escape(format(plan.efficiency_confidence, '.0%'))} lower limit on its efficiency (exact binomial, "
                f"Clopper \\& Pearson 1934), not the recovered fraction, is at least "
                f"{escape(format(plan.efficiency_level, '.0%'))}.")
-    header = ["map", "space", r"$S_{\rm comb}$", r"$S_{\rm thr}$", "$p$", "efficiency", "outcome"]
-    rows = [[cell(row["map"]), cell(row["target"]), cell(row["S_combined"], ".3f"), cell(row["S_threshold"], ".3f"),
-             cell(row["p_value"], ".3g"), cell(row["efficiency"], ".2f"), cell(row["outcome"])] for row in t]
-    return latex_table(header, rows, caption, "llrrrrl")
+    header = ["map", "space", r"$Z_{\rm comb}$", r"$Z_{\rm thr}$", r"$S_{\rm comb}$", "$p$", "efficiency",
+              "outcome"]
+    rows = [[cell(row["map"]), cell(row["target"]), cell(row["Z_combined"], ".3f"), cell(row["Z_threshold"], ".3f"),
+             cell(row["S_combined"], ".3f"), cell(row["p_value"], ".3g"), cell(row["efficiency"], ".2f"),
+             cell(row["outcome"])] for row in t]
+    return latex_table(header, rows, caption, "llrrrrrl")
 
 
 def figure_targets(base, name: str, m: dict, analysis: Analysis) -> list[str]:
-    """S_comb of the map per target over the null spread and the threshold."""
+    """Z_comb of the map per target over the null spread and the threshold."""
     from ..plots import pyplot
     from ..report.figures import save_figure
 
@@ -245,9 +261,9 @@ def figure_targets(base, name: str, m: dict, analysis: Analysis) -> list[str]:
     fig, ax = plt.subplots(figsize=(7, 4))
     ax.boxplot([null[:, k] for k in x], positions=x, widths=0.5, showfliers=True)
     ax.plot(x, th.whole_range, "r_", markersize=30, mew=2, label=f"threshold (false alarm {th.false_alarm:g})")
-    ax.plot(x, [r["S_combined"] for r in m["targets"]], "k*", markersize=12, label=name)
+    ax.plot(x, [r["Z_combined"] for r in m["targets"]], "k*", markersize=12, label=name)
     ax.set_xticks(x, analysis.calibration["targets"], rotation=20, fontsize=7)
-    ax.set_ylabel("S_comb (mean S_eq of the usable predicted pairs)")
+    ax.set_ylabel("Z_comb (sum of the usable pairs' S_eq / sqrt of their number)")
     ax.legend(fontsize=8, loc="lower right")
     ax.set_title(f"{name}: targeted statistic against {th.n_null} null skies", fontsize=10)
     return save_figure(fig, base)

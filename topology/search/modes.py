@@ -272,7 +272,8 @@ class TargetedMode(Mode):
         pairs = tg.predicted_pairs(ctx, position)
         work = new_work()
         if not pairs:
-            return {"position": position, "pairs": [], "S_combined": None, "n_pairs_used": 0, "euler_deg": None,
+            return {"position": position, "pairs": [], "S_combined": None, "Z_combined": None, "n_pairs_used": 0,
+                    "euler_deg": None,
                     "work": work, "levels": []}
         levels = self.levels(ctx)
         evaluate = self.evaluator(ctx, pairs)
@@ -282,7 +283,9 @@ class TargetedMode(Mode):
         comb, used = tg.combine(sv, f, ok)
         R = tg.rotations(best[:1])[0]
         return {"position": position, "pairs": tg.pair_records(pairs, R, sv[0], f[0], ok[0], levels[-1].nside),
-                "S_combined": float(comb[0]) if used[0] else None, "n_pairs_used": int(used[0]),
+                "S_combined": float(comb[0]) if used[0] else None,
+                "Z_combined": float(tg.orientation_score(comb, used)[0]) if used[0] else None,
+                "n_pairs_used": int(used[0]),
                 "euler_deg": [float(v) for v in np.degrees(best[0])], "work": work, "levels": info,
                 "rotation": R.tolist()}
 
@@ -295,11 +298,12 @@ class TargetedMode(Mode):
         valid = [r for r in results.values() if r["S_combined"] is not None]
         if not valid:
             return {"candidates": [], "s_max": [], "work": work, "targeted": {"positions": list(results.values())}}
-        best = max(valid, key=lambda r: r["S_combined"])
+        best = max(valid, key=lambda r: r["Z_combined"])      # Stouffer's Z ranks positions as it ranks orientations
         cands, s_max = tg.targeted_candidates(ctx, best)
         return {"candidates": cands, "s_max": s_max, "work": work,
                 "targeted": {"family": ctx.scenario.space.family, "best_position": best["position"],
                              "best_euler_deg": best["euler_deg"], "S_combined": best["S_combined"],
+                             "Z_combined": best["Z_combined"],
                              "n_pairs": len(best["pairs"]), "n_pairs_used": best["n_pairs_used"],
-                             "positions": [{k: r.get(k) for k in ("position", "S_combined", "n_pairs_used",
+                             "positions": [{k: r.get(k) for k in ("position", "S_combined", "Z_combined", "n_pairs_used",
                                                                   "euler_deg")} for r in results.values()]}}
