@@ -99,3 +99,4 @@ def simulate_polarised(plan, space, observer, cosmology, seed: int) -> np.ndarra
         raise InputError(f"no polarised skies of {space.geometry} spaces", "[significance] injection_families")
     return observe_polarised(sky, nside=plan.sim_nside, fwhm_deg=inst["fwhm_deg"], noise_uk=inst["noise_uk"],
                              noise_pol_uk=inst.get("noise_pol_uk"), seed=seed, lmax=plan.sim_lmax)
+

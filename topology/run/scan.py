@@ -30,6 +30,7 @@ from . import calibration
 from . import tasks as T
 from . import report_parts
 from . import spectra_check
+from .fields import field_calibration, fields_table
 from .report_parts import Analysis, field_assumptions, sky_figure
 
 N_CANDIDATES = 10  # candidates per map in the summary and tables
@@ -139,7 +140,15 @@ def analyse(plan, store) -> Analysis:
         "families": [{k: v for k, v in f.items() if k != "key"} | {"task_key": f["key"]} for f in families],
         "spectra_check": spectra_rows,
     }
-    return Analysis(maps_out, calibration_out, thresholds, null, map_values)
+    analysis = Analysis(maps_out, calibration_out, thresholds, null, map_values)
+    by_field = field_calibration(plan, store, analysis)  # T+E: T alone and E alone on the same skies
+    if by_field:
+        calibration_out["by_field"] = by_field
+        for m in maps_out:
+            m["by_field"] = {row["field"]: row["maps"][m["name"]] | {"alpha_min_any_flat_deg":
+                                                                     row["alpha_min_any_flat_deg"]}
+                             for row in by_field}
+    return analysis
 
 
 def spectra_consistency(plan, store) -> list[dict]:
@@ -179,6 +188,11 @@ def write_report(plan, analysis: Analysis, summary: dict, staging: Path) -> tupl
     t.meta["field"] = plan.pol_field or "T"
     t.write(staging / "efficiency.ecsv", format="ascii.ecsv")
     tables["efficiency"] = t
+
+    if calibration.get("by_field"):
+        t = fields_table(calibration["by_field"], plan)
+        t.write(staging / "fields.ecsv", format="ascii.ecsv")
+        tables["T alone, E alone and T+E (same skies)"] = t
 
     if calibration.get("spectra_check"):
         t = report.spectra_check_table(calibration["spectra_check"], spectra_check.DEPARTURE_SIGMA)

@@ -143,6 +143,23 @@ def smax_by_radius(result: dict, radii: np.ndarray) -> np.ndarray:
     return out
 
 
+def smax_by_field(result: dict, radii: np.ndarray) -> dict | None:
+    """{"T": ..., "E": ...}: each map's own S_max per searched radius of a T + E search
+    (``polarisation.s_max_by_field``; -inf where nothing was evaluated), None for other searches."""
+    records = (result.get("polarisation") or {}).get("s_max_by_field")
+    if not records:
+        return None
+    out = {}
+    for f in ("T", "E"):
+        v = np.full(len(radii), -np.inf)
+        for rec in records:
+            if rec and rec.get(f) is not None and np.isfinite(rec[f]):
+                i = int(np.argmin(np.abs(radii - float(rec["radius_deg"]))))
+                v[i] = max(v[i], float(rec[f]))
+        out[f] = v
+    return out
+
+
 def run_cosmology(plan):
     from ..scenario import cosmology_from_config
 
@@ -239,7 +256,7 @@ def task_null(plan, task_id: str) -> dict:
         m, pol = polarised_input_of(plan, simulate_polarised(plan, None, None, run_cosmology(plan), seed), task_id)
         res = search_values(m, plan, task_id, polarised=pol)
         return {"s_max": smax_by_radius(res, plan.radii_deg), "seed": seed, "elapsed_s": res["elapsed_s"],
-                "cl": sky_power(m.values, plan.sim_lmax)}
+                "cl": sky_power(m.values, plan.sim_lmax), "s_max_fields": smax_by_field(res, plan.radii_deg)}
     m, seed = null_map(plan, task_id)
     res = search_values(m, plan, task_id)
     return {"s_max": smax_by_radius(res, plan.radii_deg), "seed": seed, "elapsed_s": res["elapsed_s"],
@@ -272,4 +289,5 @@ def task_injection(plan, family: int, radius_deg: float, task_id: str) -> dict:
            else {"s_max": [], "elapsed_s": 0.0})
     return {"s_max": smax_by_radius(res, plan.radii_deg), "radius_deg": float(radius_deg),
             "radius_true_deg": radius_true, "seed": seed, "elapsed_s": res["elapsed_s"],
-            "omega_k": float(cosmo_inj.omega_k), "cl": sky_power(getattr(m, "values", m), plan.sim_lmax)}
+            "omega_k": float(cosmo_inj.omega_k), "cl": sky_power(getattr(m, "values", m), plan.sim_lmax),
+            "s_max_fields": smax_by_field(res, plan.radii_deg)}

@@ -195,6 +195,8 @@ def search_sky(sky, mask=None, settings: SearchSettings | None = None, *, scenar
             (ctx.e if field == "T+E" else ctx).prepared.kept_fraction)}
         if field == "T+E":
             pol_info["weights"] = summary.pop("weights")
+            if "fields_s_max" in summary:  # each map's own S_max per radius (radius scan)
+                pol_info["s_max_by_field"] = summary.pop("fields_s_max")
     out = {
         "map": map_name or getattr(sky, "source", ""),
         "field": field if field is not None else sky.header.get("COLUMN"),

@@ -17,6 +17,8 @@ at one twist and orientation shared by the two maps (one holonomy per pair).
   among the last level's candidates of neither map alone is not seen (a pair weak in both and
   strong only jointly); the null calibration of S_max uses the same procedure, so thresholds
   are consistent with it.
+  The record of every radius also keeps each map's own S_max (the best S_eq of its last level,
+  what a search of that map alone gives): ``polarisation.s_max_by_field`` of the output.
 * Targeted: the orientation scan of :mod:`.targeted` with each predicted pair's value
   S_TE,eq (usable when usable in both maps), averaged over the pairs as for T.
 
@@ -155,10 +157,13 @@ class CombinedPairMode(Mode):
         lv = self.base.levels(ctx.t)[-1]
         weights = radius_weights(ctx, radius, lv)
         skipped = max(skip_t, skip_e)
+        # each map's own S_max at this radius: the best S_eq of its last level, what a search of that
+        # map alone gives (the same hierarchy), so a run calibrates T, E and T + E on the same skies
+        fields = {"radius_deg": key, "T": _best_rank(c_t), "E": _best_rank(c_e)}
         parts = [c for c in (c_t, c_e) if c is not None and len(c)]
         if not parts:
             return {"radius_deg": key, "candidates": [], "s_max": {}, "work": work, "skipped_circles": skipped,
-                    "levels": info, "weights": weights}
+                    "levels": info, "weights": weights, "fields": fields}
         ca = np.vstack([c.center_a for c in parts])
         cb = np.vstack([c.center_b for c in parts])
         orient = np.concatenate([c.orientation for c in parts])
@@ -182,12 +187,22 @@ class CombinedPairMode(Mode):
                            np.minimum(res["f_t"], res["f_e"]), max(m_t, m_e))
         rep = self.base.report(ctx.t, radius, cands, nside)
         return {"radius_deg": key, **rep, "work": work, "skipped_circles": skipped, "levels": info,
-                "weights": weights}
+                "weights": weights, "fields": fields}
 
     def summarise(self, ctx, results: dict) -> dict:
         out = self.base.summarise(ctx.t, results)
         out["weights"] = [results[k]["weights"] for k in sorted(results)]
+        out["fields_s_max"] = [results[k].get("fields") for k in sorted(results)]
         return out
+
+
+def _best_rank(c) -> float | None:
+    """The largest finite ranking score S_eq of a level's Candidates (None when there is none)."""
+    if c is None or not len(c) or c.rank is None:
+        return None
+    r = np.asarray(c.rank, dtype=float)
+    r = r[np.isfinite(r)]
+    return float(r.max()) if r.size else None
 
 
 class CombinedTargetedMode(TargetedMode):
