@@ -4,7 +4,7 @@
 #   sh synthetic_maps/make_maps.sh --check    (regenerate, then compare with SHA256SUMS)
 set -e
 cd "$(dirname "$0")"
-for name in survey_a survey_b isotropic e1 e2 dodecahedral lens; do
+for name in survey_a survey_b survey_pol isotropic e1 e2 dodecahedral lens; do
     topology synth "../configs/synth_$name.toml" --out "$name.fits" --preview "$name.png" \
         --pairs "$name.json" --force
 done

@@ -188,7 +188,7 @@ SCHEMA.update({
         "fwhm_deg": Key(NUMBER, 1.0, "beam FWHM of the maps in degrees (null and injected skies get it)", _non_negative),
         "noise_uk": Key(NUMBER, 0.0, "white noise rms per pixel in microK (null and injected skies)", _non_negative),
         "noise_pol_uk": Key(NUMBER, None, "maps of field E or T+E: white noise rms per pixel on each of Q and U of "
-                            "the null skies in microK (default sqrt(2) noise_uk)", _non_negative),
+                            "the null and injected skies in microK (default sqrt(2) noise_uk)", _non_negative),
         "nside": Key((int,), None, "N_side of null and injected skies (default: that of the first map)", _power_of_two),
         "lmax": Key((int,), None, "highest multipole of null and injected skies (default 2 nside)", _positive),
         "terms": Key((list,), ["sw"], "temperature terms of null and injected skies: ['sw'] or ['sw', 'doppler', 'isw']"),
