@@ -62,6 +62,7 @@ class RunPlan:
     sim_nside: int = 64  # N_side of the null and injected skies
     sim_lmax: int = 128  # their l_max
     pol_field: str | None = None  # "E" or "T+E" when the maps are searched in polarisation (null skies too)
+    harmonic: dict | None = None  # [harmonic]: the low-l likelihood bound (topology.run.harmonic.check_plan)
 
     @property
     def cosmology(self) -> Cosmology:
@@ -259,7 +260,7 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
     cosmo = cosmology_from_config(cfg)
     with naming_file(cfg):
         check_inline_skies(cfg, cosmo)
-        bound_families(cfg, cosmo)
+        spaces = bound_families(cfg, cosmo)
 
     mask = cfg.section("mask")
     if "path" in mask and "galactic_b_deg" in mask:
@@ -328,9 +329,10 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
         raise InputError(f"injection radii {injection_radii.min():g}..{injection_radii.max():g} deg lie outside the "
                          f"searched radii {radii.min():g}..{radii.max():g} deg", "[significance] injection_radii")
     significance["injection_families"] = injection_families(cfg)
-    if pol_field:
-        check_polarised_run(pol_field, terms, targets, instrument)
-        significance["injection_families"] = []   # no polarised injected skies yet (POLARISED_NOTE)
+    if pol_field:  # polarised null and injected skies (topology.run.polarised)
+        from .polarised import check_polarised_run, check_polarised_work
+
+        check_polarised_run(pol_field, terms, targets, significance["injection_families"])
     check_run_terms(terms, cosmo, significance["injection_families"], targets, maps, sim_lmax)
     if targets:
         targeted.check_injectable(targets, cfg.section("cosmology"), cfg.base_dir, sim_lmax)
@@ -341,10 +343,16 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
             except InputError as e:
                 where = (e.where or "").replace(injection.WHERE, f"{injection.WHERE} #{k + 1}")
                 raise InputError(e.reason, where) from None
+    for k, spec in enumerate(significance["injection_families"] if pol_field else []):
+        check_polarised_work(spec, cosmo, injection_radii, sim_lmax, f"{injection.WHERE} #{k + 1}")
     if significance["radius_tolerance_deg"] is None:
         significance["radius_tolerance_deg"] = float(np.min(np.diff(radii))) if radii.size > 1 else 1.0
 
     bounds = {k: cfg.get("bounds", k) for k in ("families", "p_max", "m_max")}
+    with naming_file(cfg):
+        from .harmonic import check_plan
+
+        harmonic = check_plan(cfg, maps, instrument, pol_field, spaces)
 
     execution = {k: cfg.get("execution", k) for k in ("engine", "workers", "scheduler")}
     execution.update({k: v for k, v in (("engine", engine), ("workers", workers), ("scheduler", scheduler))
@@ -359,27 +367,7 @@ def plan_from_config(cfg: Config, out_dir: str | Path | None = None, *, engine: 
                    injection_radii_deg=injection_radii, out_dir=out, config_hash=config_hash(cfg.sections),
                    execution=execution, targets=targets, inputs=inputs,
                    config_path=str(cfg.path.resolve()) if cfg.path else None, sim_nside=sim_nside,
-                   sim_lmax=sim_lmax, pol_field=pol_field)
-
-
-#: what a run of field E or T+E says in its report and on stderr
-POLARISED_NOTE = ("E and T+E have no alpha_min calibration yet (no injected polarised skies of multiply connected "
-                  "spaces in the run): thresholds and p-values come from polarised isotropic null skies, but no "
-                  "efficiency, alpha_min or bound is derived")
-
-
-def check_polarised_run(field: str, terms: tuple, targets: list, instrument: dict) -> None:
-    """A run of field E or T+E: polarised null skies need CAMB's full terms (the SW term makes no
-    E); the targeted kind of run is temperature only; a note says that there is no alpha_min."""
-    from ..errors import note
-
-    if set(terms) != {"sw", "doppler", "isw"}:
-        raise InputError(f"field {field!r}: polarised null skies need terms = [\"sw\", \"doppler\", \"isw\"] "
-                         f"(CAMB's TT, EE, TE), got {list(terms)}", "[instrument] terms")
-    if targets:
-        raise InputError(f"field {field!r}: the targeted run is temperature only for now; use topology search "
-                         f"--mode targeted --field {field}", "[search] mode")
-    note(f"field {field}: {POLARISED_NOTE}")
+                   sim_lmax=sim_lmax, pol_field=pol_field, harmonic=harmonic)
 
 
 def injection_families(cfg: Config) -> list[dict]:
