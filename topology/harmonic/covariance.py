@@ -22,9 +22,9 @@ spectrum of the terms (:func:`topology.skies.spectra.isotropic_cl`) and C_l(kchi
 continuum integral of the kept, weighted modes; the reference is then the isotropic C_l itself.
 At the default cut (3 lmax + 10) the modes beyond carry a few per cent of C_lmax and little
 of the topology (a mode of k chi_rec >> l projects onto multipole l in small caps about
-+-k^), and the divergence converges fast in the cut (E1 of side 1, 2, 2.5 chi_rec at lmax 10:
-within 0.2 % of its value at kchi_max = 80 for kchi_max = 40 with the isotropic complement,
-against 10, 6 and 1 % above it without). Without it (``complement=False``) the reference is the isotropic sky of the
++-k^), and the divergence converges fast in the cut (E1 of side 1, 2, 2.5 chi_rec at lmax 10,
+kchi_max = 40 against 80: 0.27, 0.40, -0.04 % with the boosted profile and complement, < 0.2 %
+with the complement alone, 10, 6 and 1 % without either). Without it (``complement=False``) the reference is the isotropic sky of the
 same cut, C_l(kchi_max): a space much larger than chi_rec tends to it on the diagonal, and a
 small space whose modes below the cut span fewer than N directions has a singular covariance.
 """
